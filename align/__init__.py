@@ -1,0 +1,14 @@
+"""corealign: date an abrupt event in one archive against a climate transition in another.
+
+The public API is importable from here; see ``README.md`` for a tour and ``DEVELOPERS.md`` for
+the architecture.
+"""
+
+from align.ages import convert_age
+from align.errors import InputError
+from align.io import open_record, save_record
+from align.provenance import version as _version
+
+__version__ = _version()
+
+__all__ = ["InputError", "convert_age", "open_record", "save_record"]

@@ -1,0 +1,55 @@
+"""What a record holds, summarised for people (``corealign info``) and for the catalogue."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from align.record import (MEMBER, age_reference, proxy_variables, record_name,
+                          uncertainty_kind)
+from align.schema import CoordinateInfo, RecordInfo, Spread, VariableInfo
+
+
+def describe_record(record):
+    """Summarise a record.
+
+    Parameters
+    ----------
+    record : xarray.Dataset
+        A validated record.
+
+    Returns
+    -------
+    RecordInfo
+        Variables with units and missing-value counts, depth and age ranges (m; yr in the
+        record's reference), sample-interval statistics, uncertainty kind and timescale
+        metadata.
+    """
+    attrs = record.attrs
+    derived = set(str(attrs.get("bounds_derived", "")).split())
+    coords = {name: _coordinate(record, name, name in derived)
+              for name in ("depth", "age") if name in record.coords}
+    variables = [VariableInfo(name=name, units=record[name].attrs.get("units"),
+                              long_name=record[name].attrs.get("long_name"),
+                              n_missing=int(np.isnan(record[name].values).sum()),
+                              n_valid=int(np.isfinite(record[name].values).sum()))
+                 for name in proxy_variables(record)]
+    return RecordInfo(
+        name=record_name(record), source=str(attrs.get("source", "")),
+        checksum=str(attrs.get("source_checksum", "")),
+        **{key: (str(attrs[key]) if key in attrs else None)
+           for key in ("archive", "site", "core", "timescale", "timescale_kind")},
+        age_reference=age_reference(record), n_samples=record.sizes["sample"], **coords,
+        uncertainty=uncertainty_kind(record),
+        ensemble_members=record.sizes.get(MEMBER, 0) if "age_ensemble" in record else 0,
+        variables=variables,
+        history=[line for line in str(attrs.get("history", "")).splitlines() if line])
+
+
+def _coordinate(record, name, derived):
+    bounds = record[f"{name}_bounds"].values
+    width = bounds[:, 1] - bounds[:, 0]
+    return CoordinateInfo(units=record[name].attrs.get("units", ""),
+                          range=[float(bounds[:, 0].min()), float(bounds[:, 1].max())],
+                          interval=Spread(median=float(np.median(width)),
+                                          min=float(width.min()), max=float(width.max())),
+                          bounds_derived=derived)
