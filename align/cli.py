@@ -11,13 +11,16 @@ import json
 import os
 import sys
 import warnings
+from pathlib import Path
 
 from align import text
 from align.ages import REFERENCES, convert_age
 from align.demo import demo_records_dir, demo_truth
 from align.describe import describe_record
 from align.errors import InputError
-from align.io import open_record, save_record
+from align.io import atomic_write, open_record, save_record
+from align.suggest import suggest_ties
+from align.ties import read_ties, transfer
 from align.schema import AgeConversion
 
 
@@ -82,6 +85,29 @@ def build_parser():
     age.add_argument("--to", required=True, metavar="REF", help="reference to convert to")
     _json_option(age)
     age.set_defaults(run=_age)
+
+    tie = commands.add_parser("tie", help="put a record on another's timescale through ties")
+    tie.add_argument("record", help="the record to move (needs depths)")
+    tie.add_argument("--ties", required=True, help="tie table: label,depth,ref_depth|ref_age,sd")
+    tie.add_argument("--onto", required=True, help="the reference record")
+    tie.add_argument("-o", "--output", required=True, help="the NetCDF file to write")
+    tie.add_argument("--method", default="linear", choices=("linear", "pchip"))
+    tie.add_argument("--bridge-rate", type=float, metavar="R",
+                     help="between-tie variance rate, yr^2 per yr (default: from the ties)")
+    tie.add_argument("--extrapolate", action="store_true",
+                     help="keep samples beyond the outer ties (flagged, wider uncertainty)")
+    _mapping_options(tie)
+    tie.set_defaults(run=_tie)
+
+    suggest = commands.add_parser("suggest-ties", help="candidate ties from peaks in both")
+    suggest.add_argument("reference", metavar="A.nc:VAR", help="reference record and variable")
+    suggest.add_argument("moved", metavar="B.nc:VAR", help="record to move and variable")
+    suggest.add_argument("--max-offset", type=float, metavar="YEARS",
+                         help="largest age difference at a tie (default: from the timescales)")
+    suggest.add_argument("--threshold", type=float, default=4.0,
+                         help="robust z-score a peak must exceed (default 4)")
+    suggest.add_argument("-o", "--output", required=True, help="candidate tie table (CSV)")
+    suggest.set_defaults(run=_suggest_ties)
 
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
     demo.set_defaults(run=_demo)
@@ -152,6 +178,37 @@ def _age(args):
                                   result=result).to_dict())
     else:
         print(f"{result:.10g}")
+
+
+def record_and_variable(text_):
+    """Split ``PATH:VARIABLE`` (the variable after the last colon)."""
+    path, sep, variable = text_.rpartition(":")
+    if not sep or not path or not variable:
+        raise InputError(f"expected RECORD:VARIABLE, got {text_!r}", field="record")
+    return path, variable
+
+
+def _tie(args):
+    record = open_record(args.record, **mapping_from(args))
+    moved = transfer(record, read_ties(args.ties), open_record(args.onto), method=args.method,
+                     extrapolate=args.extrapolate, bridge_rate=args.bridge_rate)
+    save_record(moved, args.output, history=f"written by corealign tie from {args.record}")
+    sd = moved["age_sd"].values
+    print(f"wrote {args.output}: {moved.sizes['sample']} samples on {moved.attrs['timescale']}, "
+          f"age sd {sd.min():.1f} to {sd.max():.1f} yr; bridge rate "
+          f"{moved.attrs['bridge_rate']:.3g} yr^2/yr ({moved.attrs['bridge_rate_choice']})")
+
+
+def _suggest_ties(args):
+    (ref_path, ref_var), (moved_path, moved_var) = map(record_and_variable,
+                                                       (args.reference, args.moved))
+    table = suggest_ties(open_record(ref_path), ref_var, open_record(moved_path), moved_var,
+                         max_offset=args.max_offset, threshold=args.threshold)
+    header = (f"# candidate ties: {moved_path} (depth) onto {ref_path}; review before use, "
+              "delete the rows you reject\n")
+    atomic_write(args.output, lambda tmp: Path(tmp).write_text(
+        header + table.to_csv(index=False, float_format="%.6g")))
+    print(f"wrote {args.output}: {len(table)} candidate ties (never applied automatically)")
 
 
 def _demo(args):
