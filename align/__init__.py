@@ -8,8 +8,10 @@ from align.ages import convert_age
 from align.errors import InputError
 from align.io import open_record, save_record
 from align.provenance import version as _version
+from align.resample import resample
 from align.ties import read_ties, transfer
 
 __version__ = _version()
 
-__all__ = ["InputError", "convert_age", "open_record", "read_ties", "save_record", "transfer"]
+__all__ = ["InputError", "convert_age", "open_record", "read_ties", "resample", "save_record",
+           "transfer"]

@@ -89,3 +89,78 @@ def interp_sorted(x, xp, fp, out):
             while xp[j + 1] < v:
                 j += 1
             out[i] = fp[j] + (v - xp[j]) * slope[j]
+
+
+@njit(cache=True, nogil=True)
+def overlap_sums(lo, hi, values, edges):
+    """Integrate piecewise-constant samples over grid cells, exactly, in one merge pass.
+
+    Parameters
+    ----------
+    lo, hi : float64[n]
+        Sample intervals, increasing and not overlapping (strided views are fine).
+    values : float64[n, v]
+        Sample values of ``v`` variables; NaN is missing.
+    edges : float64[m + 1]
+        Cell edges, increasing.
+
+    Returns
+    -------
+    integral : float64[m, v]
+        Sum over valid samples of ``value * overlap(sample, cell)``.
+    covered : float64[m, v]
+        Sum over valid samples of ``overlap(sample, cell)``.
+    count : int64[m, v]
+        Valid samples overlapping each cell by a positive length.
+    width_sum : float64[m]
+        Sum of the interval lengths of all samples overlapping each cell.
+    width_count : int64[m]
+        Number of samples overlapping each cell.
+    ordered : bool
+        False if the intervals were not increasing and disjoint, beyond the record model's
+        rounding tolerance (the sums are then wrong).
+    """
+    n, nv = values.shape
+    m = edges.size - 1
+    integral = np.zeros((m, nv))
+    covered = np.zeros((m, nv))
+    count = np.zeros((m, nv), dtype=np.int64)
+    width_sum = np.zeros(m)
+    width_count = np.zeros(m, dtype=np.int64)
+    ordered = True
+    previous = -np.inf
+    c = 0
+    for i in range(n):
+        a, b = lo[i], hi[i]
+        if a < previous - 1e-9 * max(1.0, abs(previous)) or b < a:  # the record's tolerance
+            ordered = False
+        previous = b
+        while c < m and edges[c + 1] <= a:
+            c += 1
+        if c == m:
+            break
+        if edges[c] <= a and b <= edges[c + 1]:  # the common case: inside one cell
+            width = b - a
+            width_sum[c] += width
+            width_count[c] += 1
+            for k in range(nv):
+                v = values[i, k]
+                if v == v:
+                    integral[c, k] += v * width
+                    covered[c, k] += width
+                    count[c, k] += 1
+            continue
+        j = c
+        while j < m and edges[j] < b:
+            overlap = min(b, edges[j + 1]) - max(a, edges[j])
+            if overlap > 0.0:
+                width_sum[j] += b - a
+                width_count[j] += 1
+                for k in range(nv):
+                    v = values[i, k]
+                    if v == v:
+                        integral[j, k] += v * overlap
+                        covered[j, k] += overlap
+                        count[j, k] += 1
+            j += 1
+    return integral, covered, count, width_sum, width_count, ordered

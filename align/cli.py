@@ -18,7 +18,8 @@ from align.ages import REFERENCES, convert_age
 from align.demo import demo_records_dir, demo_truth
 from align.describe import describe_record
 from align.errors import InputError
-from align.io import atomic_write, open_record, save_record
+from align.io import atomic_write, open_record, save_grid, save_record
+from align.resample import align_records, resample
 from align.suggest import suggest_ties
 from align.ties import read_ties, transfer
 from align.schema import AgeConversion
@@ -109,6 +110,25 @@ def build_parser():
     suggest.add_argument("-o", "--output", required=True, help="candidate tie table (CSV)")
     suggest.set_defaults(run=_suggest_ties)
 
+    resample_ = commands.add_parser("resample", help="a record on a regular grid (no invented "
+                                                     "detail)")
+    resample_.add_argument("record", help="NetCDF or CSV/TSV record")
+    _grid_options(resample_)
+    resample_.add_argument("--along", default="age", choices=("age", "depth"))
+    resample_.add_argument("--interpolate", action="store_true",
+                           help="interpolate linearly in cells finer than the samples")
+    _mapping_options(resample_)
+    resample_.set_defaults(run=_resample)
+
+    align_ = commands.add_parser("align", help="put B on A's timescale, both on one grid")
+    align_.add_argument("a", metavar="A.nc", help="the reference record")
+    align_.add_argument("b", metavar="B.nc", help="the record brought onto A's timescale")
+    align_.add_argument("--ties", help="tie table between B (depth) and A (ref_depth/ref_age)")
+    align_.add_argument("--same-timescale", action="store_true",
+                        help="A and B are already on the same timescale")
+    _grid_options(align_)
+    align_.set_defaults(run=_align)
+
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
     demo.set_defaults(run=_demo)
     return parser
@@ -131,6 +151,16 @@ def _mapping_options(parser):
                        help="CF units of a proxy column (repeatable)")
     for key in ("archive", "site", "core", "timescale", "timescale-kind"):
         group.add_argument(f"--{key}", metavar="TEXT", help=f"record {key.replace('-', ' ')}")
+
+
+def _grid_options(parser):
+    parser.add_argument("--step", type=float, metavar="YEARS",
+                        help="cell width (default: the coarser native resolution)")
+    parser.add_argument("--start", type=float, help="first cell edge")
+    parser.add_argument("--stop", type=float, help="last cell edge")
+    parser.add_argument("--min-coverage", type=float, default=0.5, metavar="F",
+                        help="cells covered less than this fraction are missing (default 0.5)")
+    parser.add_argument("-o", "--output", required=True, help="the NetCDF file to write")
 
 
 def mapping_from(args):
@@ -209,6 +239,35 @@ def _suggest_ties(args):
     atomic_write(args.output, lambda tmp: Path(tmp).write_text(
         header + table.to_csv(index=False, float_format="%.6g")))
     print(f"wrote {args.output}: {len(table)} candidate ties (never applied automatically)")
+
+
+def _grid_summary(grid, output):
+    along = next(iter(grid.dims))
+    print(f"wrote {output}: {grid.sizes[along]} cells of {grid.attrs['resample_step']:g} along "
+          f"{along}" + (f"; {grid.attrs['step_choice']}" if "step_choice" in grid.attrs else ""))
+
+
+def _resample(args):
+    mapping = mapping_from(args)
+    record = open_record(args.record, **mapping)
+    grid = resample(record, args.step, start=args.start, stop=args.stop,
+                    variables=mapping.get("variables"), min_coverage=args.min_coverage,
+                    along=args.along,
+                    interpolate=args.interpolate)
+    save_grid(grid, args.output, history=f"corealign resample {args.record}")
+    _grid_summary(grid, args.output)
+
+
+def _align(args):
+    a, b = open_record(args.a), open_record(args.b)
+    if args.start is not None or args.stop is not None:
+        raise InputError("align chooses the grid from both records; use resample for "
+                         "--start/--stop", field="start")
+    grid = align_records(a, b, ties=read_ties(args.ties) if args.ties else None,
+                         same_timescale=args.same_timescale, step=args.step,
+                         min_coverage=args.min_coverage)
+    save_grid(grid, args.output, history=f"corealign align {args.a} {args.b}")
+    _grid_summary(grid, args.output)
 
 
 def _demo(args):

@@ -174,8 +174,19 @@ def save_record(record, path, *, history=None):
         The written path.
     """
     ds = validate_record(record.copy())
-    add_history(ds, history or "written by save_record")
     ds.attrs.setdefault("title", f"corealign record: {ds.attrs.get('core') or Path(path).stem}")
+    return write_cf(ds, path, history=history or "written by save_record")
+
+
+def save_grid(grid, path, *, history=None):
+    """Write a common grid (:func:`align.resample.resample` output) as CF-1.8 NetCDF."""
+    return write_cf(grid.copy(), path, history=history or "written by save_grid")
+
+
+def write_cf(ds, path, *, history):
+    """CF encoding at the file edge, then an atomic write: coordinates, bounds and timescale
+    variables without fill values, data variables compressed with NaN as fill value."""
+    add_history(ds, history)
     ds.attrs["Conventions"] = "CF-1.8"
     encoding = {}
     for name, var in ds.variables.items():
@@ -185,9 +196,7 @@ def save_record(record, path, *, history=None):
             encoding[name] = {"_FillValue": np.nan, "zlib": True, "complevel": 4}
         if var.dtype.kind == "f":
             encoding[name]["dtype"] = "float64"
-    for name in ("depth", "age"):
-        if name in ds.coords:
-            ds[name].encoding = {}
+        var.encoding = {}
     return atomic_write(path, lambda tmp: ds.to_netcdf(tmp, engine="netcdf4",
                                                        encoding=encoding))
 

@@ -188,10 +188,10 @@ def _derive_age_bounds(depth, age, depth_bounds, source):
     if depth.size < 2:
         raise InputError("a single sample needs explicit age bounds", source=source,
                          field="age")
-    return _interp_extrapolate(dbounds, depth, age)
+    return interp_extrapolate(dbounds, depth, age)
 
 
-def _interp_extrapolate(x, xp, fp):
+def interp_extrapolate(x, xp, fp):
     """Piecewise-linear interpolation with linear extrapolation from the outer segments."""
     y = np.interp(x, xp, fp)
     lo_slope = (fp[1] - fp[0]) / (xp[1] - xp[0])

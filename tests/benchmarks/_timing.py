@@ -29,6 +29,32 @@ def peak_rss_mb(code):
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
+def peak_extra_mb(fn):
+    """Peak resident memory (MB) above the level before ``fn()`` runs, sampled every ms."""
+    import threading
+
+    import psutil
+
+    process = psutil.Process()
+    start = process.memory_info().rss
+    peak = [start]
+    done = threading.Event()
+
+    def watch():
+        while not done.is_set():
+            peak[0] = max(peak[0], process.memory_info().rss)
+            done.wait(0.001)
+
+    watcher = threading.Thread(target=watch)
+    watcher.start()
+    try:
+        fn()
+    finally:
+        done.set()
+        watcher.join()
+    return (max(peak[0], process.memory_info().rss) - start) / 2**20
+
+
 def report(name, measured, baseline, unit="s", limit=None, better="lower"):
     """Print one benchmark line: measured, baseline, their ratio and the requirement."""
     ratio = measured / baseline
