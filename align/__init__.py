@@ -5,6 +5,7 @@ the architecture.
 """
 
 from align.ages import convert_age
+from align.detect import detect_event, detect_onset
 from align.errors import InputError
 from align.io import open_record, save_record
 from align.provenance import version as _version
@@ -13,5 +14,5 @@ from align.ties import read_ties, transfer
 
 __version__ = _version()
 
-__all__ = ["InputError", "convert_age", "open_record", "read_ties", "resample", "save_record",
-           "transfer"]
+__all__ = ["InputError", "convert_age", "detect_event", "detect_onset", "open_record",
+           "read_ties", "resample", "save_record", "transfer"]

@@ -8,7 +8,7 @@ Imported lazily (``import align._kernels`` compiles or loads from the on-disk ca
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 
 @njit(cache=True, nogil=True)
@@ -164,3 +164,220 @@ def overlap_sums(lo, hi, values, edges):
                         count[j, k] += 1
             j += 1
     return integral, covered, count, width_sum, width_count, ordered
+
+
+@njit(cache=True, nogil=True)
+def _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx):
+    """Weighted least-squares levels of the ramp with corners at samples ``i`` < ``j``:
+    returns ``(b, a, Q)`` with ``x = a + b g`` and ``SSR = Sxx - Sx^2/Sw - Q``."""
+    ti = t[i]
+    d = t[j] - ti
+    rw = Pw[j] - Pw[i + 1]
+    rwt = Pwt[j] - Pwt[i + 1]
+    rwtt = Pwtt[j] - Pwtt[i + 1]
+    rwx = Pwx[j] - Pwx[i + 1]
+    rwtx = Pwtx[j] - Pwtx[i + 1]
+    aw = Sw - Pw[j]
+    awx = Sx - Pwx[j]
+    sg = (rwt - ti * rw) / d + aw
+    sgg = (rwtt - 2.0 * ti * rwt + ti * ti * rw) / (d * d) + aw
+    sgx = (rwtx - ti * rwx) / d + awx
+    det = Sw * sgg - sg * sg
+    if det <= 1e-12 * Sw * Sw:
+        return 0.0, Sx / Sw, -1.0
+    num = Sw * sgx - sg * Sx
+    b = num / det
+    return b, (Sx - b * sg) / Sw, num * num / (Sw * det)
+
+
+@njit(cache=True, nogil=True)
+def _vertex(t0, t1, t2, s0, s1, s2):
+    """Abscissa of the minimum of the parabola through three points (``t1`` if none)."""
+    d0, d2 = t0 - t1, t2 - t1
+    denom = d0 * d2 * (d0 - d2)
+    if denom == 0.0:
+        return t1
+    a = (d2 * (s0 - s1) - d0 * (s2 - s1)) / denom
+    b = (d0 * d0 * (s2 - s1) - d2 * d2 * (s0 - s1)) / denom
+    if a <= 0.0:
+        return t1
+    v = t1 - b / (2.0 * a)
+    return min(max(v, min(t0, t2)), max(t0, t2))
+
+
+#: Coarse-search candidates refined locally by :func:`ramp_search`.
+STARTS = 4
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def ramp_search(t, w, X, sign, step, min_plateau):
+    """Least-squares ramp fits (Mudelsee 2000) of many series on one irregular time axis.
+
+    Parameters
+    ----------
+    t : float64[n]
+        Increasing (forward) times.
+    w : float64[n]
+        Weights.
+    X : float64[B, n]
+        Series to fit (e.g. bootstrap replicates).
+    sign : int
+        +1 only rising ramps, -1 only falling, 0 either.
+    step : int
+        Coarse search stride: corners are first searched on every ``step``-th sample; then,
+        from each of the ``STARTS`` best coarse pairs and until nothing improves, each corner
+        is searched on every sample within ``step / 2`` while the other is held, and both
+        within one sample; the best result wins (``step = 1``: exhaustive).
+    min_plateau : int
+        Samples required on each plateau (at or before the onset, at or after the end).
+
+    Returns
+    -------
+    float64[B, 7]
+        Per series: onset ``t1``, end ``t2`` (refined between samples by a parabola through
+        the profile SSR at the neighbouring samples), level before, level after, SSR at the
+        best sample pair, and the best pair's sample indices ``i``, ``j``.
+
+    Notes
+    -----
+    For corners at samples ``i < j`` the model is ``x = a + b g`` with ``g`` 0 up to
+    ``t_i``, 1 from ``t_j`` and linear between; the weighted sums it needs come from prefix
+    sums, so each candidate pair costs O(1) (levels by weighted least squares, corners by
+    brute-force search, as in Mudelsee 2000, but without refitting per pair).
+    """
+    B, n = X.shape
+    out = np.full((B, 7), np.nan)
+    Pw = np.zeros(n + 1)
+    Pwt = np.zeros(n + 1)
+    Pwtt = np.zeros(n + 1)
+    for k in range(n):
+        Pw[k + 1] = Pw[k] + w[k]
+        Pwt[k + 1] = Pwt[k] + w[k] * t[k]
+        Pwtt[k + 1] = Pwtt[k] + w[k] * t[k] * t[k]
+    Sw = Pw[n]
+    lo_i = min_plateau - 1
+    hi_j = n - min_plateau
+    if hi_j <= lo_i:
+        return out
+    for r in prange(B):
+        Pwx = np.zeros(n + 1)
+        Pwtx = np.zeros(n + 1)
+        sxx = 0.0
+        for k in range(n):
+            x = X[r, k]
+            Pwx[k + 1] = Pwx[k] + w[k] * x
+            Pwtx[k + 1] = Pwtx[k] + w[k] * t[k] * x
+            sxx += w[k] * x * x
+        Sx = Pwx[n]
+        # coarse: every step-th sample (and the last ones); keep the STARTS best pairs
+        top_q = np.full(STARTS, -1.0)
+        top_i = np.full(STARTS, -1)
+        top_j = np.full(STARTS, -1)
+        i = lo_i
+        while i <= hi_j - 1:
+            j = i + 1
+            while j <= hi_j:
+                b, a, q = _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+                if q > top_q[STARTS - 1] and (sign == 0 or b * sign > 0):
+                    k = STARTS - 1
+                    while k > 0 and top_q[k - 1] < q:
+                        top_q[k], top_i[k], top_j[k] = top_q[k - 1], top_i[k - 1], top_j[k - 1]
+                        k -= 1
+                    top_q[k], top_i[k], top_j[k] = q, i, j
+                j = hi_j if (j < hi_j and j + step > hi_j) else j + step
+            i = hi_j - 1 if (i < hi_j - 1 and i + step > hi_j - 1) else i + step
+        best, bi, bj = top_q[0], top_i[0], top_j[0]
+        reach = (step + 1) // 2
+        for start in range(STARTS if step > 1 else 0):
+            if top_i[start] < 0:
+                break
+            ci, cj, cq = top_i[start], top_j[start], top_q[start]
+            moved = True
+            rounds = 0
+            while moved and rounds < 8:  # each corner in turn, then both within one sample
+                moved = False
+                rounds += 1
+                for phase in range(3):
+                    if phase == 0:
+                        i0, i1, j0, j1 = max(lo_i, ci - reach), min(hi_j - 1, ci + reach), cj, cj
+                    elif phase == 1:
+                        i0, i1, j0, j1 = ci, ci, max(lo_i + 1, cj - reach), min(hi_j, cj + reach)
+                    else:
+                        i0, i1 = max(lo_i, ci - 1), min(hi_j - 1, ci + 1)
+                        j0, j1 = max(lo_i + 1, cj - 1), min(hi_j, cj + 1)
+                    for i in range(i0, i1 + 1):
+                        for j in range(max(j0, i + 1), j1 + 1):
+                            b, a, q = _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+                            if q > cq and (sign == 0 or b * sign > 0):
+                                cq, ci, cj = q, i, j
+                                moved = True
+            if cq > best:
+                best, bi, bj = cq, ci, cj
+        if bi < 0:
+            continue
+        b, a, q = _pair_fit(bi, bj, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+        base = sxx - Sx * Sx / Sw
+        t1, t2 = t[bi], t[bj]
+        if lo_i < bi and bi + 1 < bj:
+            s_lo = base - _pair_fit(bi - 1, bj, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
+            s_hi = base - _pair_fit(bi + 1, bj, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
+            t1 = _vertex(t[bi - 1], t[bi], t[bi + 1], s_lo, base - q, s_hi)
+        if bi < bj - 1 and bj < hi_j:
+            s_lo = base - _pair_fit(bi, bj - 1, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
+            s_hi = base - _pair_fit(bi, bj + 1, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
+            t2 = _vertex(t[bj - 1], t[bj], t[bj + 1], s_lo, base - q, s_hi)
+        out[r, 0] = t1
+        out[r, 1] = max(t2, t1)
+        out[r, 2] = a
+        out[r, 3] = a + b
+        out[r, 4] = base - q
+        out[r, 5] = bi
+        out[r, 6] = bj
+    return out
+
+
+@njit(cache=True, nogil=True)
+def ar1_recursion(innovations, a):
+    """In place: ``e[r, i] += a[r, i] e[r, i - 1]`` along each row (an AR(1) filter)."""
+    rows, n = innovations.shape
+    for r in range(rows):
+        for i in range(1, n):
+            innovations[r, i] += a[r, i] * innovations[r, i - 1]
+    return innovations
+
+
+@njit(cache=True, nogil=True)
+def ramp_levels(t, x, w, t1, t2):
+    """Weighted least-squares levels and SSR of the ramp with corners ``t1 <= t2``.
+
+    The same closed form as :func:`align.ramp.levels`, compiled: it is called a few hundred
+    times while the corners are refined.
+    """
+    sw = sg = sgg = sx = sgx = 0.0
+    span = t2 - t1
+    for k in range(t.size):
+        if span > 0.0:
+            g = min(max((t[k] - t1) / span, 0.0), 1.0)
+        else:
+            g = 1.0 if t[k] >= t1 else 0.0
+        wk = w[k]
+        sw += wk
+        sg += wk * g
+        sgg += wk * g * g
+        sx += wk * x[k]
+        sgx += wk * g * x[k]
+    det = sw * sgg - sg * sg
+    if det <= 1e-12 * sw * sw:
+        a, b = sx / sw, 0.0
+    else:
+        b = (sw * sgx - sg * sx) / det
+        a = (sx - b * sg) / sw
+    ssr = 0.0
+    for k in range(t.size):
+        if span > 0.0:
+            g = min(max((t[k] - t1) / span, 0.0), 1.0)
+        else:
+            g = 1.0 if t[k] >= t1 else 0.0
+        r = x[k] - a - b * g
+        ssr += w[k] * r * r
+    return a, a + b, ssr

@@ -17,6 +17,7 @@ from align import text
 from align.ages import REFERENCES, convert_age
 from align.demo import demo_records_dir, demo_truth
 from align.describe import describe_record
+from align.detect import detect_event, detect_onset
 from align.errors import InputError
 from align.io import atomic_write, open_record, save_grid, save_record
 from align.resample import align_records, resample
@@ -54,6 +55,24 @@ def main(argv=None):
         print(f"corealign: internal error: {exc.__class__.__name__}: {exc} "
               "(set COREALIGN_DEBUG=1 for the traceback)", file=sys.stderr)
         return 1
+
+
+class progress_note:
+    """A one-line "working on it" note on a terminal's stderr (silent when piped)."""
+
+    def __init__(self, what):
+        self.what = what
+        self.shown = sys.stderr.isatty()
+
+    def __enter__(self):
+        if self.shown:
+            print(f"corealign: {self.what} ...", end="", file=sys.stderr, flush=True)
+        return self
+
+    def __exit__(self, *exc):
+        if self.shown:
+            print(" done" if exc[0] is None else "", file=sys.stderr)
+        return False
 
 
 def _one_line_warning(message, category, filename, lineno, file=None, line=None):
@@ -129,6 +148,28 @@ def build_parser():
     _grid_options(align_)
     align_.set_defaults(run=_align)
 
+    detect = commands.add_parser("detect", help="find an event or a transition onset")
+    kinds = detect.add_subparsers(title="markers", metavar="KIND", parser_class=_Parser)
+    event = kinds.add_parser("event", help="where a spike begins (robust z-score)")
+    event.add_argument("target", metavar="RECORD:VARIABLE")
+    event.add_argument("--window", metavar="YOUNG,OLD", help="ages to search")
+    event.add_argument("--threshold", type=float, default=5.0, help="robust z (default 5)")
+    event.add_argument("--baseline-years", type=float, help="running-median span")
+    event.add_argument("--pick", default="first", choices=("first", "peak"))
+    event.add_argument("--direction", default="up", choices=("up", "down"))
+    _marker_options(event)
+    event.set_defaults(run=_detect_event)
+    onset = kinds.add_parser("onset", help="the onset of a transition (ramp fit)")
+    onset.add_argument("target", metavar="RECORD:VARIABLE")
+    onset.add_argument("--window", metavar="YOUNG,OLD", required=True,
+                       help="ages holding the transition and both plateaus")
+    onset.add_argument("--direction", default="auto", choices=("auto", "up", "down"))
+    onset.add_argument("--method", default="ramp", choices=("ramp", "bayes"))
+    onset.add_argument("--draws", type=int, default=2000)
+    onset.add_argument("--seed", type=int)
+    _marker_options(onset)
+    onset.set_defaults(run=_detect_onset)
+
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
     demo.set_defaults(run=_demo)
     return parser
@@ -151,6 +192,27 @@ def _mapping_options(parser):
                        help="CF units of a proxy column (repeatable)")
     for key in ("archive", "site", "core", "timescale", "timescale-kind"):
         group.add_argument(f"--{key}", metavar="TEXT", help=f"record {key.replace('-', ' ')}")
+
+
+def _marker_options(parser):
+    parser.add_argument("--to", metavar="REF", choices=("b2k", "BP"),
+                        help="age reference of the window and result (default: the record's)")
+    _json_option(parser)
+    _mapping_options(parser)
+
+
+def parse_window(text_):
+    """``YOUNG,OLD`` as two floats."""
+    if text_ is None:
+        return None
+    parts = text_.split(",")
+    try:
+        values = [float(p) for p in parts]
+    except ValueError:
+        values = []
+    if len(values) != 2:
+        raise InputError(f"a window is YOUNG,OLD (two ages), got {text_!r}", field="window")
+    return values
 
 
 def _grid_options(parser):
@@ -268,6 +330,25 @@ def _align(args):
                          min_coverage=args.min_coverage)
     save_grid(grid, args.output, history=f"corealign align {args.a} {args.b}")
     _grid_summary(grid, args.output)
+
+
+def _detect_event(args):
+    path, variable = record_and_variable(args.target)
+    result = detect_event(open_record(path, **mapping_from(args)), variable,
+                          parse_window(args.window), threshold=args.threshold,
+                          baseline_years=args.baseline_years, pick=args.pick,
+                          direction=args.direction, age_reference=args.to)
+    _print_json(result.to_dict()) if args.json else print(text.marker(result))
+
+
+def _detect_onset(args):
+    path, variable = record_and_variable(args.target)
+    with progress_note(f"fitting the onset ({args.draws} {args.method} draws)"):
+        result = detect_onset(open_record(path, **mapping_from(args)), variable,
+                              parse_window(args.window), direction=args.direction,
+                              method=args.method, draws=args.draws, seed=args.seed,
+                              age_reference=args.to)
+    _print_json(result.to_dict()) if args.json else print(text.marker(result))
 
 
 def _demo(args):

@@ -11,9 +11,9 @@ Conventions: ages are in years in the named ``age_reference``; intervals are
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, PrivateAttr
 
 Pair = Annotated[list[float], Field(min_length=2, max_length=2)]
 AgeRef = Literal["b2k", "BP"]
@@ -93,6 +93,154 @@ class AgeConversion(Model):
 
     def to_dict(self):
         return self.model_dump(mode="json", by_alias=True)
+
+
+# --------------------------------------------------------------------------------------------
+# provenance and estimates
+
+
+class InputRef(Model):
+    """One input of a result: its role, where it came from, and its checksum."""
+
+    role: str
+    source: str
+    sha256: str
+    timescale: str = ""
+
+
+class Provenance(Model):
+    """What a result was made from: inputs, parameters, seed and version."""
+
+    inputs: list[InputRef]
+    parameters: dict[str, Any]
+    seed: int | None = None
+    version: str
+    created: str
+
+
+class Estimate(Model):
+    """A quantity with its uncertainty: median, central 68 % and 95 % intervals, sd."""
+
+    median: float
+    ci68: Pair
+    ci95: Pair
+    sd: float
+
+
+# --------------------------------------------------------------------------------------------
+# markers
+
+
+class EventCandidate(Model):
+    """One run of anomalous samples: its age span ``[young, old]`` and strength."""
+
+    age_span: Pair
+    depth_span: Pair | None = None
+    peak_z: float
+    n_samples: int
+
+
+class MarkerSample(Model):
+    """The sample that holds a marker."""
+
+    index: int
+    age_interval: Pair
+    depth: float | None = None
+    value: float
+    z: float | None = None
+
+
+class Trace(Model):
+    """The window's data and the fitted curves, enough to redraw a marker's figure."""
+
+    age_top: list[float]
+    age_bottom: list[float]
+    value: list[float | None]
+    curve_age: list[float] = []
+    curve: list[float | None] = []
+    band_low: list[float | None] = []
+    band_high: list[float | None] = []
+    threshold: list[float | None] = []
+
+
+class MarkerBase(Model):
+    """What every marker says: where it was looked for, how, and at what resolution."""
+
+    record: str
+    variable: str
+    window: Pair
+    age_reference: AgeRef
+    method: str
+    sample_interval: float | None = Field(None, description="age interval (yr) of the sample "
+                                                            "holding the marker")
+    depth: float | None = None
+    trace: Trace
+    provenance: Provenance
+
+    _draws: Any = PrivateAttr(default=None)
+
+
+class EventResult(MarkerBase):
+    """An event: the oldest sample of the first anomalous run in forward time (or its peak)."""
+
+    kind: Literal["event"] = "event"
+    found: bool
+    message: str
+    event: Estimate | None = None
+    sample: MarkerSample | None = None
+    candidates: list[EventCandidate]
+    threshold: float
+    baseline_years: float
+    scale: float
+    pick: Literal["first", "peak"]
+    direction: Literal["up", "down"]
+
+    @property
+    def age(self):
+        """The event's age estimate (uniform over its sample), or None when none was found."""
+        return self.event
+
+
+class Levels(Model):
+    """The levels before and after a transition (units of the variable)."""
+
+    before: Estimate
+    after: Estimate
+
+
+class NoiseModel(Model):
+    """The fitted noise: sd (units of the variable), AR(1) coefficient at the mean spacing,
+    persistence time (yr)."""
+
+    sd: float
+    ar1: float
+    tau: float
+    model: str = "AR(1) on the irregular time axis"
+
+
+class OnsetResult(MarkerBase):
+    """A transition onset (the older end of the ramp) with midpoint, end and levels."""
+
+    kind: Literal["onset"] = "onset"
+    onset: Estimate
+    midpoint: Estimate
+    end: Estimate
+    duration: Estimate
+    levels: Levels
+    amplitude: Estimate
+    noise: NoiseModel
+    direction: Literal["up", "down"]
+    clear_transition: bool
+    reason: str | None = None
+    draws_used: int
+
+    @property
+    def age(self):
+        """The onset's age estimate."""
+        return self.onset
+
+
+Marker = Annotated[Union[EventResult, OnsetResult], Field(discriminator="kind")]
 
 
 def json_schemas(models):

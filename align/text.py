@@ -39,3 +39,33 @@ def record_info(info):
                      + (f"  {var.long_name}" if var.long_name and var.long_name != var.name
                         else ""))
     return "\n".join(lines)
+
+
+def _estimate(est, unit="yr"):
+    return f"{est.median:.1f} {unit} (95 %: {est.ci95[0]:.1f} to {est.ci95[1]:.1f})"
+
+
+def marker(result):
+    """An event or onset result as a few lines of text."""
+    ref = result.age_reference
+    lines = [f"{result.kind} in {result.record} {result.variable}, window "
+             f"{result.window[0]:g} to {result.window[1]:g} {ref}"]
+    if result.kind == "event":
+        lines.append(result.message)
+        if result.found:
+            lines.append(f"event       {_estimate(result.event, ref)}; sample "
+                         f"{result.sample.age_interval[0]:.1f} to {result.sample.age_interval[1]:.1f}"
+                         f" (z = {result.sample.z:.1f})")
+        for c in result.candidates:
+            lines.append(f"  candidate {c.age_span[0]:.1f} to {c.age_span[1]:.1f} {ref}: peak z "
+                         f"{c.peak_z:.1f}, {c.n_samples} sample(s)")
+    else:
+        lines += [f"onset       {_estimate(result.onset, ref)}",
+                  f"midpoint    {_estimate(result.midpoint, ref)}",
+                  f"end         {_estimate(result.end, ref)}",
+                  f"duration    {_estimate(result.duration)}",
+                  f"amplitude   {result.amplitude.median:.3g} ({result.direction}); noise sd "
+                  f"{result.noise.sd:.3g}, AR(1) {result.noise.ar1:.2f}",
+                  "clear transition" if result.clear_transition else result.reason]
+    lines.append(f"method      {result.method}")
+    return "\n".join(lines)
