@@ -20,9 +20,12 @@ from align.describe import describe_record
 from align.detect import detect_event, detect_onset
 from align.errors import InputError
 from align.io import atomic_write, open_record, save_grid, save_record
+from align.lag import estimate_lag
 from align.resample import align_records, resample
 from align.suggest import suggest_ties
+from align.survey import survey
 from align.ties import read_ties, transfer
+from align.xcorr import cross_correlate
 from align.schema import AgeConversion
 
 
@@ -169,6 +172,40 @@ def build_parser():
     onset.add_argument("--seed", type=int)
     _marker_options(onset)
     onset.set_defaults(run=_detect_onset)
+
+    lag = commands.add_parser("lag", help="the lag between two markers, with its budget")
+    for side in ("a", "b"):
+        lag.add_argument(f"--{side}", metavar="KIND:RECORD:VARIABLE",
+                         help=f"marker {side}: event or onset, record, variable")
+        lag.add_argument(f"--{side}-window", metavar="YOUNG,OLD", help=f"window of marker {side}")
+    lag.add_argument("--request", metavar="FILE", help="a lag request (JSON) instead of flags")
+    lag.add_argument("--ties", help="tie table between b (depth) and a (ref_depth/ref_age)")
+    lag.add_argument("--draws", type=int, help="Monte Carlo draws (default 20000)")
+    lag.add_argument("--seed", type=int)
+    lag.add_argument("--age-reference", choices=("b2k", "BP"), help="default b2k")
+    _json_option(lag)
+    lag.set_defaults(run=_lag)
+
+    xcorr = commands.add_parser("xcorr", help="cross-correlate two records over a lag range")
+    xcorr.add_argument("a", metavar="A:VARIABLE")
+    xcorr.add_argument("b", metavar="B:VARIABLE")
+    xcorr.add_argument("--max-lag", type=float, required=True, metavar="YEARS")
+    xcorr.add_argument("--window", metavar="YOUNG,OLD")
+    xcorr.add_argument("--step", type=float, metavar="YEARS", help="grid step")
+    xcorr.add_argument("--method", default="pearson", choices=("pearson", "kernel"))
+    xcorr.add_argument("--surrogates", type=int, default=1000)
+    xcorr.add_argument("--surrogate-kind", default="phase", choices=("phase", "ar1"))
+    xcorr.add_argument("--seed", type=int)
+    xcorr.add_argument("--to", metavar="REF", choices=("b2k", "BP"))
+    _json_option(xcorr)
+    xcorr.set_defaults(run=_xcorr)
+
+    survey_ = commands.add_parser("survey", help="lags of many marker pairs, combined")
+    survey_.add_argument("spec", metavar="SPEC.json")
+    survey_.add_argument("--scheduler", metavar="ADDRESS",
+                         help="a dask.distributed scheduler (default: local threads)")
+    _json_option(survey_)
+    survey_.set_defaults(run=_survey)
 
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
     demo.set_defaults(run=_demo)
@@ -349,6 +386,51 @@ def _detect_onset(args):
                               method=args.method, draws=args.draws, seed=args.seed,
                               age_reference=args.to)
     _print_json(result.to_dict()) if args.json else print(text.marker(result))
+
+
+def marker_flag(text_, window, side):
+    """``KIND:RECORD:VARIABLE`` and ``YOUNG,OLD`` as a marker spec dict."""
+    kind, sep, rest = (text_ or "").partition(":")
+    path, sep2, variable = rest.rpartition(":")
+    if not (sep and sep2 and path and variable) or kind not in ("event", "onset"):
+        raise InputError(f"--{side} takes KIND:RECORD:VARIABLE with KIND event or onset, got "
+                         f"{text_!r}", field=side)
+    if window is None:
+        raise InputError(f"--{side}-window YOUNG,OLD is needed", field=f"{side}-window")
+    return {"kind": kind, "record": path, "variable": variable, "window": parse_window(window)}
+
+
+def _lag(args):
+    options = dict(ties=args.ties, draws=args.draws, seed=args.seed,
+                   age_reference=args.age_reference)
+    if args.request:
+        if args.a or args.b:
+            raise InputError("give --request or --a/--b, not both", field="request")
+        request = args.request
+        with progress_note("estimating the lag"):
+            result = estimate_lag(request, **options)
+    else:
+        a = marker_flag(args.a, args.a_window, "a")
+        b = marker_flag(args.b, args.b_window, "b")
+        with progress_note("estimating the lag"):
+            result = estimate_lag(a, b, **options)
+    _print_json(result.to_dict()) if args.json else print(text.lag(result))
+
+
+def _xcorr(args):
+    (path_a, var_a), (path_b, var_b) = map(record_and_variable, (args.a, args.b))
+    with progress_note("cross-correlating"):
+        result = cross_correlate((open_record(path_a), var_a), (open_record(path_b), var_b),
+                                 args.max_lag, step=args.step, method=args.method,
+                                 surrogates=args.surrogates, surrogate_kind=args.surrogate_kind,
+                                 window=parse_window(args.window), seed=args.seed,
+                                 age_reference=args.to)
+    _print_json(result.to_dict()) if args.json else print(text.xcorr(result))
+
+
+def _survey(args):
+    result = survey(args.spec, scheduler=args.scheduler, progress=sys.stderr.isatty())
+    _print_json(result.to_dict()) if args.json else print(text.survey(result))
 
 
 def _demo(args):

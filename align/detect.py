@@ -272,6 +272,7 @@ def detect_onset(record, variable, window, *, direction="auto", method="ramp", d
             "variable": variable, "window": window, "direction": direction, "method": method,
             "draws": draws}, seed=seed))
     result._draws = onset_age
+    result._fit_draws = -samples[:, 0]
     return result
 
 

@@ -12,6 +12,7 @@ import io as _io
 import os
 import re
 import tempfile
+import threading
 import warnings
 from pathlib import Path
 
@@ -28,6 +29,9 @@ NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF")
 _DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
 _AGE_SCALE = {"yr": 1.0, "a": 1.0, "years": 1.0, "ka": 1000.0}
+#: The HDF5 library under netCDF4 is not thread-safe: every read and write takes this lock
+#: (surveys run pairs on threads).
+NETCDF_LOCK = threading.RLock()
 _UNIT_IN_HEADER = re.compile(r"^\s*(?P<name>[^(\[]+?)\s*[(\[](?P<unit>[^)\]]+)[)\]]\s*$")
 
 #: Column names found without being told (lower case).
@@ -117,7 +121,7 @@ def _is_netcdf(path):
 
 def _read_netcdf(path, mapping, meta):
     try:
-        with xr.open_dataset(path, engine="netcdf4", decode_times=False) as opened:
+        with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as opened:
             ds = opened.load()
     except (OSError, ValueError, RuntimeError) as exc:
         raise NotATableError(f"not a readable NetCDF file ({exc.__class__.__name__}: {exc})",
@@ -197,8 +201,11 @@ def write_cf(ds, path, *, history):
         if var.dtype.kind == "f":
             encoding[name]["dtype"] = "float64"
         var.encoding = {}
-    return atomic_write(path, lambda tmp: ds.to_netcdf(tmp, engine="netcdf4",
-                                                       encoding=encoding))
+    def write(tmp):
+        with NETCDF_LOCK:
+            ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding)
+
+    return atomic_write(path, write)
 
 
 def atomic_write(path, write):

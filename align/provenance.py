@@ -36,6 +36,16 @@ def sha256_bytes(data):
     return hashlib.sha256(data).hexdigest()
 
 
+def dataset_checksum(ds):
+    """SHA-256 of an in-memory dataset's variables (names, dims and values), as hex."""
+    digest = hashlib.sha256()
+    for name in sorted(ds.variables):
+        var = ds.variables[name]
+        digest.update(f"{name}{var.dims}{var.dtype}".encode())
+        digest.update(np.ascontiguousarray(var.values).tobytes())
+    return digest.hexdigest()
+
+
 def resolve_seed(seed):
     """Return ``seed`` as an int, drawing a fresh one from OS entropy when it is None."""
     if seed is None:

@@ -178,6 +178,7 @@ class MarkerBase(Model):
     provenance: Provenance
 
     _draws: Any = PrivateAttr(default=None)
+    _fit_draws: Any = PrivateAttr(default=None)
 
 
 class EventResult(MarkerBase):
@@ -243,6 +244,165 @@ class OnsetResult(MarkerBase):
 Marker = Annotated[Union[EventResult, OnsetResult], Field(discriminator="kind")]
 
 
+# --------------------------------------------------------------------------------------------
+# cross-correlation
+
+
+class PeakLag(Model):
+    """The lag (yr) at the correlation peak, refined below the grid step, with its 95 %
+    interval and where that interval comes from."""
+
+    median: float
+    ci95: Pair
+    source: str
+
+
+class Curve(Model):
+    """Correlation against lag (yr)."""
+
+    lags: list[float]
+    r: list[float | None]
+
+
+class SurrogateInfo(Model):
+    """The surrogates behind the p-value."""
+
+    kind: Literal["phase", "ar1"]
+    count: int
+
+
+class XcorrResult(Model):
+    """Cross-correlation of two records: positive lags mean the pattern is older in a."""
+
+    a: str
+    b: str
+    window: Pair
+    method: Literal["pearson", "kernel"]
+    peak_lag: PeakLag
+    peak_correlation: float
+    p_value: float | None
+    n_eff: float
+    surrogates: SurrogateInfo
+    curve: Curve
+    grid_step: float
+    age_reference: AgeRef
+    provenance: Provenance
+
+
+# --------------------------------------------------------------------------------------------
+# lag requests and results
+
+
+class MarkerSpec(Model):
+    """Which marker to find, where (PRODUCT.md section 3). ``record`` is a path (CLI,
+    library; relative paths resolve beside the request file, then in the working folder) or
+    a stored record's id (HTTP API)."""
+
+    kind: Literal["event", "onset"]
+    record: str
+    variable: str
+    window: Pair
+    mapping: dict[str, Any] | None = Field(None, description="how to read a CSV record "
+                                                             "(open_record keywords)")
+    threshold: float | None = Field(None, gt=0, description="events: robust z threshold")
+    baseline_years: float | None = Field(None, gt=0, description="events: baseline span (yr)")
+    pick: Literal["first", "peak"] | None = None
+    direction: Literal["auto", "up", "down"] | None = None
+    method: Literal["ramp", "bayes"] | None = None
+    draws: int | None = Field(None, ge=100, le=100_000, description="onsets: bootstrap or "
+                                                                     "posterior draws")
+
+
+class LagRequest(Model):
+    """A lag request: the same for ``corealign lag --request``, ``POST /lag`` and
+    ``estimate_lag``."""
+
+    a: MarkerSpec
+    b: MarkerSpec
+    ties: str | None = Field(None, description="tie table between b (depth) and a "
+                                               "(ref_depth/ref_age); b is moved onto a")
+    age_reference: AgeRef = "b2k"
+    draws: int = Field(20_000, ge=1000, le=1_000_000)
+    seed: int | None = Field(None, ge=0)
+    timescale_model: Literal["correlated", "random-walk"] = "correlated"
+    bridge_rate: float | None = Field(None, ge=0)
+
+
+class LagSummary(Model):
+    """The lag ``age(a) - age(b)`` (yr): positive when a happened first."""
+
+    median: float
+    ci68: Pair
+    ci95: Pair
+    sd: float
+    p_a_before_b: float
+
+
+class BudgetItem(Model):
+    """One source of lag uncertainty: its sd (yr) and share of the summed variance."""
+
+    component: str
+    kind: Literal["resolution", "detection", "timescale", "tie", "bridge"]
+    sd: float
+    share: float
+
+
+class WhatIf(Model):
+    """The 95 % lag interval (yr) if one improvement were made."""
+
+    change: str
+    ci95: Pair
+    width: float
+
+
+class Histogram(Model):
+    """Counts of draws in bins (edges in yr)."""
+
+    edges: list[float]
+    counts: list[int]
+
+
+class RecordExcerpt(Model):
+    """A record around its marker on the common timescale, for the overview figure."""
+
+    label: str
+    variable: str
+    units: str | None = None
+    age_top: list[float]
+    age_bottom: list[float]
+    value: list[float | None]
+    timescale_sd: list[float]
+
+
+class LagFigures(Model):
+    """What the report's figures draw, beyond the markers' own traces."""
+
+    lag_histogram: Histogram
+    records: list[RecordExcerpt]
+
+
+class LagResult(Model):
+    """The lag between two markers with its uncertainty budget (PRODUCT.md section 3)."""
+
+    request: LagRequest
+    lag: LagSummary
+    a: Marker
+    b: Marker
+    relation: str
+    budget: list[BudgetItem]
+    budget_total_sd: float
+    resolution_floor: float
+    what_if: list[WhatIf]
+    verdict: str
+    resolvable_lag: float
+    assumptions: list[str]
+    age_reference: AgeRef
+    figures: LagFigures
+    provenance: Provenance
+
+    _draws: Any = PrivateAttr(default=None)
+
+
 def json_schemas(models):
     """JSON Schemas of ``models`` with references into ``#/components/schemas`` (OpenAPI)."""
     from pydantic.json_schema import models_json_schema
@@ -250,3 +410,92 @@ def json_schemas(models):
     _, top = models_json_schema([(m, "serialization") for m in models],
                                 ref_template="#/components/schemas/{model}")
     return top.get("$defs", {})
+
+
+# --------------------------------------------------------------------------------------------
+# surveys
+
+
+class EventTable(Model):
+    """A table of events (CSV/TSV) from which marker windows are made, one pair per row."""
+
+    path: str
+    label_column: str
+    age_column: str
+    age_reference: AgeRef
+    window: Pair = Field(description="window around each tabulated age, [before, after] in "
+                                     "years relative to it: [-250, 250] is age - 250 to "
+                                     "age + 250")
+    rows: list[str] | None = Field(None, description="labels to use (default: all)")
+
+
+class MarkerTemplate(Model):
+    """A marker without its window (the table supplies it)."""
+
+    kind: Literal["event", "onset"]
+    record: str
+    variable: str
+    mapping: dict[str, Any] | None = None
+    threshold: float | None = Field(None, gt=0)
+    baseline_years: float | None = Field(None, gt=0)
+    pick: Literal["first", "peak"] | None = None
+    direction: Literal["auto", "up", "down"] | None = None
+    method: Literal["ramp", "bayes"] | None = None
+    draws: int | None = Field(None, ge=100, le=100_000)
+
+
+class PairSpec(Model):
+    """One pair of a survey given explicitly."""
+
+    label: str
+    a: MarkerSpec
+    b: MarkerSpec
+
+
+class SurveySpec(Model):
+    """Many marker pairs: explicit ``pairs``, or a ``table`` with ``a`` and ``b`` templates."""
+
+    pairs: list[PairSpec] | None = None
+    table: EventTable | None = None
+    a: MarkerTemplate | None = None
+    b: MarkerTemplate | None = None
+    ties: str | None = None
+    age_reference: AgeRef = "b2k"
+    draws: int = Field(20_000, ge=1000, le=1_000_000)
+    seed: int | None = Field(None, ge=0)
+    timescale_model: Literal["correlated", "random-walk"] = "correlated"
+
+
+class SurveyPair(Model):
+    """One pair's lag, or why it has none."""
+
+    label: str
+    lag: LagSummary | None = None
+    a_age: Estimate | None = None
+    b_age: Estimate | None = None
+    verdict: str | None = None
+    clear: bool = False
+    error: str | None = None
+
+
+class Heterogeneity(Model):
+    """Cochran's Q of the pairs' lags about their weighted mean, and the between-pair
+    variance (yr^2) of DerSimonian & Laird (1986)."""
+
+    q: float
+    dof: int
+    p_value: float
+    tau2: float
+
+
+class SurveyResult(Model):
+    """Per-pair lags and their combination."""
+
+    pairs: list[SurveyPair]
+    combined: LagSummary | None = None
+    heterogeneity: Heterogeneity | None = None
+    systematic: str
+    n_used: int
+    age_reference: AgeRef
+    assumptions: list[str]
+    provenance: Provenance

@@ -69,3 +69,59 @@ def marker(result):
                   "clear transition" if result.clear_transition else result.reason]
     lines.append(f"method      {result.method}")
     return "\n".join(lines)
+
+
+def lag(result):
+    """A lag result: the verdict, the budget and the what-ifs, then the assumptions."""
+    ref = result.age_reference
+    lines = [result.verdict + ".",
+             f"lag a - b   {result.lag.median:.1f} yr (68 %: {result.lag.ci68[0]:.1f} to "
+             f"{result.lag.ci68[1]:.1f}; 95 %: {result.lag.ci95[0]:.1f} to "
+             f"{result.lag.ci95[1]:.1f}); P(a before b) = {result.lag.p_a_before_b:.3f}",
+             f"a           {_estimate(result.a.age, ref)}",
+             f"b           {_estimate(result.b.age, ref)}",
+             f"timescales  {result.relation}",
+             "budget (share of the variance, sd):"]
+    for item in sorted(result.budget, key=lambda b: -b.share):
+        lines.append(f"  {item.share:6.1%}  {item.sd:7.2f} yr  {item.component}")
+    lines.append(f"resolution floor {result.resolution_floor:.2f} yr (sampling alone)")
+    lines.append("what would narrow the 95 % interval "
+                 f"(now {result.lag.ci95[1] - result.lag.ci95[0]:.0f} yr wide):")
+    for row in result.what_if:
+        lines.append(f"  {row.change}: {row.ci95[0]:.0f} to {row.ci95[1]:.0f} "
+                     f"({row.width:.0f} yr)")
+    lines.append("assumptions:")
+    lines += [f"  - {a}" for a in result.assumptions]
+    return "\n".join(lines)
+
+
+def xcorr(result):
+    """A cross-correlation result in a few lines."""
+    p = "not tested" if result.p_value is None else f"p = {result.p_value:.3g}"
+    return "\n".join([
+        f"cross-correlation of {result.a} with {result.b} ({result.method}), window "
+        f"{result.window[0]:g} to {result.window[1]:g} {result.age_reference}",
+        f"peak lag    {result.peak_lag.median:.1f} yr (95 %: {result.peak_lag.ci95[0]:.1f} to "
+        f"{result.peak_lag.ci95[1]:.1f}; {result.peak_lag.source}); positive: the pattern is "
+        "older in a",
+        f"peak r      {result.peak_correlation:.3f}, {p} against {result.surrogates.count} "
+        f"{result.surrogates.kind} surrogates; n_eff {result.n_eff:.1f}",
+        f"grid step   {result.grid_step:g} yr"])
+
+
+def survey(result):
+    """A survey: one line per pair, then the combination."""
+    lines = []
+    for pair in result.pairs:
+        if pair.lag is None:
+            lines.append(f"{pair.label:<12} no lag: {pair.error}")
+        else:
+            flag = "" if pair.clear else "  (unclear marker: not combined)"
+            lines.append(f"{pair.label:<12} {pair.lag.median:8.1f} yr (95 %: "
+                         f"{pair.lag.ci95[0]:.1f} to {pair.lag.ci95[1]:.1f}){flag}")
+    lines.append(f"{result.systematic} ({result.n_used} pairs combined)")
+    if result.heterogeneity:
+        h = result.heterogeneity
+        lines.append(f"heterogeneity: Q = {h.q:.1f} on {h.dof} dof (p = {h.p_value:.3g}), "
+                     f"between-pair sd {h.tau2 ** 0.5:.1f} yr")
+    return "\n".join(lines)

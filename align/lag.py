@@ -1,0 +1,445 @@
+"""The lag between two markers, with an uncertainty budget that says what limits it.
+
+``lag = age(a) - age(b)``: positive when ``a`` happened first. One joint Monte Carlo adds, with
+their correlations, every source of uncertainty: where an event sits inside its sample, where
+an onset sits under autocorrelated noise (and inside its sample), and how the two timescales
+relate -- within one core or timescale only the error between the two positions counts; records
+joined by tie points share the reference timescale and add the tie and between-tie (bridge)
+errors; independent timescales add both absolute errors; age ensembles are drawn member by
+member. Each source is kept as its own column of draws, so the budget, the resolution floor
+and the what-if intervals come from the same draws.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from align.detect import detect_marker
+from align.errors import InputError
+from align.io import open_record
+from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
+from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
+from align.schema import (BudgetItem, Histogram, LagFigures, LagRequest, LagResult, LagSummary,
+                          MarkerSpec, RecordExcerpt, WhatIf)
+from align.ties import bridge_variance, read_ties, transfer
+from align.timescale import ensemble_at, error_covariance, mce_covariance
+
+CAUTION = ("A lag within its uncertainty does not establish cause or its absence; even a "
+           "resolved lag shows order, not cause.")
+
+
+# --------------------------------------------------------------------------------------------
+# requests and sources
+
+
+class Sources:
+    """Finds the records and tie tables a request names.
+
+    Paths resolve beside the request file first, then in the working folder. The HTTP
+    service uses a subclass that looks ids up in its store.
+    """
+
+    def __init__(self, base=None, loaded=None):
+        self.base = Path(base) if base else None
+        self.loaded = dict(loaded or {})
+
+    def path(self, name):
+        path = Path(name)
+        if not path.is_absolute() and self.base is not None and (self.base / path).exists():
+            return self.base / path
+        return path
+
+    def record(self, spec):
+        if spec.record in self.loaded:
+            return self.loaded[spec.record]
+        return open_record(self.path(spec.record), **(spec.mapping or {}))
+
+    def ties(self, name):
+        return read_ties(self.path(name))
+
+
+def lag_request(a, b=None, **options):
+    """A :class:`LagRequest` and its :class:`Sources` from any of the accepted forms.
+
+    ``a`` may be a whole request (a :class:`LagRequest`, a dict with ``a`` and ``b``, or the
+    path of a JSON file), or the first marker (a :class:`MarkerSpec` or dict) with ``b`` the
+    second. In marker dicts, ``record`` may be an in-memory record (an xarray.Dataset).
+    """
+    base, loaded = None, {}
+    if isinstance(a, (str, Path)) and b is None:
+        path = Path(a)
+        try:
+            a = json.loads(path.read_text())
+        except FileNotFoundError:
+            raise InputError("no such request file", source=str(path), status=404) from None
+        except json.JSONDecodeError as exc:
+            raise InputError(f"not valid JSON ({exc.msg}, line {exc.lineno})", source=str(path),
+                             status=400) from None
+        base = path.parent
+    if isinstance(a, LagRequest):
+        body = a.model_dump()
+    elif isinstance(a, dict) and "a" in a and b is None:
+        body = dict(a)
+    else:
+        body = {"a": a, "b": b}
+    body.update({k: v for k, v in options.items() if v is not None})
+    for key in ("a", "b"):
+        spec = body.get(key)
+        if isinstance(spec, MarkerSpec):
+            body[key] = spec.model_dump()
+        elif isinstance(spec, dict) and not isinstance(spec.get("record", ""), str):
+            record = spec["record"].copy()  # labelled below; the caller's object stays as is
+            record.attrs.setdefault("source_checksum", dataset_checksum(record))
+            name = f"<in-memory {record_name(record)} {record.attrs['source_checksum'][:12]}>"
+            record.attrs.setdefault("source", name)
+            loaded[name] = record
+            body[key] = {**spec, "record": name}
+    from pydantic import ValidationError
+
+    try:
+        request = LagRequest.model_validate(body)
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        raise InputError(first["msg"], field=".".join(map(str, first["loc"])), status=422,
+                         source=str(base / "request") if base else None) from None
+    return request, Sources(base, loaded)
+
+
+# --------------------------------------------------------------------------------------------
+# the Monte Carlo
+
+
+@dataclass
+class Part:
+    """One source of lag uncertainty: its draws (yr, with the sign they add to the lag)."""
+
+    component: str
+    kind: str
+    owner: str | None
+    draws: np.ndarray
+
+
+def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=None,
+                 timescale_model=None, bridge_rate=None, sources=None):
+    """Estimate the lag between two markers with a full uncertainty budget.
+
+    Parameters
+    ----------
+    a, b : MarkerSpec or dict, or a whole request in ``a``
+        See :func:`lag_request` (a request dict, a :class:`LagRequest`, or the path of a
+        request JSON as in PRODUCT.md section 3).
+    ties : str, optional
+        Tie table between ``b`` (``depth``) and ``a`` (``ref_depth``/``ref_age``); ``b``'s
+        record is moved onto ``a``'s timescale through it.
+    draws : int, optional
+        Monte Carlo draws (default 20,000).
+    seed : int, optional
+        Drawn and recorded when None.
+    age_reference : {"b2k", "BP"}, optional
+        Reference of the windows and results (default b2k).
+    timescale_model : {"correlated", "random-walk"}, optional
+        Layer-counting error model (see :mod:`align.timescale`).
+    bridge_rate : float, optional
+        Between-tie variance rate (yr^2 per yr); default from the ties.
+    sources : Sources, optional
+        Where records and ties come from (the HTTP service passes its store).
+
+    Returns
+    -------
+    LagResult
+        ``lag`` (yr; positive: a first), both markers, the ``budget`` (sd in yr, shares of
+        the summed variance), ``resolution_floor`` (yr), ``what_if`` intervals, ``verdict``,
+        ``assumptions`` and provenance.
+    """
+    request, found = lag_request(a, b, ties=ties, draws=draws, seed=seed,
+                                 age_reference=age_reference, timescale_model=timescale_model,
+                                 bridge_rate=bridge_rate)
+    sources = sources or found
+    seed = resolve_seed(request.seed)
+    request = request.model_copy(update={"seed": seed})
+    seed_a, seed_b, seed_mc = (int(s.generate_state(1)[0])
+                               for s in np.random.SeedSequence(seed).spawn(3))
+    ref = request.age_reference
+    rec_a = with_age_reference(sources.record(request.a), ref)
+    rec_b = sources.record(request.b)
+    tie_table = sources.ties(request.ties) if request.ties else None
+    if tie_table is not None:
+        rec_b = transfer(rec_b, tie_table, rec_a, bridge_rate=request.bridge_rate)
+    rec_b = with_age_reference(rec_b, ref)
+    relation = _relation(rec_a, rec_b)
+    marker_a = _located(detect_marker(rec_a, request.a.model_dump(), seed=seed_a), "a")
+    marker_b = _located(detect_marker(rec_b, request.b.model_dump(), seed=seed_b), "b")
+    rng = np.random.default_rng(seed_mc)
+    n = request.draws
+    center = _center(marker_a) - _center(marker_b)
+    parts = (_marker_parts(marker_a, "a", +1.0, n, rng) + _marker_parts(marker_b, "b", -1.0, n, rng)
+             + _timescale_parts(relation, rec_a, rec_b, marker_a, marker_b,
+                                request.timescale_model, n, rng))
+    lag = center + sum(p.draws for p in parts)
+    result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
+                     tie_table, seed)
+    result._draws = lag
+    return result
+
+
+def _located(marker, label):
+    if marker.kind == "event" and not marker.found:
+        raise InputError(f"marker {label}: {marker.message} (see the candidates; lower the "
+                         "threshold or move the window)", field=f"{label}.window")
+    return marker
+
+
+def _center(marker):
+    if marker.kind == "event":
+        return float(np.mean(marker.sample.age_interval))
+    return float(np.median(marker._fit_draws))
+
+
+def _marker_parts(marker, label, sign, n, rng):
+    """The marker's own uncertainty: within-sample position, and (onsets) the fit."""
+    name = f"{label}: {marker.kind} in {marker.record} {marker.variable}"
+    if marker.kind == "event":
+        lo, hi = marker.sample.age_interval
+        return [Part(f"{name}: position within its sample ({hi - lo:.3g} yr)", "resolution",
+                     label, sign * rng.uniform(-(hi - lo) / 2, (hi - lo) / 2, n))]
+    pick = rng.integers(0, marker._draws.size, n)
+    fit = marker._fit_draws[pick]
+    jitter = marker._draws[pick] - fit
+    return [Part(f"{name}: onset fit under AR(1) noise", "detection", label,
+                 sign * (fit - np.median(marker._fit_draws))),
+            Part(f"{name}: sample interval at the onset ({marker.sample_interval:.3g} yr)",
+                 "resolution", label, sign * jitter)]
+
+
+# --------------------------------------------------------------------------------------------
+# how the two timescales relate
+
+
+def _relation(rec_a, rec_b):
+    """``same record``, ``same timescale``, ``tied``, ``shared timescale`` or ``independent``."""
+    attrs_a, attrs_b = rec_a.attrs, rec_b.attrs
+    if (attrs_b.get("timescale_kind") == "transferred"
+            and attrs_b.get("reference_checksum") == attrs_a.get("source_checksum")):
+        return "tied"
+    if attrs_a.get("source_checksum") and attrs_a.get("source_checksum") == attrs_b.get(
+            "source_checksum"):
+        return "same record"
+    same_scale = attrs_a.get("timescale") and attrs_a.get("timescale") == attrs_b.get(
+        "timescale")
+    if same_scale and attrs_a.get("core") and attrs_a.get("core") == attrs_b.get("core"):
+        return "same timescale"
+    return "shared timescale" if same_scale else "independent"
+
+
+def _timescale_parts(relation, rec_a, rec_b, marker_a, marker_b, model, n, rng):
+    age_a, age_b = _center(marker_a), _center(marker_b)
+    if relation in ("same record", "same timescale"):
+        return _within_one(rec_a, age_a, age_b, model, n, rng,
+                           "timescale: error between the two markers")
+    if relation == "tied":
+        return (_within_one(rec_a, age_a, age_b, model, n, rng,
+                            f"timescale of {record_name(rec_a)}: error between the markers")
+                + _tie_parts(rec_b, age_b, n, rng))
+    if relation == "shared timescale":
+        sig = [_sigma_at(rec_a, age_a), _sigma_at(rec_b, age_b)]
+        cov = mce_covariance(2.0 * np.array(sig), model)
+        e = _bivariate(cov, n, rng)
+        return [Part(f"shared timescale ({rec_a.attrs.get('timescale')}): error between the "
+                     "markers", "timescale", None, e[:, 0] - e[:, 1])]
+    return [_absolute(rec_a, age_a, "a", +1.0, n, rng), _absolute(rec_b, age_b, "b", -1.0, n, rng)]
+
+
+def _sigma_at(record, age):
+    sigma = age_sigma(record)
+    return 0.0 if sigma is None else float(np.interp(age, record["age"].values, sigma))
+
+
+def _bivariate(cov, n, rng):
+    vals, vecs = np.linalg.eigh(cov)
+    return rng.standard_normal((n, 2)) @ (vecs * np.sqrt(np.clip(vals, 0, None))).T
+
+
+def _within_one(record, age_a, age_b, model, n, rng, name):
+    """Errors of one timescale at two positions: only their difference enters the lag."""
+    kind = uncertainty_kind(record)
+    if kind == "none":
+        return []
+    if "age_ensemble" in record:  # member-paired
+        members = ensemble_at(record, np.array([age_a, age_b]))
+        pick = rng.integers(0, members.shape[0], n)
+        diff = (members[pick, 0] - age_a) - (members[pick, 1] - age_b)
+        return [Part(f"{name} (age ensemble, member-paired)", "timescale", None, diff)]
+    e = _bivariate(error_covariance(record, [age_a, age_b], model), n, rng)
+    return [Part(name, "timescale", None, e[:, 0] - e[:, 1])]
+
+
+def _absolute(record, age, label, sign, n, rng):
+    name = f"{label}: timescale of {record_name(record)} (absolute)"
+    if "age_ensemble" in record:
+        members = ensemble_at(record, np.array([age]))[:, 0]
+        return Part(name + ", age ensemble", "timescale", label,
+                    sign * (members[rng.integers(0, members.size, n)] - age))
+    return Part(name, "timescale", label, sign * rng.normal(0.0, _sigma_at(record, age), n))
+
+
+def _tie_parts(moved, age_b, n, rng):
+    """Tie and bridge errors of the transferred record at b's position (subtracted)."""
+    attrs = moved.attrs
+    tie_depth, tie_age, tie_sd = (np.atleast_1d(np.asarray(attrs[k], dtype=float))
+                                  for k in ("tie_depth", "tie_age", "tie_sd"))
+    rate = float(attrs["bridge_rate"])
+    depth = float(np.interp(age_b, moved["age"].values, moved["depth"].values))
+    k = int(np.clip(np.searchsorted(tie_depth, depth, side="right") - 1, 0, tie_depth.size - 2))
+    w = float(np.clip((depth - tie_depth[k]) / (tie_depth[k + 1] - tie_depth[k]), 0.0, 1.0))
+    tie = (1 - w) * rng.normal(0, tie_sd[k], n) + w * rng.normal(0, tie_sd[k + 1], n)
+    x1, x2 = tie_age[k], tie_age[k + 1]
+    inside = bridge_variance(min(max(age_b, x1), x2), x1, x2, rate)
+    beyond = rate * (max(tie_age[0] - age_b, 0.0) + max(age_b - tie_age[-1], 0.0))
+    bridge = rng.normal(0.0, np.sqrt(inside + beyond), n)
+    labels = attrs.get("tie_labels", "").split("; ")
+    between = (f"between ties {labels[k]!r} and {labels[k + 1]!r}" if len(labels) == tie_age.size
+               else "between ties")
+    return [Part("tie points (match uncertainty)", "tie", "b", -tie),
+            Part(f"{between} (bridge, rate {rate:.3g} yr^2/yr)", "bridge", "b", -bridge)]
+
+
+# --------------------------------------------------------------------------------------------
+# the result
+
+
+def lag_summary(lag):
+    """Median, 68 % and 95 % intervals, sd and P(lag > 0) of lag draws (yr)."""
+    q = np.percentile(lag, [2.5, 16.0, 50.0, 84.0, 97.5])
+    return LagSummary(median=float(q[2]), ci68=[float(q[1]), float(q[3])],
+                      ci95=[float(q[0]), float(q[4])], sd=float(np.std(lag)),
+                      p_a_before_b=float(np.mean(lag > 0)))
+
+
+def _what_ifs(center, parts):
+    scenarios = [("halve the sample interval of a",
+                  lambda p: 0.5 if p.kind == "resolution" and p.owner == "a" else 1.0),
+                 ("halve the sample interval of b",
+                  lambda p: 0.5 if p.kind == "resolution" and p.owner == "b" else 1.0)]
+    kinds = {p.kind for p in parts}
+    if "tie" in kinds:
+        scenarios.append(("halve the tie-point uncertainty",
+                          lambda p: 0.5 if p.kind == "tie" else 1.0))
+    if "bridge" in kinds:
+        scenarios.append(("twice as many tie points (halves the bridge variance)",
+                          lambda p: np.sqrt(0.5) if p.kind == "bridge" else 1.0))
+    if "timescale" in kinds:
+        scenarios.append(("remove the timescale error",
+                          lambda p: 0.0 if p.kind == "timescale" else 1.0))
+    out = []
+    for change, scale in scenarios:
+        lag = center + sum(scale(p) * p.draws for p in parts)
+        lo, hi = np.percentile(lag, [2.5, 97.5])
+        out.append(WhatIf(change=change, ci95=[float(lo), float(hi)], width=float(hi - lo)))
+    return out
+
+
+def _describe(marker):
+    return f"the {marker.kind} in {marker.record} {marker.variable}"
+
+
+def verdict(summary, marker_a, marker_b):
+    """The lag in words, with its 95 % interval."""
+    lo, hi = summary.ci95
+    a, b = _describe(marker_a), _describe(marker_b)
+    interval = f"(95 %: {lo:.0f} to {hi:.0f})"
+    if lo > 0:
+        return f"{a} precedes {b} by {summary.median:.0f} years {interval}"
+    if hi < 0:
+        return f"{a} follows {b} by {-summary.median:.0f} years {interval}"
+    return (f"{a} and {b} are indistinguishable within uncertainty: a - b = "
+            f"{summary.median:.0f} years {interval}")
+
+
+def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
+    out = []
+    kinds = {uncertainty_kind(rec_a), uncertainty_kind(rec_b)}
+    if "mce" in kinds:
+        out.append("The maximum counting error of a layer-counted timescale is taken as 2 sigma "
+                   "(Andersen et al. 2006; common practice).")
+        out.append(f"Counting errors follow the {model} model: "
+                   + ("one systematic bias growing with depth, so two nearby depths share "
+                      "almost all of it." if model == "correlated" else
+                      "independent increments between depths."))
+    if relation == "tied":
+        out.append(f"{record_name(rec_b)} is on the timescale of {record_name(rec_a)} through "
+                   f"tie points; between ties a Brownian bridge with rate "
+                   f"{float(rec_b.attrs['bridge_rate']):.3g} yr^2/yr "
+                   f"({rec_b.attrs.get('bridge_rate_choice', '')}).")
+    if relation == "shared timescale":
+        out.append(f"Both records are on the {rec_a.attrs.get('timescale')} timescale; the "
+                   "synchronisation error between the two cores is not included (give tie "
+                   "points to include it).")
+    if relation == "independent":
+        out.append("The two timescales are independent: both absolute timescale errors count.")
+    if "sd" in kinds and relation in ("same record", "same timescale"):
+        out.append("A modelled timescale given only as an sd is treated as independent between "
+                   "depths (conservative); an age ensemble would carry its real correlation.")
+    for label, marker in (("a", marker_a), ("b", marker_b)):
+        if marker.kind == "event":
+            out.append(f"Marker {label}: the event's age is uniform over the age interval of "
+                       "its first anomalous sample.")
+        else:
+            out.append(f"Marker {label}: ramp fit with AR(1) noise (sd {marker.noise.sd:.3g}, "
+                       f"coefficient {marker.noise.ar1:.2f} at the mean spacing); the onset is "
+                       "placed no more finely than its sample interval.")
+            if not marker.clear_transition:
+                out.append(f"Caution, marker {label}: {marker.reason}.")
+    out.append("What-if rows scale only the named term (halving a sample interval halves the "
+               "resolution terms; the fit noise is kept).")
+    out.append(CAUTION)
+    return out
+
+
+def _excerpt(record, marker, label):
+    age = record["age"].values
+    inside = (age >= marker.window[0]) & (age <= marker.window[1])
+    sigma = age_sigma(record)
+    values = record[marker.variable].values[inside]
+    return RecordExcerpt(
+        label=f"{label}: {record_name(record)}", variable=marker.variable,
+        units=record[marker.variable].attrs.get("units"),
+        age_top=record["age_bounds"].values[inside, 0].tolist(),
+        age_bottom=record["age_bounds"].values[inside, 1].tolist(),
+        value=[None if not np.isfinite(v) else float(v) for v in values],
+        timescale_sd=(sigma[inside] if sigma is not None else np.zeros(inside.sum())).tolist())
+
+
+def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b, ties,
+            seed):
+    summary = lag_summary(lag)
+    variances = np.array([np.var(p.draws) for p in parts])
+    total = float(variances.sum()) or 1.0
+    budget = [BudgetItem(component=p.component, kind=p.kind, sd=float(np.sqrt(v)),
+                         share=float(v / total)) for p, v in zip(parts, variances)]
+    floor = float(np.sqrt(sum(v for p, v in zip(parts, variances) if p.kind == "resolution")))
+    resolvable = float(max(summary.median - summary.ci95[0], summary.ci95[1] - summary.median))
+    text = verdict(summary, marker_a, marker_b)
+    text += f"; the smallest lag resolvable at 95 % with this budget is {resolvable:.0f} years"
+    lo, hi = np.percentile(lag, [0.1, 99.9])
+    counts, edges = np.histogram(lag, bins=60, range=(lo, hi))
+    inputs = [record_input(rec_a, "a"), record_input(rec_b, "b")]
+    if ties is not None:
+        inputs.append({"role": "ties", "source": ties.source, "sha256": ties.checksum,
+                       "timescale": ""})
+    return LagResult(
+        request=request, lag=summary, a=marker_a, b=marker_b, relation=relation, budget=budget,
+        budget_total_sd=float(np.sqrt(total)), resolution_floor=floor,
+        what_if=_what_ifs(center, parts), verdict=text, resolvable_lag=resolvable,
+        assumptions=_assumptions(relation, rec_a, rec_b, marker_a, marker_b,
+                                 request.timescale_model),
+        age_reference=request.age_reference,
+        figures=LagFigures(lag_histogram=Histogram(edges=edges.tolist(),
+                                                   counts=counts.tolist()),
+                           records=[_excerpt(rec_a, marker_a, "a"),
+                                    _excerpt(rec_b, marker_b, "b")]),
+        provenance=provenance(inputs=inputs, parameters=request.model_dump(exclude={"seed"}),
+                              seed=seed))

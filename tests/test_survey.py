@@ -1,0 +1,59 @@
+"""Surveys: per-pair lags, their combination, and the same answer on a dask cluster."""
+
+import json
+
+import numpy as np
+import pytest
+
+from align.survey import survey
+from conftest import RECORDS, run_cli
+
+
+def greenland_spec(greenland, rows=None, draws=4000):
+    """Onsets of Ca against d18O at the transitions of the Greenland event table
+    (Rasmussen et al. 2014, doi:10.1016/j.quascirev.2014.09.007) in the NGRIP decadal data
+    (Erhardt et al. 2019, doi:10.5194/cp-15-811-2019)."""
+    csv = str(greenland / "NGRIP_10yr.csv")
+    mapping = {"age_column": "Age_BP", "age_reference": "BP"}
+    return {"table": {"path": str(greenland / "GIS_table.txt"), "label_column": "Event",
+                      "age_column": "Age", "age_reference": "b2k", "window": [-250, 250],
+                      "rows": rows},
+            "a": {"kind": "onset", "record": csv, "variable": "Ca", "mapping": mapping,
+                  "draws": 400},
+            "b": {"kind": "onset", "record": csv, "variable": "d18O", "mapping": mapping,
+                  "draws": 400},
+            "draws": draws, "seed": 7}
+
+
+def test_survey_of_greenland_transitions(greenland):
+    result = survey(greenland_spec(greenland, rows=["Holocene", "GI-1e", "GI-8c", "GI-12c",
+                                                     "GI-14e"]))
+    assert [p.label for p in result.pairs] == ["Holocene", "GI-1e", "GI-8c", "GI-12c", "GI-14e"]
+    used = [p for p in result.pairs if p.clear]
+    assert result.n_used == len(used) >= 3
+    combined = result.combined
+    # the combined interval carries each pair's uncertainty: it is never narrower than the
+    # inverse-variance bound from the pairs' sds
+    bound = 1.0 / np.sqrt(sum(1.0 / p.lag.sd**2 for p in used))
+    assert combined.sd >= 0.95 * bound
+    assert 0 <= result.heterogeneity.p_value <= 1 and result.heterogeneity.dof == len(used) - 1
+
+
+def test_survey_on_a_local_cluster_equals_serial(greenland):
+    distributed = pytest.importorskip("distributed")
+    spec = greenland_spec(greenland, rows=["Holocene", "GI-1e", "GI-4"], draws=2000)
+    serial = survey(spec)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        clustered = survey(spec, scheduler=cluster.scheduler_address)
+    strip = lambda r: {k: v for k, v in r.to_dict().items() if k != "provenance"}  # noqa: E731
+    assert strip(serial) == strip(clustered)
+
+
+def test_cli_survey_on_the_demo():
+    done = run_cli("survey", RECORDS / "demo_survey.json", "--json")
+    assert done.returncode == 0, done.stderr
+    result = json.loads(done.stdout)
+    assert [p["label"] for p in result["pairs"]] == ["X1 cooling", "X2 warming"]
+    lo, hi = result["combined"]["ci95"]
+    assert lo <= 0 <= hi  # in truth ice and lake change together (records/README.md)

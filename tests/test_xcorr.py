@@ -1,0 +1,114 @@
+"""Cross-correlation against scipy and statsmodels, and on the published Greenland data."""
+
+import json
+
+import numpy as np
+import pytest
+from scipy import signal
+from statsmodels.tsa.stattools import acf
+from statsmodels.tsa.stattools import ccf as sm_ccf
+
+from align import open_record
+from align.record import build_record
+from align.xcorr import ccf, cross_correlate, effective_sample_size
+from conftest import RECORDS, run_cli
+from synthetic import ar1
+
+
+def test_curve_equals_scipy_correlate_and_statsmodels_ccf():
+    rng = np.random.default_rng(0)
+    n, k = 600, 40
+    a = ar1(rng, n, 0.6)
+    b = np.roll(a, 7) + 0.5 * rng.normal(size=n)
+    r, pairs = ccf(a, b, k)
+    # written out with scipy.signal.correlate: sum_i (a_i - abar)(b_{i-k} - bbar) / (n - |k|)
+    da, db = a - a.mean(), b - b.mean()
+    full = signal.correlate(da, db, mode="full", method="direct")  # index n-1 is lag 0
+    lags = np.arange(-k, k + 1)
+    expected = full[n - 1 + lags] / (n - np.abs(lags)) / (a.std() * b.std())
+    np.testing.assert_allclose(r, expected, rtol=0, atol=1e-10)
+    # statsmodels: ccf(a, b)[k] correlates a[t + k] with b[t] -- our positive lags
+    np.testing.assert_allclose(r[k:], sm_ccf(a, b, adjusted=True, fft=False)[: k + 1],
+                               rtol=0, atol=1e-10)
+    # b[i] = a[i - 7]: each feature of a shows in b seven steps further along the (age) axis,
+    # i.e. older in b, which is a negative lag in the convention age(a) - age(b)
+    assert np.argmax(r) - k == -7
+    np.testing.assert_array_equal(pairs, n - np.abs(lags))
+
+
+def test_effective_sample_size_is_bretherton_with_statsmodels_acf():
+    rng = np.random.default_rng(1)
+    a, b = ar1(rng, 800, 0.7), ar1(rng, 800, 0.4)
+    ice = build_record(age=np.arange(800.0) * 10 + 1005, age_reference="b2k",
+                       proxies={"a": (a, {"units": "1"}), "b": (b, {"units": "1"})})
+    result = cross_correlate((ice, "a"), (ice, "b"), 100, step=10, surrogates=0, seed=1,
+                             bootstrap=50)
+    r1, r2 = acf(a, nlags=1, fft=False)[1], acf(b, nlags=1, fft=False)[1]
+    # Bretherton et al. (1999), Eq. 31
+    assert result.n_eff == pytest.approx(800 * (1 - r1 * r2) / (1 + r1 * r2), rel=1e-10)
+    assert effective_sample_size(100, 0.0, 0.9) == 100
+
+
+def test_sign_convention_positive_means_older_in_a():
+    rng = np.random.default_rng(2)
+    age = np.arange(0.0, 5000.0, 10.0) + 5.0
+    signal_ = ar1(rng, age.size + 20, 0.8)
+    # b(age) = a(age + 50): b shows each feature 50 years younger, so it is older in a
+    a = build_record(age=age + 10_000, age_reference="b2k",
+                     proxies={"v": (signal_[10:10 + age.size], {"units": "1"})},
+                     attrs={"core": "A"})
+    b = build_record(age=age + 10_000, age_reference="b2k",
+                     proxies={"v": (signal_[15:15 + age.size], {"units": "1"})},
+                     attrs={"core": "B"})
+    result = cross_correlate((a, "v"), (b, "v"), 200, surrogates=200, seed=1)
+    assert result.peak_lag.median == pytest.approx(50.0, abs=2.0)
+    assert result.p_value < 0.01
+
+
+def test_published_ngrip_neem_calcium_lag_is_zero(greenland):
+    # NGRIP and NEEM decadal Ca (Erhardt et al. 2019, doi:10.5194/cp-15-811-2019), both on
+    # GICC05 through volcanic synchronisation (Rasmussen et al. 2013,
+    # doi:10.5194/cp-9-2713-2013): their cross-correlation over 15-60 ka peaks at zero lag
+    ngrip = open_record(greenland / "NGRIP_10yr.csv", age_column="Age_BP", age_reference="BP")
+    neem = open_record(greenland / "NEEM_10yr.csv", age_column="Age_BP", age_reference="BP")
+    result = cross_correlate((ngrip, "Ca"), (neem, "Ca"), 200, window=[15_000, 60_000],
+                             age_reference="b2k", seed=1)
+    print(f"NGRIP-NEEM Ca: peak lag {result.peak_lag.median:+.2f} yr, 95 % "
+          f"{result.peak_lag.ci95}, r {result.peak_correlation:.3f}, p {result.p_value}")
+    assert abs(result.peak_lag.median) <= 10
+    assert result.peak_lag.ci95[0] <= 0 <= result.peak_lag.ci95[1]
+    assert result.peak_correlation > 0.5 and result.p_value < 0.01
+
+
+def test_ensemble_interval_on_the_demo():
+    ice, lake = open_record(RECORDS / "hvd1_ice.nc"), open_record(RECORDS / "trv3_lake.nc")
+    result = cross_correlate((ice, "d18O"), (lake, "d18O"), 300, seed=2, surrogates=200)
+    assert "ensemble" in result.peak_lag.source
+    lo, hi = result.peak_lag.ci95
+    assert lo < result.peak_lag.median < hi and hi - lo > 50  # the lake's age model is loose
+
+
+def test_kernel_method_agrees_with_pearson_on_regular_data():
+    rng = np.random.default_rng(3)
+    age = np.arange(0.0, 3000.0, 5.0) + 2.5
+    x = ar1(rng, age.size + 10, 0.8)
+    a = build_record(age=age + 1000, age_reference="b2k", proxies={"v": (x[:-10], {})},
+                     attrs={"core": "A"})
+    b = build_record(age=age + 1000, age_reference="b2k", proxies={"v": (x[4:-6], {})},
+                     attrs={"core": "B"})
+    kernel = cross_correlate((a, "v"), (b, "v"), 60, method="kernel", surrogates=50, seed=1,
+                             bootstrap=100)
+    pearson = cross_correlate((a, "v"), (b, "v"), 60, surrogates=50, seed=1, bootstrap=100)
+    assert kernel.peak_lag.median == pytest.approx(pearson.peak_lag.median, abs=2.5)
+    assert kernel.peak_lag.median == pytest.approx(20.0, abs=2.5)  # b(age - 20) = a(age)
+
+
+def test_cli_xcorr_json():
+    done = run_cli("xcorr", f"{RECORDS / 'hvd1_ice.nc'}:d18O", f"{RECORDS / 'trv3_lake.nc'}:d18O",
+                   "--max-lag", "200", "--surrogates", "100", "--seed", "1", "--json")
+    assert done.returncode == 0, done.stderr
+    out = json.loads(done.stdout)
+    for key in ("peak_lag", "peak_correlation", "p_value", "n_eff", "curve", "grid_step",
+                "age_reference", "provenance"):
+        assert key in out
+    assert len(out["curve"]["lags"]) == len(out["curve"]["r"])
