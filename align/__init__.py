@@ -10,6 +10,7 @@ from align.errors import InputError
 from align.io import open_record, save_record
 from align.lag import estimate_lag
 from align.provenance import version as _version
+from align.report import write_report
 from align.resample import resample
 from align.survey import survey
 from align.ties import read_ties, transfer
@@ -19,4 +20,4 @@ __version__ = _version()
 
 __all__ = ["InputError", "convert_age", "cross_correlate", "detect_event", "detect_onset",
            "estimate_lag", "open_record", "read_ties", "resample", "save_record", "survey",
-           "transfer"]
+           "transfer", "write_report"]

@@ -15,12 +15,13 @@ from pathlib import Path
 
 from align import text
 from align.ages import REFERENCES, convert_age
-from align.demo import demo_records_dir, demo_truth
+from align.demo import demo_request_path, demo_truth
 from align.describe import describe_record
 from align.detect import detect_event, detect_onset
 from align.errors import InputError
 from align.io import atomic_write, open_record, save_grid, save_record
 from align.lag import estimate_lag
+from align.report import load_result, summary, write_report
 from align.resample import align_records, resample
 from align.suggest import suggest_ties
 from align.survey import survey
@@ -183,6 +184,7 @@ def build_parser():
     lag.add_argument("--draws", type=int, help="Monte Carlo draws (default 20000)")
     lag.add_argument("--seed", type=int)
     lag.add_argument("--age-reference", choices=("b2k", "BP"), help="default b2k")
+    lag.add_argument("-o", "--output", metavar="DIR", help="write a report folder")
     _json_option(lag)
     lag.set_defaults(run=_lag)
 
@@ -204,10 +206,19 @@ def build_parser():
     survey_.add_argument("spec", metavar="SPEC.json")
     survey_.add_argument("--scheduler", metavar="ADDRESS",
                          help="a dask.distributed scheduler (default: local threads)")
+    survey_.add_argument("-o", "--output", metavar="DIR", help="write a report folder")
     _json_option(survey_)
     survey_.set_defaults(run=_survey)
 
+    report = commands.add_parser("report", help="render a report again from a saved result")
+    report.add_argument("result", metavar="RESULT.json", help="report.json or --json output")
+    report.add_argument("-o", "--output", metavar="DIR", required=True)
+    report.set_defaults(run=_report)
+
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
+    demo.add_argument("-o", "--output", metavar="DIR", default="corealign-demo-report",
+                      help="report folder (default: ./corealign-demo-report)")
+    _json_option(demo)
     demo.set_defaults(run=_demo)
     return parser
 
@@ -414,7 +425,18 @@ def _lag(args):
         b = marker_flag(args.b, args.b_window, "b")
         with progress_note("estimating the lag"):
             result = estimate_lag(a, b, **options)
-    _print_json(result.to_dict()) if args.json else print(text.lag(result))
+    _finish(result, args, text.lag)
+
+
+def _finish(result, args, render):
+    """Write the report folder if asked, then print JSON or text."""
+    folder = write_report(result, args.output) if args.output else None
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        print(render(result))
+        if folder:
+            print(f"report: {folder / 'report.html'}")
 
 
 def _xcorr(args):
@@ -430,16 +452,24 @@ def _xcorr(args):
 
 def _survey(args):
     result = survey(args.spec, scheduler=args.scheduler, progress=sys.stderr.isatty())
-    _print_json(result.to_dict()) if args.json else print(text.survey(result))
+    _finish(result, args, text.survey)
+
+
+def _report(args):
+    folder = write_report(load_result(args.result), args.output)
+    print(f"report: {folder / 'report.html'}")
 
 
 def _demo(args):
-    folder = demo_records_dir()
-    print(f"demo records (synthetic, invented scenario) in {folder}:")
-    for path in sorted(folder.glob("*.nc")):
-        print()
-        print(text.record_info(describe_record(open_record(path))))
+    with progress_note("running the demo (synthetic records, invented scenario)"):
+        result = estimate_lag(demo_request_path())
+    folder = write_report(result, args.output)
     truth = demo_truth()
-    print(f"\nknown truth: the event precedes the onset by {truth['lag']:g} years.")
-    print("not yet built: tie-point transfer, marker detection and the lag estimate; "
-          "this demo will run them as they land.")
+    if args.json:
+        _print_json({"truth": truth, "result": result.to_dict()})
+        return
+    print(summary(result))
+    print(f"\nknown truth of this synthetic scenario (records/README.md): the event precedes "
+          f"the onset by {truth['lag']:g} years ({truth['lag_on_ice_timescale']:g} on the ice "
+          f"core's own timescale).")
+    print(f"report: {folder / 'report.html'}")

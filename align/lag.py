@@ -329,7 +329,7 @@ def _what_ifs(center, parts):
         scenarios.append(("halve the tie-point uncertainty",
                           lambda p: 0.5 if p.kind == "tie" else 1.0))
     if "bridge" in kinds:
-        scenarios.append(("twice as many tie points (halves the bridge variance)",
+        scenarios.append(("double the number of tie points (halving the bridge variance)",
                           lambda p: np.sqrt(0.5) if p.kind == "bridge" else 1.0))
     if "timescale" in kinds:
         scenarios.append(("remove the timescale error",
@@ -418,8 +418,9 @@ def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, re
     summary = lag_summary(lag)
     variances = np.array([np.var(p.draws) for p in parts])
     total = float(variances.sum()) or 1.0
-    budget = [BudgetItem(component=p.component, kind=p.kind, sd=float(np.sqrt(v)),
-                         share=float(v / total)) for p, v in zip(parts, variances)]
+    budget = [BudgetItem(component=p.component, kind=p.kind, owner=p.owner,
+                         sd=float(np.sqrt(v)), share=float(v / total))
+              for p, v in zip(parts, variances)]
     floor = float(np.sqrt(sum(v for p, v in zip(parts, variances) if p.kind == "resolution")))
     resolvable = float(max(summary.median - summary.ci95[0], summary.ci95[1] - summary.median))
     text = verdict(summary, marker_a, marker_b)

@@ -343,6 +343,8 @@ class BudgetItem(Model):
 
     component: str
     kind: Literal["resolution", "detection", "timescale", "tie", "bridge"]
+    owner: Literal["a", "b"] | None = Field(None, description="the marker or record it "
+                                                               "belongs to, if one")
     sd: float
     share: float
 

@@ -1,0 +1,341 @@
+"""Reports: a folder a scientist can keep, send and publish from.
+
+``write_report`` turns a lag or survey result into ``report.json`` (the full result with its
+provenance), ``report.md``, ``report.html`` (one self-contained file, figures inline as SVG,
+no network access, readable printed) and every figure as SVG and PNG. The Markdown and HTML
+are rendered from one list of blocks, and every number in them is formatted from the same
+result object that ``report.json`` holds; a report can be redrawn from ``report.json``
+alone (``corealign report``).
+"""
+
+from __future__ import annotations
+
+import html
+import json
+from pathlib import Path
+
+import matplotlib.pyplot as plt
+from pydantic import ValidationError
+
+from align.errors import InputError
+from align.figures import AGE_NOTE, STYLE, lag_figures, survey_figure
+from align.io import atomic_write
+from align.schema import LagResult, SurveyResult
+
+FORMATS = ("html", "md", "json")
+REFERENCES = {
+    "Andersen et al. (2006)": "Andersen, K. K. et al. (2006): The Greenland Ice Core Chronology "
+    "2005, 15-42 ka. Part 1: constructing the time scale. Quat. Sci. Rev. 25, 3246-3257. "
+    "doi:10.1016/j.quascirev.2006.08.002",
+    "Mudelsee (2000)": "Mudelsee, M. (2000): Ramp function regression: a tool for quantifying "
+    "climate transitions. Computers & Geosciences 26, 293-307. "
+    "doi:10.1016/S0098-3004(99)00141-7",
+    "Mudelsee (2002)": "Mudelsee, M. (2002): TAUEST: a computer program for estimating "
+    "persistence in unevenly spaced weather/climate time series. Computers & Geosciences 28, "
+    "69-72. doi:10.1016/S0098-3004(01)00041-3",
+    "Erhardt et al. (2019)": "Erhardt, T. et al. (2019): Decadal-scale progression of the onset "
+    "of Dansgaard-Oeschger warming events. Clim. Past 15, 811-825. doi:10.5194/cp-15-811-2019",
+    "Divine et al. (2012)": "Divine, D. V. et al. (2012): Tephra-based age models and the "
+    "uncertainty between tie points. Clim. Past Discuss. 8, 1529-1566. "
+    "doi:10.5194/cpd-8-1529-2012",
+    "Heaton et al. (2013)": "Heaton, T. J. et al. (2013): Tie-point based age models with "
+    "Gaussian processes. Radiocarbon 55(4), 1975-1997. doi:10.2458/azu_js_rc.55.17777",
+    "Efron & Tibshirani (1993)": "Efron, B. and Tibshirani, R. J. (1993): An Introduction to "
+    "the Bootstrap. Chapman & Hall. doi:10.1201/9780429246593",
+    "DerSimonian & Laird (1986)": "DerSimonian, R. and Laird, N. (1986): Meta-analysis in "
+    "clinical trials. Controlled Clinical Trials 7, 177-188. doi:10.1016/0197-2456(86)90046-2",
+}
+CAPTIONS = {
+    "overview": "Both records on the common timescale. Samples are steps over their age "
+                "intervals; shaded spans are each marker's 95 % interval (dashed: median); the "
+                "grey band under each record is its timescale 1-sigma.",
+    "marker_a": "Marker a: how it was picked.",
+    "marker_b": "Marker b: how it was picked.",
+    "lag": "The lag distribution: median, 68 % and 95 % intervals, and the zero line.",
+    "budget": "The uncertainty budget (sd of each source; share of the variance) and the "
+              "95 % width after each named improvement.",
+    "survey": "Each pair's lag with its 95 % interval (grey: not combined) and the combined "
+              "estimate.",
+}
+
+
+def load_result(path):
+    """Read a saved result (``report.json`` or ``--json`` output) as a result object."""
+    path = Path(path)
+    try:
+        data = json.loads(path.read_text())
+    except FileNotFoundError:
+        raise InputError("no such result file", source=str(path), status=404) from None
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"not a JSON result ({exc})", source=str(path), status=400) from None
+    if not isinstance(data, dict):
+        raise InputError("not a lag or survey result (expected a JSON object)",
+                         source=str(path))
+    model = SurveyResult if "pairs" in data else LagResult
+    try:
+        return model.model_validate(data)
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        where = ".".join(map(str, first["loc"])) or "result"
+        raise InputError(f"not a {model.__name__}: {first['msg']}", source=str(path),
+                         field=where) from None
+
+
+def write_report(result, directory, formats=FORMATS):
+    """Write a report folder for a lag or survey result.
+
+    Parameters
+    ----------
+    result : LagResult or SurveyResult
+    directory : str or os.PathLike
+        Created if missing; files in it are replaced atomically.
+    formats : sequence of {"html", "md", "json"}
+
+    Returns
+    -------
+    pathlib.Path
+        The folder, holding ``report.*`` and each figure as ``<name>.svg`` and ``<name>.png``.
+    """
+    unknown = set(formats) - set(FORMATS)
+    if unknown:
+        raise InputError(f"unknown report format {sorted(unknown)[0]!r}", field="formats")
+    folder = Path(directory)
+    folder.mkdir(parents=True, exist_ok=True)
+    figures = (lag_figures(result) if isinstance(result, LagResult)
+               else {"survey": survey_figure(result)})
+    svgs = {}
+    for name, fig in figures.items():
+        with plt.rc_context(STYLE):  # fixed SVG ids: a redrawn report is byte-identical
+            atomic_write(folder / f"{name}.svg", lambda tmp, f=fig: f.savefig(
+                tmp, format="svg", metadata={"Date": None}))
+        atomic_write(folder / f"{name}.png", lambda tmp, f=fig: f.savefig(
+            tmp, format="png", dpi=150))
+        svgs[name] = (folder / f"{name}.svg").read_text()
+        plt.close(fig)
+    blocks = lag_blocks(result) if isinstance(result, LagResult) else survey_blocks(result)
+    if "json" in formats:
+        atomic_write(folder / "report.json", lambda tmp: Path(tmp).write_text(
+            json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n"))
+    if "md" in formats:
+        atomic_write(folder / "report.md", lambda tmp: Path(tmp).write_text(markdown(blocks)))
+    if "html" in formats:
+        atomic_write(folder / "report.html",
+                     lambda tmp: Path(tmp).write_text(page(blocks, svgs)))
+    return folder
+
+
+# --------------------------------------------------------------------------------------------
+# content
+
+
+def _fmt(value, digits=1):
+    return f"{value:.{digits}f}"
+
+
+def _interval(pair, digits=1):
+    return f"{_fmt(pair[0], digits)} to {_fmt(pair[1], digits)}"
+
+
+def summary(result):
+    """The plain-words paragraph that opens a lag report."""
+    text = result.verdict + "."
+    top = max(result.budget, key=lambda b: b.share)
+    text += f" The largest contribution is {_plain(top)} ({top.share:.0%} of the variance)"
+    fix = _what_if_for(result, top)
+    if fix is not None:
+        text += (f"; if we could {fix.change.split(' (')[0]}, the 95 % interval would narrow "
+                 f"to {_interval(fix.ci95, 0)} years.")
+    elif top.kind == "detection":
+        text += ("; it comes from fitting the transition under noise, which only a denser or "
+                 "less noisy record across the transition would reduce.")
+    else:
+        text += "."
+    return text + " " + result.assumptions[-1]
+
+
+def _plain(item):
+    """A budget item in a few words."""
+    return {"resolution": f"the sample interval of {item.owner}",
+            "detection": f"the onset fit of {item.owner} under noise",
+            "tie": "the tie-point match uncertainty",
+            "bridge": "the uncertainty between tie points"}.get(item.kind, item.component)
+
+
+def _what_if_for(result, item):
+    wanted = {"resolution": f"halve the sample interval of {item.owner}",
+              "tie": "halve the tie-point uncertainty",
+              "bridge": "double the number of tie points (halving the bridge variance)",
+              "timescale": "remove the timescale error"}.get(item.kind)
+    return next((w for w in result.what_if if w.change == wanted), None)
+
+
+def _methods(result):
+    used = ["Mudelsee (2000)", "Mudelsee (2002)", "Efron & Tibshirani (1993)"]
+    text = " ".join(result.assumptions)
+    if "Erhardt" in result.a.method + result.b.method:
+        used.append("Erhardt et al. (2019)")
+    if "counting error" in text:
+        used.insert(0, "Andersen et al. (2006)")
+    if result.relation == "tied":
+        used += ["Divine et al. (2012)", "Heaton et al. (2013)"]
+    return used
+
+
+def _provenance_rows(prov):
+    rows = [[i.role, i.source, i.sha256 or "(none)"] for i in prov.inputs]
+    return rows
+
+
+def lag_blocks(result):
+    """The blocks of a lag report (rendered to Markdown and HTML)."""
+    lag = result.lag
+    ref = result.age_reference
+    blocks = [("h1", "Lag report"), ("p", summary(result)),
+              ("h2", "Result"),
+              ("table", ["quantity", "value"], [
+                  ["lag a - b (median)", f"{_fmt(lag.median)} yr"],
+                  ["68 % interval", f"{_interval(lag.ci68)} yr"],
+                  ["95 % interval", f"{_interval(lag.ci95)} yr"],
+                  ["P(a before b)", _fmt(lag.p_a_before_b, 3)],
+                  [f"marker a ({result.a.kind})", f"{_fmt(result.a.age.median)} yr {ref} "
+                                                  f"(95 %: {_interval(result.a.age.ci95)})"],
+                  [f"marker b ({result.b.kind})", f"{_fmt(result.b.age.median)} yr {ref} "
+                                                  f"(95 %: {_interval(result.b.age.ci95)})"],
+                  ["timescales", result.relation],
+                  ["resolution floor (sampling alone)", f"{_fmt(result.resolution_floor, 2)} yr"],
+                  ["smallest lag resolvable at 95 %", f"{_fmt(result.resolvable_lag)} yr"]]),
+              ("figure", "overview"), ("figure", "marker_a"), ("figure", "marker_b"),
+              ("figure", "lag"),
+              ("h2", "What limits the answer"),
+              ("table", ["source", "kind", "sd (yr)", "share of variance"],
+               [[b.component, b.kind, _fmt(b.sd, 2), f"{b.share:.1%}"]
+                for b in sorted(result.budget, key=lambda b: -b.share)]),
+              ("h2", "What would narrow it"),
+              ("table", ["change", "95 % interval (yr)", "width (yr)"],
+               [["as it is", _interval(lag.ci95), _fmt(lag.ci95[1] - lag.ci95[0])]]
+               + [[w.change, _interval(w.ci95), _fmt(w.width)] for w in result.what_if]),
+              ("figure", "budget"),
+              ("h2", "Assumptions"), ("list", result.assumptions),
+              ("h2", "Methods"),
+              ("list", [f"Marker a: {result.a.method}.", f"Marker b: {result.b.method}.",
+                        f"Lag: one joint Monte Carlo of {result.request.draws} draws over every "
+                        "source with its correlation; budget shares are each source's variance "
+                        "over their sum.", f"Figures: {AGE_NOTE}."]),
+              ("h2", "References"), ("list", [REFERENCES[k] for k in _methods(result)]),
+              *_provenance_blocks(result.provenance)]
+    return blocks
+
+
+def survey_blocks(result):
+    """The blocks of a survey report."""
+    rows = []
+    for p in result.pairs:
+        if p.lag is None:
+            rows.append([p.label, "-", "-", p.error or ""])
+        else:
+            rows.append([p.label, _fmt(p.lag.median), _interval(p.lag.ci95),
+                         "combined" if p.clear else "not combined (unclear marker)"])
+    combined = result.combined
+    table = [] if combined is None else [
+        ("table", ["quantity", "value"], [
+            ["combined lag (median)", f"{_fmt(combined.median)} yr"],
+            ["95 % interval", f"{_interval(combined.ci95)} yr"],
+            ["P(a before b)", _fmt(combined.p_a_before_b, 3)],
+            ["pairs combined", str(result.n_used)]] + ([] if result.heterogeneity is None else [
+                ["heterogeneity Q (dof, p)",
+                 f"{_fmt(result.heterogeneity.q, 2)} ({result.heterogeneity.dof}, "
+                 f"{_fmt(result.heterogeneity.p_value, 3)})"],
+                ["between-pair sd", f"{_fmt(result.heterogeneity.tau2 ** 0.5)} yr"]]))]
+    return [("h1", "Survey report"), ("p", result.systematic + ". " + result.assumptions[-1]),
+            ("h2", "Combined"), *table, ("figure", "survey"),
+            ("h2", "Pairs"), ("table", ["pair", "lag (yr)", "95 % interval (yr)", "use"], rows),
+            ("h2", "Assumptions"), ("list", result.assumptions),
+            ("h2", "References"),
+            ("list", [REFERENCES[k] for k in ("DerSimonian & Laird (1986)", "Mudelsee (2000)")]),
+            *_provenance_blocks(result.provenance)]
+
+
+def _provenance_blocks(prov):
+    return [("h2", "Provenance"),
+            ("table", ["input", "source", "SHA-256"], _provenance_rows(prov)),
+            ("p", f"corealign {prov.version}; seed {prov.seed}; created {prov.created}."),
+            ("pre", json.dumps(prov.parameters, indent=2, default=str))]
+
+
+# --------------------------------------------------------------------------------------------
+# rendering
+
+
+def markdown(blocks):
+    """Blocks as Markdown (figures as PNG links)."""
+    out = []
+    for block in blocks:
+        kind = block[0]
+        if kind in ("h1", "h2"):
+            out.append(("#" if kind == "h1" else "##") + " " + block[1])
+        elif kind == "p":
+            out.append(block[1])
+        elif kind == "list":
+            out.append("\n".join(f"- {item}" for item in block[1]))
+        elif kind == "pre":
+            out.append(f"```json\n{block[1]}\n```")
+        elif kind == "figure":
+            out.append(f"![{CAPTIONS[block[1]]}]({block[1]}.png)\n\n*{CAPTIONS[block[1]]}*")
+        elif kind == "table":
+            header, rows = block[1], block[2]
+            lines = ["| " + " | ".join(header) + " |", "|" + " --- |" * len(header)]
+            lines += ["| " + " | ".join(str(c).replace("|", "\\|") for c in row) + " |"
+                      for row in rows]
+            out.append("\n".join(lines))
+    return "\n\n".join(out) + "\n"
+
+
+_CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;max-width:60rem;margin:2rem auto;
+padding:0 1rem;color:#222;line-height:1.45}
+h1{font-size:1.6rem}h2{font-size:1.2rem;margin-top:2rem;border-bottom:1px solid #ddd}
+p.summary{font-size:1.1rem;background:#f4f6fa;border-left:4px solid #1f5fa6;padding:.8rem 1rem}
+table{border-collapse:collapse;margin:.5rem 0;font-size:.92rem}
+td,th{border:1px solid #ccc;padding:.25rem .5rem;text-align:left;vertical-align:top}
+figure{margin:1rem 0}figure svg{max-width:100%;height:auto}
+figcaption{font-size:.85rem;color:#555}pre{background:#f6f6f6;padding:.5rem;overflow:auto;
+font-size:.8rem}
+@media print{body{margin:0;max-width:none}figure,table{page-break-inside:avoid}}
+"""
+
+
+def page(blocks, svgs):
+    """Blocks as one self-contained HTML page (inline SVG figures, inline CSS)."""
+    body = []
+    first_paragraph = True
+    for block in blocks:
+        kind = block[0]
+        if kind in ("h1", "h2"):
+            body.append(f"<{kind}>{html.escape(block[1])}</{kind}>")
+        elif kind == "p":
+            cls = ' class="summary" id="summary"' if first_paragraph else ""
+            first_paragraph = False
+            body.append(f"<p{cls}>{html.escape(block[1])}</p>")
+        elif kind == "list":
+            body.append("<ul>" + "".join(f"<li>{html.escape(i)}</li>" for i in block[1])
+                        + "</ul>")
+        elif kind == "pre":
+            body.append(f"<pre>{html.escape(block[1])}</pre>")
+        elif kind == "figure":
+            svg = _inline_svg(svgs[block[1]])
+            body.append(f'<figure id="figure-{block[1]}">{svg}<figcaption>'
+                        f"{html.escape(CAPTIONS[block[1]])}</figcaption></figure>")
+        elif kind == "table":
+            head = "".join(f"<th>{html.escape(h)}</th>" for h in block[1])
+            rows = "".join("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in row)
+                           + "</tr>" for row in block[2])
+            body.append(f"<table><thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table>")
+    title = html.escape(blocks[0][1])
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            f"<title>{title}</title><style>{_CSS}</style></head><body>\n"
+            + "\n".join(body) + "\n</body></html>\n")
+
+
+def _inline_svg(text):
+    start = text.find("<svg")
+    return text[start:] if start >= 0 else text
