@@ -16,7 +16,7 @@ from pathlib import Path
 from align import text
 from align.ages import REFERENCES, convert_age
 from align.demo import demo_request_path, demo_truth
-from align.describe import describe_record
+from align.describe import describe_grid, describe_record
 from align.detect import detect_event, detect_onset
 from align.errors import InputError
 from align.io import atomic_write, open_record, save_grid, save_record
@@ -140,6 +140,7 @@ def build_parser():
     resample_.add_argument("--along", default="age", choices=("age", "depth"))
     resample_.add_argument("--interpolate", action="store_true",
                            help="interpolate linearly in cells finer than the samples")
+    _json_option(resample_)
     _mapping_options(resample_)
     resample_.set_defaults(run=_resample)
 
@@ -214,6 +215,18 @@ def build_parser():
     report.add_argument("result", metavar="RESULT.json", help="report.json or --json output")
     report.add_argument("-o", "--output", metavar="DIR", required=True)
     report.set_defaults(run=_report)
+
+    serve = commands.add_parser("serve", help="run the HTTP service (waitress)")
+    serve.add_argument("--host", default="127.0.0.1")
+    serve.add_argument("--port", type=int, default=8750)
+    serve.add_argument("--data-dir", metavar="DIR",
+                       help="store folder (default: $COREALIGN_DATA_DIR or the XDG data home)")
+    serve.add_argument("--token-file", metavar="FILE",
+                       help="require this bearer token on write routes")
+    serve.add_argument("--workers", type=int, help="computation worker processes (default 2)")
+    serve.add_argument("--time-limit", type=float, metavar="SECONDS",
+                       help="stop a computation after this long (default 300)")
+    serve.set_defaults(run=_serve)
 
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
     demo.add_argument("-o", "--output", metavar="DIR", default="corealign-demo-report",
@@ -365,7 +378,10 @@ def _resample(args):
                     along=args.along,
                     interpolate=args.interpolate)
     save_grid(grid, args.output, history=f"corealign resample {args.record}")
-    _grid_summary(grid, args.output)
+    if args.json:
+        _print_json(describe_grid(grid).to_dict())
+    else:
+        _grid_summary(grid, args.output)
 
 
 def _align(args):
@@ -458,6 +474,12 @@ def _survey(args):
 def _report(args):
     folder = write_report(load_result(args.result), args.output)
     print(f"report: {folder / 'report.html'}")
+
+
+def _serve(args):
+    from api.server import serve
+
+    serve(args.host, args.port, args.data_dir, args.token_file, args.workers, args.time_limit)
 
 
 def _demo(args):

@@ -6,7 +6,8 @@ import numpy as np
 
 from align.record import (MEMBER, age_reference, proxy_variables, record_name,
                           uncertainty_kind)
-from align.schema import CoordinateInfo, RecordInfo, Spread, VariableInfo
+from align.schema import (CoordinateInfo, GridSummary, GridVariable, RecordInfo, Spread,
+                          VariableInfo)
 
 
 def describe_record(record):
@@ -53,3 +54,25 @@ def _coordinate(record, name, derived):
                           interval=Spread(median=float(np.median(width)),
                                           min=float(width.min()), max=float(width.max())),
                           bounds_derived=derived)
+
+
+def describe_grid(grid):
+    """Summarise a common grid (:func:`align.resample.resample` output).
+
+    Returns
+    -------
+    GridSummary
+        Axis, step and edges (yr or m), cell count, and per variable its units, valid cells
+        and mean coverage (fraction).
+    """
+    along = "age" if "age" in grid.dims else "depth"
+    bounds = grid[f"{along}_bounds"].values
+    variables = [GridVariable(name=name, units=grid[name].attrs.get("units"),
+                              valid_cells=int(np.isfinite(grid[name].values).sum()),
+                              mean_coverage=float(np.mean(grid[f"{name}_coverage"].values)))
+                 for name in grid.data_vars if f"{name}_coverage" in grid]
+    return GridSummary(along=along, age_reference=grid[along].attrs.get("age_reference"),
+                       step=float(grid.attrs["resample_step"]), start=float(bounds[0, 0]),
+                       stop=float(bounds[-1, 1]), cells=int(grid.sizes[along]),
+                       variables=variables, step_choice=grid.attrs.get("step_choice"),
+                       fine_cells=str(grid.attrs.get("fine_cells", "")))

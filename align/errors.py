@@ -39,6 +39,15 @@ class InputError(ValueError):
         self.status = status
         super().__init__(self.__str__())
 
+    def __reduce__(self):  # keep the location when pickled (worker processes)
+        return (_rebuild, (type(self), self.message, self.source, self.field, self.row,
+                           self.row_kind, self.status))
+
+    def with_source(self, source):
+        """A copy naming ``source`` as the file (e.g. an upload's name, not its temp path)."""
+        return InputError(self.message, source=source, field=self.field, row=self.row,
+                          row_kind=self.row_kind, status=self.status)
+
     def located(self, *, source=None, field=None):
         """Return a copy with the source or field filled in where it was not yet known."""
         return InputError(self.message, source=self.source or source, field=self.field or field,
@@ -63,5 +72,9 @@ class InputError(ValueError):
 class NotATableError(InputError):
     """The input could not be read as a table or a NetCDF file at all (HTTP 415)."""
 
-    def __init__(self, message, *, source=None):
+    def __init__(self, message, *, source=None, **_):
         super().__init__(message, source=source, status=415)
+
+
+def _rebuild(cls, message, source, field, row, row_kind, status):
+    return cls(message, source=source, field=field, row=row, row_kind=row_kind, status=status)

@@ -501,3 +501,156 @@ class SurveyResult(Model):
     age_reference: AgeRef
     assumptions: list[str]
     provenance: Provenance
+
+
+# --------------------------------------------------------------------------------------------
+# requests of the single steps (HTTP API bodies; the CLI flags and library keywords mirror them)
+
+
+class EventRequest(Model):
+    """Find an event (``detect_event``; ``POST /detect/event``)."""
+
+    record: str
+    variable: str
+    window: Pair | None = None
+    threshold: float = Field(5.0, gt=0)
+    baseline_years: float | None = Field(None, gt=0)
+    pick: Literal["first", "peak"] = "first"
+    direction: Literal["up", "down"] = "up"
+    age_reference: AgeRef | None = None
+
+
+class OnsetRequest(Model):
+    """Fit an onset (``detect_onset``; ``POST /detect/onset``)."""
+
+    record: str
+    variable: str
+    window: Pair
+    direction: Literal["auto", "up", "down"] = "auto"
+    method: Literal["ramp", "bayes"] = "ramp"
+    draws: int = Field(2000, ge=100, le=100_000)
+    seed: int | None = Field(None, ge=0)
+    age_reference: AgeRef | None = None
+
+
+class SeriesRef(Model):
+    """A record and one of its variables."""
+
+    record: str
+    variable: str
+
+
+class XcorrRequest(Model):
+    """Cross-correlate (``cross_correlate``; ``POST /xcorr``)."""
+
+    a: SeriesRef
+    b: SeriesRef
+    max_lag: float = Field(gt=0)
+    step: float | None = Field(None, gt=0)
+    method: Literal["pearson", "kernel"] = "pearson"
+    surrogates: int = Field(1000, ge=0, le=100_000)
+    surrogate_kind: Literal["phase", "ar1"] = "phase"
+    window: Pair | None = None
+    seed: int | None = Field(None, ge=0)
+    age_reference: AgeRef | None = None
+    bootstrap: int = Field(1000, ge=10, le=100_000)
+
+
+class ResampleRequest(Model):
+    """Resample a record (``resample``; ``POST /resample``)."""
+
+    record: str
+    step: float | None = Field(None, gt=0)
+    start: float | None = None
+    stop: float | None = None
+    variables: list[str] | None = None
+    min_coverage: float = Field(0.5, ge=0, le=1)
+    along: Literal["age", "depth"] = "age"
+    interpolate: bool = False
+
+
+class GridVariable(Model):
+    """One variable of a common grid: units and how well its cells are covered."""
+
+    name: str
+    units: str | None = None
+    valid_cells: int
+    mean_coverage: float
+
+
+class GridSummary(Model):
+    """A common grid (``resample --json``; ``POST /resample``); the grid itself is NetCDF."""
+
+    along: Literal["age", "depth"]
+    age_reference: AgeRef | None = None
+    step: float
+    start: float
+    stop: float
+    cells: int
+    variables: list[GridVariable]
+    step_choice: str | None = None
+    fine_cells: str
+
+
+# --------------------------------------------------------------------------------------------
+# the service's own bodies
+
+
+class Health(Model):
+    """``GET /health``."""
+
+    status: Literal["ok"]
+    version: str
+
+
+class RecordEntry(Model):
+    """A stored record in the catalogue."""
+
+    id: str
+    name: str
+    archive: str | None = None
+    site: str | None = None
+    timescale: str | None = None
+    timescale_kind: str | None = None
+    age_reference: AgeRef | None = None
+    n_samples: int
+    variables: list[str]
+    depth_range: Pair | None = None
+    age_range: Pair | None = None
+    checksum: str
+    created: str
+
+
+class RecordList(Model):
+    """``GET /records``."""
+
+    records: list[RecordEntry]
+
+
+class StoredRecord(Model):
+    """``POST /records`` and ``GET /records/{id}``: the catalogue entry and what it holds."""
+
+    entry: RecordEntry
+    info: RecordInfo
+
+
+class StoredTies(Model):
+    """``POST /ties``."""
+
+    id: str
+    labels: list[str]
+    ref_kind: Literal["depth", "age"]
+    checksum: str
+
+
+class Problem(Model):
+    """An RFC 9457 problem-details body (``application/problem+json``)."""
+
+    model_config = ConfigDict(extra="allow")
+
+    type: str
+    title: str
+    status: int
+    detail: str
+    instance: str | None = None
+    pointer: str | None = Field(None, description="JSON pointer to the offending field")

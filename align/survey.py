@@ -84,14 +84,14 @@ def table_pairs(spec, sources):
     return pairs
 
 
-def _one_pair(pair, spec, base, seed):
+def _one_pair(pair, spec, sources, seed):
     """Estimate one pair; a bad pair is reported, not raised (a survey goes on)."""
     try:
         result = estimate_lag({"a": pair.a.model_dump(), "b": pair.b.model_dump(),
                                "ties": spec.ties, "age_reference": spec.age_reference,
                                "draws": spec.draws, "seed": seed,
                                "timescale_model": spec.timescale_model},
-                              sources=Sources(base))
+                              sources=sources)
     except InputError as exc:
         return SurveyPair(label=pair.label, error=str(exc)), None
     clear = all(getattr(m, "clear_transition", True) for m in (result.a, result.b))
@@ -99,7 +99,7 @@ def _one_pair(pair, spec, base, seed):
                       verdict=result.verdict, clear=clear), result._draws
 
 
-def survey(spec, *, scheduler=None, progress=False):
+def survey(spec, *, scheduler=None, progress=False, sources=None):
     """Lags of many marker pairs and their combination.
 
     Parameters
@@ -111,6 +111,8 @@ def survey(spec, *, scheduler=None, progress=False):
         (the heavy parts release the GIL).
     progress : bool
         Show a progress bar (on a terminal).
+    sources : align.lag.Sources, optional
+        Where records and ties come from (default: paths beside the spec file).
 
     Returns
     -------
@@ -125,10 +127,10 @@ def survey(spec, *, scheduler=None, progress=False):
     """
     spec, base = survey_spec(spec)
     seed = resolve_seed(spec.seed)
-    sources = Sources(base)
+    sources = sources or Sources(base)
     pairs = spec.pairs or table_pairs(spec, sources)
     seeds = [int(s.generate_state(1)[0]) for s in np.random.SeedSequence(seed).spawn(len(pairs))]
-    outcomes = _run(pairs, spec, base, seeds, scheduler, progress)
+    outcomes = _run(pairs, spec, sources, seeds, scheduler, progress)
     rows = [row for row, _ in outcomes]
     draws = [(row, d) for row, d in outcomes if d is not None and row.clear]
     combined, heterogeneity, statement = _combine(draws, np.random.default_rng(seed))
@@ -151,10 +153,10 @@ def survey(spec, *, scheduler=None, progress=False):
                               seed=seed))
 
 
-def _run(pairs, spec, base, seeds, scheduler, progress):
+def _run(pairs, spec, sources, seeds, scheduler, progress):
     import dask
 
-    tasks = [dask.delayed(_one_pair, pure=True)(pair, spec, base, s)
+    tasks = [dask.delayed(_one_pair, pure=True)(pair, spec, sources, s)
              for pair, s in zip(pairs, seeds)]
     if scheduler is not None:
         from distributed import Client

@@ -1,29 +1,62 @@
 """The corealign HTTP service: a Flask app factory over a record store.
 
-``create_app(config)`` builds a fresh app (tests pass their own config, with a temporary data
-folder); ``corealign serve`` runs it on a production WSGI server.
+``create_app(config)`` builds a fresh app (tests pass their own config with a temporary data
+folder); ``corealign serve`` runs it on a production WSGI server (waitress). Every response
+body is the same object the library's ``to_dict()`` and the CLI's ``--json`` give; every error
+is RFC 9457 problem details; ``/openapi.json`` is generated from the same schema classes.
 """
 
 from __future__ import annotations
 
-from flask import Flask, jsonify
+import os
+from pathlib import Path
 
-from align.provenance import version
+from flask import Flask
+
+DEFAULTS = {
+    "MAX_CONTENT_LENGTH": 256 * 1024 * 1024,  # bytes; larger bodies are answered 413
+    "MAX_DRAWS": 200_000,  # Monte Carlo and bootstrap draws per request
+    "MAX_CELLS": 2_000_000,  # grid cells per resampling
+    "MAX_SURROGATES": 20_000,  # surrogates and bootstrap replicates per cross-correlation
+    "MAX_PAIRS": 200,  # pairs per survey
+    "TIME_LIMIT": 300.0,  # seconds a computation may run before it is stopped
+    "WORKERS": 2,  # worker processes (0: compute in the request thread, for tests)
+    "TOKEN": None,  # bearer token for write routes (None: no authentication)
+}
+
+
+def default_data_dir():
+    """``$COREALIGN_DATA_DIR``, else ``$XDG_DATA_HOME/corealign``, else
+    ``~/.local/share/corealign`` (XDG Base Directory conventions)."""
+    if os.environ.get("COREALIGN_DATA_DIR"):
+        return Path(os.environ["COREALIGN_DATA_DIR"])
+    base = os.environ.get("XDG_DATA_HOME") or Path.home() / ".local" / "share"
+    return Path(base) / "corealign"
 
 
 def create_app(config=None):
-    """Build the Flask app.
+    """Build the service.
 
     Parameters
     ----------
     config : dict, optional
-        Settings overriding the defaults (tests pass a temporary ``DATA_DIR``).
+        Overrides of :data:`DEFAULTS` and ``DATA_DIR`` (default :func:`default_data_dir`).
+
+    Returns
+    -------
+    flask.Flask
     """
+    from api import problems
+    from api.routes import BLUEPRINTS
+    from api.store import Store
+
     app = Flask(__name__)
+    app.config.update(DEFAULTS)
     app.config.update(config or {})
-
-    @app.get("/health")
-    def health():
-        return jsonify(status="ok", version=version())
-
+    app.config.setdefault("DATA_DIR", str(default_data_dir()))
+    app.json.sort_keys = False
+    app.extensions["corealign.store"] = Store(app.config["DATA_DIR"], reconcile=True)
+    problems.register(app)
+    for blueprint in BLUEPRINTS:
+        app.register_blueprint(blueprint)
     return app

@@ -39,3 +39,73 @@ def run_cli(*args, cwd=None, timeout=600):
     """Run ``corealign`` in a subprocess; return the CompletedProcess (text mode)."""
     return subprocess.run([sys.executable, "-m", "align", *map(str, args)], capture_output=True,
                           text=True, cwd=cwd or ROOT, timeout=timeout)
+
+
+@pytest.fixture
+def app(tmp_path):
+    """A fresh service with its own store; computations in the request thread."""
+    from api import create_app
+
+    return create_app({"DATA_DIR": str(tmp_path / "store"), "WORKERS": 0})
+
+
+@pytest.fixture
+def client(app):
+    return app.test_client()
+
+
+def upload(client, path, mapping=None, name=None, headers=None):
+    """POST a file to /records (multipart), returning the response."""
+    import json
+
+    data = {"file": (open(path, "rb"), name or Path(path).name)}
+    if mapping is not None:
+        data["mapping"] = json.dumps(mapping)
+    return client.post("/records", data=data, content_type="multipart/form-data",
+                       headers=headers or {})
+
+
+def free_port():
+    import socket
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return sock.getsockname()[1]
+
+
+class Server:
+    """A real ``corealign serve`` process on 127.0.0.1."""
+
+    def __init__(self, data_dir, *options):
+        import time
+
+        import requests
+
+        self.port = free_port()
+        self.url = f"http://127.0.0.1:{self.port}"
+        self.args = [sys.executable, "-m", "align", "serve", "--port", str(self.port),
+                     "--data-dir", str(data_dir), *map(str, options)]
+        self.process = subprocess.Popen(self.args, cwd=ROOT, stdout=subprocess.PIPE,
+                                        stderr=subprocess.STDOUT, text=True)
+        deadline = time.time() + 60
+        while time.time() < deadline:
+            try:
+                if requests.get(self.url + "/health", timeout=2).status_code == 200:
+                    return
+            except requests.ConnectionError:
+                time.sleep(0.2)
+        self.stop()
+        raise RuntimeError("the server did not start: " + (self.process.stdout.read() or ""))
+
+    def stop(self):
+        if self.process.poll() is None:
+            self.process.terminate()
+            try:
+                self.process.wait(timeout=15)
+            except subprocess.TimeoutExpired:
+                self.process.kill()
+                self.process.wait()
+
+    def kill(self):
+        self.process.kill()
+        self.process.wait()

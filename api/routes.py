@@ -1,0 +1,343 @@
+"""The service's routes: thin views that check, look up, compute (in a worker) and answer."""
+
+from __future__ import annotations
+
+import json
+import tempfile
+from pathlib import Path
+
+from flask import Blueprint, current_app, jsonify, request, send_file
+
+from align.errors import InputError
+from align.provenance import sha256_bytes, version
+from align.schema import (EventRequest, EventResult, GridSummary, Health, LagRequest, LagResult,
+                          OnsetRequest, OnsetResult, RecordInfo, RecordList, ResampleRequest,
+                          StoredRecord, StoredTies, SurveyResult, SurveySpec, XcorrRequest,
+                          XcorrResult)
+from align.ties import read_ties
+from api import tasks
+from api.compute import ComputationTimeout, run
+from api.problems import Problem
+from api.spec import endpoint, openapi_document
+
+meta = Blueprint("meta", __name__)
+records = Blueprint("records", __name__)
+analysis = Blueprint("analysis", __name__)
+reports = Blueprint("reports", __name__)
+BLUEPRINTS = (meta, records, analysis, reports)
+
+#: Keywords a CSV upload's ``mapping`` may use (those of :func:`align.open_record`).
+MAPPING_KEYS = {"age_reference", "age_column", "depth_column", "age_sd_column", "mce_column",
+                "depth_top_column", "depth_bottom_column", "age_top_column",
+                "age_bottom_column", "age_units", "depth_units", "variables", "units",
+                "archive", "site", "core", "timescale", "timescale_kind"}
+UPLOAD_SCHEMA = {"type": "object", "required": ["file"], "properties": {
+    "file": {"type": "string", "format": "binary",
+             "description": "NetCDF, or CSV/TSV with a mapping"},
+    "mapping": {"type": "string", "description": "JSON object of open_record keywords "
+                                                  "(age_column, age_reference, ...)"}}}
+TIES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
+    "file": {"type": "string", "format": "binary",
+             "description": "label,depth,ref_depth|ref_age,sd"}}}
+
+
+def store():
+    return current_app.extensions["corealign.store"]
+
+
+def compute(task, *args):
+    """Run a task in a worker under the configured time limit."""
+    config = current_app.config
+    try:
+        return run(task, *args, workers=config["WORKERS"], timeout=config["TIME_LIMIT"])
+    except ComputationTimeout as exc:
+        raise Problem(503, str(exc), title="Computation stopped") from None
+
+
+def answer(body, status=200, location=None):
+    """A JSON response (``body`` a dict, or JSON text already made)."""
+    response = (current_app.response_class(body, mimetype="application/json")
+                if isinstance(body, str) else jsonify(body))
+    response.status_code = status
+    if location:
+        response.headers["Location"] = location
+    return response
+
+
+def record_path(record_id, pointer):
+    """The stored file of a record named in a body; 422 (with a pointer) when unknown."""
+    path = store().path("records", record_id)
+    if path is None or not store().has("records", record_id):
+        raise Problem(422, f"no stored record with id {record_id!r}", pointer=pointer)
+    return str(path)
+
+
+def limit(value, name, pointer):
+    ceiling = current_app.config[name]
+    if value is not None and value > ceiling:
+        raise Problem(422, f"{pointer.strip('/')} may be at most {ceiling} on this service",
+                      pointer=pointer)
+
+
+# --------------------------------------------------------------------------------------------
+# meta
+
+
+@endpoint(meta, "/health", "GET", summary="Is the service up?", response=Health)
+def health():
+    return answer(Health(status="ok", version=version()).to_dict())
+
+
+@endpoint(meta, "/openapi.json", "GET", summary="This API's OpenAPI document",
+          produces=("application/json",))
+def openapi():
+    return answer(openapi_document(version()))
+
+
+# --------------------------------------------------------------------------------------------
+# records and ties
+
+
+@endpoint(records, "/records", "POST", summary="Upload a record (NetCDF, or CSV with a mapping)",
+          multipart=UPLOAD_SCHEMA, response=StoredRecord, status=201, write=True, computes=True)
+def upload_record():
+    raw, name = _upload()
+    mapping = _mapping()
+    upload_id = sha256_bytes(raw + json.dumps(mapping, sort_keys=True).encode())
+    existing = store().record_entry(upload_id)
+    if existing is not None:
+        info = store().record_info(upload_id)
+        return answer({"entry": existing, "info": info}, 200, f"/records/{upload_id}")
+    folder = store().root / "uploads"
+    with tempfile.NamedTemporaryFile(dir=folder, suffix=Path(name).suffix or ".dat",
+                                     delete=False) as handle:
+        handle.write(raw)
+    try:
+        entry, info = compute(tasks.ingest, str(store().root), handle.name, name, mapping,
+                              upload_id)
+    finally:
+        Path(handle.name).unlink(missing_ok=True)
+    return answer({"entry": entry, "info": info}, 201, f"/records/{upload_id}")
+
+
+def _upload():
+    if request.mimetype != "multipart/form-data":
+        raise Problem(415, "upload as multipart/form-data with the file in the field 'file'")
+    upload = request.files.get("file")
+    if upload is None:
+        raise Problem(422, "the form has no field 'file'", pointer="/file")
+    raw = upload.read()
+    if not raw:
+        raise Problem(422, "the uploaded file is empty", pointer="/file")
+    return raw, upload.filename or "upload"
+
+
+def _mapping():
+    text = request.form.get("mapping")
+    if not text:
+        return {}
+    try:
+        mapping = json.loads(text)
+    except json.JSONDecodeError:
+        raise Problem(422, "mapping is not valid JSON", pointer="/mapping") from None
+    if not isinstance(mapping, dict):
+        raise Problem(422, "mapping must be a JSON object", pointer="/mapping")
+    unknown = sorted(set(mapping) - MAPPING_KEYS)
+    if unknown:
+        raise Problem(422, f"unknown mapping key {unknown[0]!r}", pointer=f"/mapping/{unknown[0]}")
+    return mapping
+
+
+@endpoint(records, "/records", "GET", summary="The catalogue", response=RecordList)
+def list_records():
+    return answer({"records": store().records()})
+
+
+def _entry_or_404(record_id):
+    entry = store().record_entry(record_id)
+    if entry is None:
+        raise Problem(404, f"no stored record with id {record_id!r}")
+    return entry
+
+
+@endpoint(records, "/records/<record_id>", "GET", summary="One record: catalogue entry and "
+          "contents", response=StoredRecord)
+def get_record(record_id):
+    entry = _entry_or_404(record_id)
+    return answer({"entry": entry, "info": RecordInfo.model_validate(
+        store().record_info(record_id)).to_dict()})
+
+
+@endpoint(records, "/records/<record_id>", "DELETE", summary="Remove a record", status=204,
+          write=True)
+def delete_record(record_id):
+    _entry_or_404(record_id)
+    store().delete_record(record_id)
+    return "", 204
+
+
+@endpoint(records, "/records/<record_id>/data", "GET", summary="Download a record",
+          produces=("application/x-netcdf", "text/csv"),
+          query=({"name": "format", "schema": {"type": "string", "enum": ["netcdf", "csv"]}},))
+def record_data(record_id):
+    _entry_or_404(record_id)
+    kind = request.args.get("format", "netcdf")
+    path = store().path("records", record_id)
+    if kind == "netcdf":
+        return send_file(path, mimetype="application/x-netcdf", as_attachment=True,
+                         download_name=f"{record_id[:12]}.nc")
+    if kind == "csv":
+        from align.io import open_record, record_to_csv
+
+        response = current_app.response_class(record_to_csv(open_record(path)),
+                                              mimetype="text/csv")
+        response.headers["Content-Disposition"] = f"attachment; filename={record_id[:12]}.csv"
+        return response
+    raise Problem(422, "format is netcdf or csv", pointer="/format")
+
+
+@endpoint(records, "/ties", "POST", summary="Upload a tie table", multipart=TIES_SCHEMA,
+          response=StoredTies, status=201, write=True)
+def upload_ties():
+    raw, name = _upload()
+    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
+                                     delete=False) as handle:
+        handle.write(raw)
+    try:
+        ties = read_ties(handle.name)
+    except InputError as exc:
+        raise exc.with_source(name) from None
+    finally:
+        Path(handle.name).unlink(missing_ok=True)
+    object_id = store().add_ties(raw, ties)
+    return answer({"id": object_id, "labels": list(ties.labels), "ref_kind": ties.ref_kind,
+                   "checksum": object_id}, 201, f"/ties/{object_id}")
+
+
+# --------------------------------------------------------------------------------------------
+# analyses
+
+
+@endpoint(analysis, "/detect/event", "POST", summary="Find an event", body=EventRequest,
+          response=EventResult, computes=True)
+def detect_event(body):
+    path = record_path(body.record, "/record")
+    return answer(compute(tasks.detect_event, body.model_dump(), path))
+
+
+@endpoint(analysis, "/detect/onset", "POST", summary="Fit a transition onset",
+          body=OnsetRequest, response=OnsetResult, computes=True)
+def detect_onset(body):
+    limit(body.draws, "MAX_DRAWS", "/draws")
+    path = record_path(body.record, "/record")
+    return answer(compute(tasks.detect_onset, body.model_dump(), path))
+
+
+@endpoint(analysis, "/xcorr", "POST", summary="Cross-correlate two records",
+          body=XcorrRequest, response=XcorrResult, computes=True)
+def xcorr(body):
+    limit(body.surrogates, "MAX_SURROGATES", "/surrogates")
+    limit(body.bootstrap, "MAX_SURROGATES", "/bootstrap")
+    path_a = record_path(body.a.record, "/a/record")
+    path_b = record_path(body.b.record, "/b/record")
+    return answer(compute(tasks.xcorr, body.model_dump(), path_a, path_b))
+
+
+@endpoint(analysis, "/resample", "POST", summary="Resample a record onto a regular grid",
+          body=ResampleRequest, response=GridSummary, computes=True)
+def resample(body):
+    path = record_path(body.record, "/record")
+    entry = store().record_entry(body.record)
+    span = entry["age_range"] if body.along == "age" else entry["depth_range"]
+    if span is None:
+        raise Problem(422, f"the record has no {body.along}", pointer="/along")
+    if body.step is not None:
+        cells = ((body.stop if body.stop is not None else span[1])
+                 - (body.start if body.start is not None else span[0])) / body.step
+        limit(cells, "MAX_CELLS", "/step")
+    grid_file = store().root / "uploads" / f"{sha256_bytes(body.model_dump_json().encode())}.nc"
+    try:
+        summary = compute(tasks.resample, body.model_dump(), path, str(grid_file))
+        result_id = store().add_result("grid", summary)
+    finally:
+        grid_file.unlink(missing_ok=True)
+    return answer(summary, location=f"/results/{result_id}")
+
+
+@endpoint(analysis, "/lag", "POST", summary="The lag between two markers, with its budget",
+          body=LagRequest, response=LagResult, computes=True)
+def lag(body):
+    limit(body.draws, "MAX_DRAWS", "/draws")
+    paths = {}
+    for side in ("a", "b"):
+        spec = getattr(body, side)
+        limit(spec.draws, "MAX_DRAWS", f"/{side}/draws")
+        paths[spec.record] = record_path(spec.record, f"/{side}/record")
+    if body.ties is not None:
+        paths[body.ties] = _ties_path(body.ties, "/ties")
+    text = compute(tasks.lag, body.model_dump(), paths)
+    report_id = store().add_result("lag", text)
+    return answer(text, location=f"/reports/{report_id}")
+
+
+@endpoint(analysis, "/survey", "POST", summary="Lags of many marker pairs, combined",
+          body=SurveySpec, response=SurveyResult, computes=True)
+def survey(body):
+    if not body.pairs:
+        raise Problem(422, "the service takes surveys as explicit pairs of stored records",
+                      pointer="/pairs")
+    limit(body.draws, "MAX_DRAWS", "/draws")
+    limit(len(body.pairs), "MAX_PAIRS", "/pairs")
+    paths = {}
+    for k, pair in enumerate(body.pairs):
+        for side in ("a", "b"):
+            spec = getattr(pair, side)
+            paths[spec.record] = record_path(spec.record, f"/pairs/{k}/{side}/record")
+    if body.ties is not None:
+        paths[body.ties] = _ties_path(body.ties, "/ties")
+    text = compute(tasks.survey, body.model_dump(), paths)
+    report_id = store().add_result("survey", text)
+    return answer(text, location=f"/reports/{report_id}")
+
+
+def _ties_path(ties_id, pointer):
+    if not store().has("ties", ties_id):
+        raise Problem(422, f"no stored tie table with id {ties_id!r}", pointer=pointer)
+    return str(store().path("ties", ties_id))
+
+
+# --------------------------------------------------------------------------------------------
+# reports
+
+
+def _report_folder(report_id):
+    if store().result_kind(report_id) not in ("lag", "survey"):
+        raise Problem(404, f"no lag or survey result with id {report_id!r}")
+    folder = store().report_folder(report_id)
+    if not (folder / "report.html").exists():
+        compute(tasks.render_report, str(store().path("results", report_id)), str(folder))
+    return folder
+
+
+@endpoint(reports, "/reports/<report_id>", "GET", summary="A stored result (report.json)",
+          produces=("application/json",))
+def report_json(report_id):
+    if store().result_kind(report_id) not in ("lag", "survey"):
+        raise Problem(404, f"no lag or survey result with id {report_id!r}")
+    return send_file(store().path("results", report_id), mimetype="application/json")
+
+
+@endpoint(reports, "/reports/<report_id>.html", "GET", summary="The report as one HTML page",
+          produces=("text/html",), computes=True)
+def report_html(report_id):
+    return send_file(_report_folder(report_id) / "report.html", mimetype="text/html")
+
+
+@endpoint(reports, "/reports/<report_id>/figures/<name>", "GET", summary="A report figure",
+          produces=("image/svg+xml", "image/png"), computes=True)
+def report_figure(report_id, name):
+    folder = _report_folder(report_id)
+    path = folder / name
+    if "/" in name or path.suffix not in (".svg", ".png") or not path.is_file():
+        raise Problem(404, f"no figure {name!r} in this report")
+    return send_file(path, mimetype="image/svg+xml" if path.suffix == ".svg" else "image/png")

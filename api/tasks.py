@@ -1,0 +1,120 @@
+"""The service's computations, run in worker processes (:mod:`api.compute`).
+
+Each task reads stored objects by path, calls the library, and returns its ``to_dict()`` --
+the same the library and the CLI give -- as JSON text (cheaper to send back from a worker
+than the nested dict).
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+from pathlib import Path
+
+from align.describe import describe_grid
+from align.io import open_record, save_grid
+from align.lag import Sources, estimate_lag
+
+
+def _json(result):
+    return json.dumps(result.to_dict())
+
+
+class StoreSources(Sources):
+    """Records and ties named by their store ids (mapped to paths by the route)."""
+
+    def __init__(self, paths):
+        super().__init__()
+        self.paths = dict(paths)
+
+    def record(self, spec):
+        return open_record(self.paths[spec.record])
+
+    def ties(self, name):
+        from align.ties import read_ties
+
+        return read_ties(self.paths[name])
+
+
+def ingest(root, path, name, mapping, upload_id):
+    """Read and validate an upload, store it; returns (catalogue entry, RecordInfo dict)."""
+    from align.describe import describe_record
+    from align.errors import InputError
+    from api.store import Store
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            record = open_record(path, **mapping)
+    except InputError as exc:
+        raise exc.with_source(name) from None
+    record.attrs["source"] = name
+    info = describe_record(record)
+    entry, _ = Store(root).add_record(upload_id, record, info)
+    return entry, info.to_dict()
+
+
+def lag(request, paths):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return _json(estimate_lag(request, sources=StoreSources(paths)))
+
+
+def detect_event(body, path):
+    from align.detect import detect_event as run
+
+    options = {k: v for k, v in body.items() if k not in ("record", "variable", "window")}
+    return _json(run(open_record(path), body["variable"], body.get("window"), **options))
+
+
+def detect_onset(body, path):
+    from align.detect import detect_onset as run
+
+    options = {k: v for k, v in body.items() if k not in ("record", "variable", "window")}
+    return _json(run(open_record(path), body["variable"], body["window"], **options))
+
+
+def xcorr(body, path_a, path_b):
+    from align.xcorr import cross_correlate
+
+    options = {k: v for k, v in body.items() if k not in ("a", "b", "max_lag")}
+    return _json(cross_correlate((open_record(path_a), body["a"]["variable"]),
+                                 (open_record(path_b), body["b"]["variable"]), body["max_lag"],
+                                 **options))
+
+
+def resample(body, path, out_path):
+    from align.resample import resample as run
+
+    options = {k: v for k, v in body.items() if k not in ("record", "step")}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        grid = run(open_record(path), body.get("step"), **options)
+    save_grid(grid, out_path, history="written by the corealign service")
+    return _json(describe_grid(grid))
+
+
+def survey(spec, paths):
+    from align.survey import survey as run
+
+    return _json(run(spec, sources=StoreSources(paths)))
+
+
+def render_report(result_path, folder):
+    """Render a stored result's report into ``folder`` (a new folder, renamed into place)."""
+    import shutil
+    import tempfile
+
+    from align.report import load_result, write_report
+
+    folder = Path(folder)
+    staging = Path(tempfile.mkdtemp(prefix=".report-", dir=folder.parent))
+    try:
+        write_report(load_result(result_path), staging)
+        staging.rename(folder)
+    except FileExistsError:
+        shutil.rmtree(staging, ignore_errors=True)  # rendered meanwhile by another request
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return json.loads((folder / "report.json").read_text())
