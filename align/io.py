@@ -233,6 +233,20 @@ def atomic_write(path, write):
     return path
 
 
+def read_json(path, what="file"):
+    """Parse a JSON file; a missing file is 404, bad JSON 400 (as :class:`InputError`)."""
+    import json
+
+    path = Path(path)
+    try:
+        return json.loads(path.read_text())
+    except FileNotFoundError:
+        raise InputError(f"no such {what}", source=str(path), status=404) from None
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        reason = f"{exc.msg}, line {exc.lineno}" if hasattr(exc, "lineno") else str(exc)
+        raise InputError(f"not valid JSON ({reason})", source=str(path), status=400) from None
+
+
 def record_to_frame(record):
     """The record as a flat table: depth/age mid-points and bounds, uncertainty, proxies."""
     columns = {}

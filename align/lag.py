@@ -12,7 +12,6 @@ and the what-if intervals come from the same draws.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -20,11 +19,11 @@ import numpy as np
 
 from align.detect import detect_marker
 from align.errors import InputError
-from align.io import open_record
+from align.io import open_record, read_json
 from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
 from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
 from align.schema import (BudgetItem, Histogram, LagFigures, LagRequest, LagResult, LagSummary,
-                          MarkerSpec, RecordExcerpt, WhatIf)
+                          MarkerSpec, RecordExcerpt, WhatIf, validate_as)
 from align.ties import bridge_variance, read_ties, transfer
 from align.timescale import ensemble_at, error_covariance, mce_covariance
 
@@ -71,15 +70,8 @@ def lag_request(a, b=None, **options):
     """
     base, loaded = None, {}
     if isinstance(a, (str, Path)) and b is None:
-        path = Path(a)
-        try:
-            a = json.loads(path.read_text())
-        except FileNotFoundError:
-            raise InputError("no such request file", source=str(path), status=404) from None
-        except json.JSONDecodeError as exc:
-            raise InputError(f"not valid JSON ({exc.msg}, line {exc.lineno})", source=str(path),
-                             status=400) from None
-        base = path.parent
+        base = Path(a).parent
+        a = read_json(a, "request file")
     if isinstance(a, LagRequest):
         body = a.model_dump()
     elif isinstance(a, dict) and "a" in a and b is None:
@@ -98,15 +90,7 @@ def lag_request(a, b=None, **options):
             record.attrs.setdefault("source", name)
             loaded[name] = record
             body[key] = {**spec, "record": name}
-    from pydantic import ValidationError
-
-    try:
-        request = LagRequest.model_validate(body)
-    except ValidationError as exc:
-        first = exc.errors()[0]
-        raise InputError(first["msg"], field=".".join(map(str, first["loc"])), status=422,
-                         source=str(base / "request") if base else None) from None
-    return request, Sources(base, loaded)
+    return validate_as(LagRequest, body), Sources(base, loaded)
 
 
 # --------------------------------------------------------------------------------------------

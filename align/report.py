@@ -15,12 +15,11 @@ import json
 from pathlib import Path
 
 import matplotlib.pyplot as plt
-from pydantic import ValidationError
 
 from align.errors import InputError
 from align.figures import AGE_NOTE, STYLE, lag_figures, survey_figure
-from align.io import atomic_write
-from align.schema import LagResult, SurveyResult
+from align.io import atomic_write, read_json
+from align.schema import LagResult, SurveyResult, validate_as
 
 FORMATS = ("html", "md", "json")
 REFERENCES = {
@@ -61,24 +60,16 @@ CAPTIONS = {
 
 def load_result(path):
     """Read a saved result (``report.json`` or ``--json`` output) as a result object."""
-    path = Path(path)
-    try:
-        data = json.loads(path.read_text())
-    except FileNotFoundError:
-        raise InputError("no such result file", source=str(path), status=404) from None
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise InputError(f"not a JSON result ({exc})", source=str(path), status=400) from None
+    data = read_json(path, "result file")
     if not isinstance(data, dict):
         raise InputError("not a lag or survey result (expected a JSON object)",
                          source=str(path))
     model = SurveyResult if "pairs" in data else LagResult
     try:
-        return model.model_validate(data)
-    except ValidationError as exc:
-        first = exc.errors()[0]
-        where = ".".join(map(str, first["loc"])) or "result"
-        raise InputError(f"not a {model.__name__}: {first['msg']}", source=str(path),
-                         field=where) from None
+        return validate_as(model, data, source=str(path))
+    except InputError as exc:
+        raise InputError(f"not a {model.__name__}: {exc.message}", source=str(path),
+                         field=exc.field or "result") from None
 
 
 def write_report(result, directory, formats=FORMATS):

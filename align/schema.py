@@ -405,6 +405,21 @@ class LagResult(Model):
     _draws: Any = PrivateAttr(default=None)
 
 
+def validate_as(model, data, *, source=None):
+    """``model.model_validate(data)`` with the first problem raised as an
+    :class:`~align.errors.InputError` that names the offending field."""
+    from pydantic import ValidationError
+
+    from align.errors import InputError
+
+    try:
+        return model.model_validate(data)
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        where = ".".join(map(str, first["loc"])) or None
+        raise InputError(first["msg"], source=source, field=where) from None
+
+
 def json_schemas(models):
     """JSON Schemas of ``models`` with references into ``#/components/schemas`` (OpenAPI)."""
     from pydantic.json_schema import models_json_schema

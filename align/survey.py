@@ -17,7 +17,6 @@ Cochran, W. G. (1954), Biometrics 10, 101-129, doi:10.2307/3001666.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
@@ -28,29 +27,18 @@ from align.ages import convert_age
 from align.errors import InputError
 from align.lag import CAUTION, Sources, estimate_lag, lag_summary
 from align.provenance import provenance, resolve_seed, sha256_file
-from align.schema import Heterogeneity, PairSpec, SurveyPair, SurveyResult, SurveySpec
+from align.io import read_json
+from align.schema import (Heterogeneity, PairSpec, SurveyPair, SurveyResult, SurveySpec,
+                          validate_as)
 
 
 def survey_spec(spec):
     """A validated :class:`SurveySpec` and the folder its relative paths resolve against."""
     base = None
     if isinstance(spec, (str, Path)):
-        path = Path(spec)
-        try:
-            spec = json.loads(path.read_text())
-        except FileNotFoundError:
-            raise InputError("no such survey file", source=str(path), status=404) from None
-        except json.JSONDecodeError as exc:
-            raise InputError(f"not valid JSON ({exc.msg}, line {exc.lineno})", source=str(path),
-                             status=400) from None
-        base = path.parent
-    from pydantic import ValidationError
-
-    try:
-        spec = spec if isinstance(spec, SurveySpec) else SurveySpec.model_validate(spec)
-    except ValidationError as exc:
-        first = exc.errors()[0]
-        raise InputError(first["msg"], field=".".join(map(str, first["loc"]))) from None
+        base = Path(spec).parent
+        spec = read_json(spec, "survey file")
+    spec = spec if isinstance(spec, SurveySpec) else validate_as(SurveySpec, spec)
     if not spec.pairs and not (spec.table and spec.a and spec.b):
         raise InputError("a survey needs 'pairs', or a 'table' with 'a' and 'b'", field="pairs")
     return spec, base

@@ -13,7 +13,6 @@ from __future__ import annotations
 import json
 import sys
 import tempfile
-import time
 import warnings
 from pathlib import Path
 
@@ -21,19 +20,9 @@ import requests
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from _timing import report  # noqa: E402
+from _timing import best_time, report  # noqa: E402
 from align.lag import estimate_lag  # noqa: E402
 from conftest import RECORDS, Server  # noqa: E402
-
-
-def best(fn, repeat):
-    fn()
-    times = []
-    for _ in range(repeat):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return min(times)
 
 
 def main():
@@ -60,9 +49,9 @@ def main():
                       "b": {**request["b"], "record": ids[request["b"]["record"]]}}
             if request.get("ties"):
                 served["ties"] = ids[request["ties"]]
-            in_process = best(lambda: estimate_lag(local), 5)
+            in_process = best_time(lambda: estimate_lag(local), 5)
             with requests.Session() as session:  # a client that keeps its connection
-                over_http = best(lambda: session.post(server.url + "/lag", json=served,
+                over_http = best_time(lambda: session.post(server.url + "/lag", json=served,
                                                       timeout=120).raise_for_status(), 5)
             report(f"service vs in-process, {label}", over_http, in_process, limit=1.3)
     finally:
