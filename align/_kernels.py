@@ -8,7 +8,7 @@ Imported lazily (``import align._kernels`` compiles or loads from the on-disk ca
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 
 @njit(cache=True, nogil=True)
@@ -209,7 +209,7 @@ def _vertex(t0, t1, t2, s0, s1, s2):
 STARTS = 4
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@njit(cache=True, nogil=True)
 def ramp_search(t, w, X, sign, step, min_plateau):
     """Least-squares ramp fits (Mudelsee 2000) of many series on one irregular time axis.
 
@@ -259,7 +259,7 @@ def ramp_search(t, w, X, sign, step, min_plateau):
     hi_j = n - min_plateau
     if hi_j <= lo_i:
         return out
-    for r in prange(B):
+    for r in range(B):
         Pwx = np.zeros(n + 1)
         Pwtx = np.zeros(n + 1)
         sxx = 0.0

@@ -383,11 +383,20 @@ def _onset_trace(bounds, values, window, fit, samples):
                  band_low=lo.tolist(), band_high=hi.tolist())
 
 
+#: Options a marker spec may carry, by kind.
+MARKER_OPTIONS = {"event": ("threshold", "baseline_years", "pick", "direction"),
+                  "onset": ("direction", "method", "draws")}
+
+
 def detect_marker(record, spec, *, seed=None, age_reference=None):
     """Detect the marker a request describes (``spec``: kind, variable, window, options)."""
     options = {k: v for k, v in spec.items() if k not in ("kind", "record", "variable",
                                                           "window", "mapping")
                and v is not None}
+    wrong = sorted(set(options) - set(MARKER_OPTIONS[spec["kind"]]))
+    if wrong:
+        raise InputError(f"{wrong[0]!r} is not an option of an {spec['kind']} marker "
+                         f"(options: {', '.join(MARKER_OPTIONS[spec['kind']])})", field=wrong[0])
     if spec["kind"] == "event":
         return detect_event(record, spec["variable"], spec["window"],
                             age_reference=age_reference, **options)

@@ -14,6 +14,8 @@ Mudelsee, M. (2000), Computers & Geosciences 26, 293-307, doi:10.1016/S0098-3004
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -21,6 +23,8 @@ from scipy.optimize import minimize
 
 #: Samples required on each plateau of a fitted ramp.
 MIN_PLATEAU = 2
+#: Threads that share a bootstrap's refits (the machine's cores).
+THREADS = max(1, os.cpu_count() or 1)
 
 
 def ramp(t, t1, t2, x1, x2):
@@ -163,5 +167,10 @@ def bootstrap_ramps(t, w, fitted, replicates, sign=0):
     from align._kernels import ramp_search
 
     step = max(1, t.size // 30)
-    out = ramp_search(t, w, fitted[None, :] + replicates, int(sign), step, MIN_PLATEAU)
-    return out[:, :4]
+    series = fitted[None, :] + replicates
+    # the compiled search releases the GIL: one thread per core, each on a share of the rows
+    shares = np.array_split(np.arange(series.shape[0]), min(THREADS, series.shape[0]))
+    with ThreadPoolExecutor(max_workers=len(shares)) as pool:
+        parts = pool.map(lambda rows: ramp_search(t, w, series[rows], int(sign), step,
+                                                  MIN_PLATEAU), shares)
+        return np.vstack(list(parts))[:, :4]

@@ -35,7 +35,7 @@ from scipy.stats import truncnorm
 
 from align.errors import InputError
 from align.provenance import resolve_seed
-from align.record import MEMBER, SAMPLE, add_history, uncertainty_kind
+from align.record import MEMBER, SAMPLE, uncertainty_kind
 
 MODELS = ("correlated", "random-walk")
 #: Samples per independently seeded block of a lazily drawn ensemble (and per dask chunk):
@@ -187,16 +187,6 @@ def age_ensemble(record, members=1000, *, seed=None, model="correlated"):
                         name="age_ensemble",
                         attrs={"units": "yr", "long_name": "age ensemble member",
                                "seed": seed, "model": model})
-
-
-def with_ensemble(record, members=1000, *, seed=None, model="correlated"):
-    """Return the record with an ``age_ensemble`` variable drawn by :func:`age_ensemble`."""
-    ensemble = age_ensemble(record, members, seed=seed, model=model)
-    out = record.copy()
-    out["age_ensemble"] = ensemble.drop_vars("age").compute()
-    add_history(out, f"{members}-member age ensemble drawn ({model} model, seed "
-                     f"{ensemble.attrs['seed']})")
-    return out
 
 
 def _counted_members(record, members, seed, model):
