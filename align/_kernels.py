@@ -337,15 +337,20 @@ def ramp_search(t, w, X, sign, step, min_plateau):
 
 
 @njit(cache=True, nogil=True)
-def ar1_recursion(innovations, a):
-    """In place: ``e[r, i] += a[r, i] e[r, i - 1]`` along each row (an AR(1) filter)."""
-    rows, n = innovations.shape
+def ar1_series(z, dt, tau, sd):
+    """In place: turn standard normals ``z`` (series, n) into stationary AR(1) noise.
+
+    ``e_0 = sd z_0``, ``e_i = a_i e_{i-1} + sd sqrt(1 - a_i^2) z_i`` with
+    ``a_i = exp(-dt_{i-1} / tau)`` per series (``tau <= 0``: white noise).
+    """
+    rows, n = z.shape
     for r in range(rows):
+        s = sd[r]
+        z[r, 0] *= s
         for i in range(1, n):
-            innovations[r, i] += a[r, i] * innovations[r, i - 1]
-    return innovations
-
-
+            a = np.exp(-dt[i - 1] / tau[r]) if tau[r] > 0.0 else 0.0
+            z[r, i] = a * z[r, i - 1] + s * np.sqrt(1.0 - a * a) * z[r, i]
+    return z
 @njit(cache=True, nogil=True)
 def ramp_levels(t, x, w, t1, t2):
     """Weighted least-squares levels and SSR of the ramp with corners ``t1 <= t2``.

@@ -283,7 +283,7 @@ def _bootstrap(t, x, w, sign, draws, rng):
     a = ar1_persistence(t, resid)
     sd = residual_sd(resid, w, a)
     a, sd, a_draws, sd_draws = _noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
-    tau_draws = np.array([persistence_time(t, ak) for ak in a_draws])
+    tau_draws = persistence_time(t, a_draws)
     samples = bootstrap_ramps(t, w, fitted, simulate_ar1(t, tau_draws, sd_draws, draws, rng),
                               sign)
     samples = samples[np.all(np.isfinite(samples), axis=1)]

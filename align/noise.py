@@ -61,23 +61,13 @@ def ar1_persistence(t, r):
 
 
 def persistence_time(t, a):
-    """Persistence time ``tau = -d / ln a`` (yr) of coefficient ``a`` at the mean spacing
-    ``d`` of ``t`` (0 for white noise)."""
+    """Persistence time ``tau = -d / ln a`` (yr) of coefficient(s) ``a`` at the mean spacing
+    ``d`` of ``t`` (0 for white noise, ``a <= 0.001``)."""
     d = float(np.diff(t).mean())
-    return float(-d / np.log(a)) if a > 1e-3 else 0.0
-
-
-def ar1_coefficients(t, tau):
-    """Coefficients ``a_i = exp(-(t_i - t_{i-1}) / tau)`` (``a_0`` unused, set to 0).
-
-    ``tau`` may be an array (one persistence per series): the result is then (series, n).
-    """
-    dt = np.diff(np.asarray(t, dtype=float))
-    tau = np.asarray(tau, dtype=float)
+    a = np.asarray(a, dtype=float)
     with np.errstate(divide="ignore"):
-        a = np.where(tau[..., None] > 0, np.exp(-dt / np.where(tau > 0, tau, 1.0)[..., None]),
-                     0.0)
-    return np.concatenate([np.zeros(a.shape[:-1] + (1,)), a], axis=-1)
+        tau = np.where(a > 1e-3, -d / np.log(np.where(a > 1e-3, a, 0.5)), 0.0)
+    return float(tau) if tau.ndim == 0 else tau
 
 
 def simulate_ar1(t, tau, sd, size, rng):
@@ -100,12 +90,13 @@ def simulate_ar1(t, tau, sd, size, rng):
     numpy.ndarray (size, n)
         ``e_0 ~ N(0, sd^2)``, ``e_i = a_i e_{i-1} + N(0, sd^2 (1 - a_i^2))``.
     """
-    from align._kernels import ar1_recursion
+    from align._kernels import ar1_series
 
-    a = np.broadcast_to(ar1_coefficients(t, tau), (size, len(t)))
-    sd = np.broadcast_to(np.asarray(sd, dtype=float), (size,))[:, None]
-    innovations = rng.standard_normal((size, len(t))) * (sd * np.sqrt(1.0 - a**2))
-    return ar1_recursion(innovations, np.ascontiguousarray(a))
+    tau = np.broadcast_to(np.asarray(tau, dtype=float), (size,))
+    sd = np.broadcast_to(np.asarray(sd, dtype=float), (size,))
+    z = rng.standard_normal((size, len(t)))
+    return ar1_series(z, np.diff(np.asarray(t, dtype=float)), np.ascontiguousarray(tau),
+                      np.ascontiguousarray(sd))
 
 
 def lag1_autocorrelation(x):

@@ -17,6 +17,7 @@ from __future__ import annotations
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy.optimize import minimize
@@ -168,9 +169,13 @@ def bootstrap_ramps(t, w, fitted, replicates, sign=0):
 
     step = max(1, t.size // 30)
     series = fitted[None, :] + replicates
-    # the compiled search releases the GIL: one thread per core, each on a share of the rows
-    shares = np.array_split(np.arange(series.shape[0]), min(THREADS, series.shape[0]))
-    with ThreadPoolExecutor(max_workers=len(shares)) as pool:
-        parts = pool.map(lambda rows: ramp_search(t, w, series[rows], int(sign), step,
-                                                  MIN_PLATEAU), shares)
-        return np.vstack(list(parts))[:, :4]
+    # the compiled search releases the GIL: one thread per core, each on a block of rows
+    edges = np.linspace(0, series.shape[0], min(THREADS, series.shape[0]) + 1).astype(int)
+    parts = _pool().map(lambda k: ramp_search(t, w, series[edges[k]:edges[k + 1]], int(sign),
+                                              step, MIN_PLATEAU), range(edges.size - 1))
+    return np.vstack(list(parts))[:, :4]
+
+
+@lru_cache(maxsize=1)
+def _pool():
+    return ThreadPoolExecutor(max_workers=THREADS, thread_name_prefix="corealign-ramp")

@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from align._kernels import interp_sorted, place_between_ties
+from align._kernels import ar1_series, interp_sorted, place_between_ties
 from align.ties import bridge_variance, tie_variance
 
 
@@ -37,3 +37,18 @@ def test_place_between_ties_equals_the_formulas():
                             tie_age[k + 1], 3.0)
     beyond = 3.0 * (np.clip(tie_age[0] - ages, 0, None) + np.clip(ages - tie_age[-1], 0, None))
     np.testing.assert_allclose(var_bridge, inner + beyond, rtol=1e-12, atol=1e-9)
+
+
+def test_ar1_series_equals_the_recursion():
+    rng = np.random.default_rng(3)
+    t = np.sort(rng.uniform(0, 100, 60))
+    z = rng.standard_normal((4, 60))
+    tau = np.array([0.0, 2.0, 10.0, 50.0])
+    sd = np.array([1.0, 0.5, 2.0, 3.0])
+    expected = np.empty_like(z)
+    for r in range(4):
+        expected[r, 0] = sd[r] * z[r, 0]
+        for i in range(1, 60):
+            a = np.exp(-(t[i] - t[i - 1]) / tau[r]) if tau[r] > 0 else 0.0
+            expected[r, i] = a * expected[r, i - 1] + sd[r] * np.sqrt(1 - a * a) * z[r, i]
+    np.testing.assert_allclose(ar1_series(z.copy(), np.diff(t), tau, sd), expected, rtol=1e-12)
