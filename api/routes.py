@@ -258,10 +258,19 @@ def resample(body):
     grid_file = store().root / "uploads" / f"{sha256_bytes(body.model_dump_json().encode())}.nc"
     try:
         summary = compute(tasks.resample, body.model_dump(), path, str(grid_file))
-        result_id = store().add_result("grid", summary)
+        grid_id = store().add_grid(grid_file)
     finally:
         grid_file.unlink(missing_ok=True)
-    return answer(summary, location=f"/results/{result_id}")
+    return answer(summary, location=f"/grids/{grid_id}")
+
+
+@endpoint(analysis, "/grids/<grid_id>", "GET", summary="Download a grid made by /resample "
+          "(CF NetCDF)", produces=("application/x-netcdf",))
+def grid_data(grid_id):
+    if not store().has("grids", grid_id):
+        raise Problem(404, f"no stored grid with id {grid_id!r}")
+    return send_file(store().path("grids", grid_id), mimetype="application/x-netcdf",
+                     as_attachment=True, download_name=f"grid-{grid_id[:12]}.nc")
 
 
 @endpoint(analysis, "/lag", "POST", summary="The lag between two markers, with its budget",

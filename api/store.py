@@ -7,6 +7,7 @@ Layout under the data folder::
     objects/records/<id>.nc    canonical CF NetCDF of each record
     objects/ties/<id>.csv      tie tables as uploaded
     objects/results/<id>.json  results of analyses
+    objects/grids/<id>.nc      common grids made by /resample (CF NetCDF)
     reports/<id>/              rendered report folders (made on demand)
 
 Every write is atomic: the file goes to a temporary name, is flushed to disk and renamed;
@@ -26,7 +27,7 @@ from pathlib import Path
 from align.provenance import sha256_bytes, utc_now
 
 ID = re.compile(r"^[0-9a-f]{64}$")
-KINDS = {"records": ".nc", "ties": ".csv", "results": ".json"}
+KINDS = {"records": ".nc", "ties": ".csv", "results": ".json", "grids": ".nc"}
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS records (
@@ -38,6 +39,8 @@ CREATE TABLE IF NOT EXISTS ties (
     id TEXT PRIMARY KEY, labels TEXT NOT NULL, ref_kind TEXT NOT NULL, created TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS results (
     id TEXT PRIMARY KEY, kind TEXT NOT NULL, created TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS grids (
+    id TEXT PRIMARY KEY, created TEXT NOT NULL);
 """
 
 
@@ -187,6 +190,16 @@ class Store:
         with self.connect() as db:
             db.execute("INSERT OR IGNORE INTO results VALUES (?, ?, ?)",
                        (object_id, kind, utc_now()))
+        return object_id
+
+    def add_grid(self, path):
+        """Store a grid file (moved in from ``path``); returns its id (the hash of its bytes)."""
+        import shutil
+
+        object_id = sha256_bytes(Path(path).read_bytes())
+        self._put("grids", object_id, lambda tmp: shutil.copyfile(path, tmp))
+        with self.connect() as db:
+            db.execute("INSERT OR IGNORE INTO grids VALUES (?, ?)", (object_id, utc_now()))
         return object_id
 
     def result_kind(self, object_id):

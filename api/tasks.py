@@ -117,4 +117,3 @@ def render_report(result_path, folder):
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
-    return json.loads((folder / "report.json").read_text())

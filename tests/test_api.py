@@ -146,7 +146,9 @@ def test_analyses_and_reports(client):
     assert onset.status_code == 200 and onset.json["kind"] == "onset"
     grid = client.post("/resample", json={"record": ice, "step": 10})
     assert grid.status_code == 200 and grid.json["cells"] > 100
-    assert grid.headers["Location"].startswith("/results/")
+    netcdf = client.get(grid.headers["Location"])
+    assert netcdf.status_code == 200 and netcdf.mimetype == "application/x-netcdf"
+    assert netcdf.data[:4] in (b"CDF\x01", b"\x89HDF")
     xcorr = client.post("/xcorr", json={"a": {"record": ice, "variable": "d18O"},
                                         "b": {"record": lake, "variable": "d18O"},
                                         "max_lag": 200, "surrogates": 50, "seed": 1})
