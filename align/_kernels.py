@@ -91,6 +91,20 @@ def interp_sorted(x, xp, fp, out):
             out[i] = fp[j] + (v - xp[j]) * slope[j]
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _add_overlap(cell, i, overlap, width, values, integral, covered, count, width_sum,
+                 width_count):
+    """Add sample ``i`` (interval length ``width``) to ``cell`` over ``overlap``."""
+    width_sum[cell] += width
+    width_count[cell] += 1
+    for k in range(values.shape[1]):
+        v = values[i, k]
+        if v == v:
+            integral[cell, k] += v * overlap
+            covered[cell, k] += overlap
+            count[cell, k] += 1
+
+
 @njit(cache=True, nogil=True)
 def overlap_sums(lo, hi, values, edges):
     """Integrate piecewise-constant samples over grid cells, exactly, in one merge pass.
@@ -140,28 +154,15 @@ def overlap_sums(lo, hi, values, edges):
         if c == m:
             break
         if edges[c] <= a and b <= edges[c + 1]:  # the common case: inside one cell
-            width = b - a
-            width_sum[c] += width
-            width_count[c] += 1
-            for k in range(nv):
-                v = values[i, k]
-                if v == v:
-                    integral[c, k] += v * width
-                    covered[c, k] += width
-                    count[c, k] += 1
+            _add_overlap(c, i, b - a, b - a, values, integral, covered, count, width_sum,
+                         width_count)
             continue
         j = c
         while j < m and edges[j] < b:
             overlap = min(b, edges[j + 1]) - max(a, edges[j])
             if overlap > 0.0:
-                width_sum[j] += b - a
-                width_count[j] += 1
-                for k in range(nv):
-                    v = values[i, k]
-                    if v == v:
-                        integral[j, k] += v * overlap
-                        covered[j, k] += overlap
-                        count[j, k] += 1
+                _add_overlap(j, i, overlap, b - a, values, integral, covered, count,
+                             width_sum, width_count)
             j += 1
     return integral, covered, count, width_sum, width_count, ordered
 

@@ -159,10 +159,11 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     marker_b = _located(detect_marker(rec_b, request.b.model_dump(), seed=seed_b), "b")
     rng = np.random.default_rng(seed_mc)
     n = request.draws
-    center = _center(marker_a) - _center(marker_b)
+    age_a, age_b = _center(marker_a), _center(marker_b)
+    center = age_a - age_b
     parts = (_marker_parts(marker_a, "a", +1.0, n, rng) + _marker_parts(marker_b, "b", -1.0, n, rng)
-             + _timescale_parts(relation, rec_a, rec_b, marker_a, marker_b,
-                                request.timescale_model, n, rng))
+             + _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request.timescale_model,
+                                n, rng))
     lag = center + sum(p.draws for p in parts)
     result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
                      tie_table, seed)
@@ -219,8 +220,8 @@ def _relation(rec_a, rec_b):
     return "shared timescale" if same_scale else "independent"
 
 
-def _timescale_parts(relation, rec_a, rec_b, marker_a, marker_b, model, n, rng):
-    age_a, age_b = _center(marker_a), _center(marker_b)
+def _timescale_parts(relation, rec_a, rec_b, age_a, age_b, model, n, rng):
+    """Timescale, tie and bridge errors at the markers' central ages ``age_a``, ``age_b``."""
     if relation in ("same record", "same timescale"):
         return _within_one(rec_a, age_a, age_b, model, n, rng,
                            "timescale: error between the two markers")

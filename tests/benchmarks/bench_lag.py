@@ -38,8 +38,8 @@ def monte_carlo_case():
         rng = np.random.default_rng(3)
         parts = (lagmod._marker_parts(marker_a, "a", 1.0, n, rng)
                  + lagmod._marker_parts(marker_b, "b", -1.0, n, rng)
-                 + lagmod._timescale_parts("tied", rec_a, rec_b, marker_a, marker_b,
-                                           "correlated", n, rng))
+                 + lagmod._timescale_parts("tied", rec_a, rec_b, lagmod._center(marker_a),
+                                           lagmod._center(marker_b), "correlated", n, rng))
         lag = lagmod._center(marker_a) - lagmod._center(marker_b) + sum(p.draws for p in parts)
         return np.percentile(lag, [2.5, 50, 97.5]), [np.var(p.draws) for p in parts]
 
