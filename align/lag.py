@@ -115,7 +115,7 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     ----------
     a, b : MarkerSpec or dict, or a whole request in ``a``
         See :func:`lag_request` (a request dict, a :class:`LagRequest`, or the path of a
-        request JSON as in PRODUCT.md section 3).
+        request JSON (README, "Library").
     ties : str, optional
         Tie table between ``b`` (``depth``) and ``a`` (``ref_depth``/``ref_age``); ``b``'s
         record is moved onto ``a``'s timescale through it.

@@ -294,7 +294,7 @@ class XcorrResult(Model):
 
 
 class MarkerSpec(Model):
-    """Which marker to find, where (PRODUCT.md section 3). ``record`` is a path (CLI,
+    """Which marker to find, where. ``record`` is a path (CLI,
     library; relative paths resolve beside the request file, then in the working folder) or
     a stored record's id (HTTP API)."""
 
@@ -384,7 +384,7 @@ class LagFigures(Model):
 
 
 class LagResult(Model):
-    """The lag between two markers with its uncertainty budget (PRODUCT.md section 3)."""
+    """The lag between two markers with its uncertainty budget."""
 
     request: LagRequest
     lag: LagSummary

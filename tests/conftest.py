@@ -14,13 +14,13 @@ RECORDS = ROOT / "records"
 
 
 def reference_data_dir():
-    """The published reference data (``../shared/data`` beside the project, or
-    ``$COREALIGN_REFERENCE_DATA``). Its absence is a failure, not a skip: the outside checks
-    are part of the suite."""
-    path = Path(os.environ.get("COREALIGN_REFERENCE_DATA", ROOT.parent / "shared" / "data"))
+    """The published reference data: the copy in ``tests/data`` (see its README for sources and
+    licence), or ``$COREALIGN_REFERENCE_DATA``. Its absence is a failure, not a skip: the
+    outside checks are part of the suite."""
+    path = Path(os.environ.get("COREALIGN_REFERENCE_DATA", ROOT / "tests" / "data"))
     if not (path / "greenland" / "GIS_table.txt").exists():
         pytest.fail(f"reference data not found at {path}; set COREALIGN_REFERENCE_DATA to the "
-                    "folder holding greenland/ (see tests/README.md)")
+                    "folder holding greenland/ (see tests/data/README.md)")
     return path
 
 

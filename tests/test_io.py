@@ -132,7 +132,7 @@ def test_generic_netcdf_columns_are_read(tmp_path):
 
 def test_published_ngrip_decadal_table(ngrip_csv):
     # NGRIP decadal means on GICC05 (Erhardt et al. 2019, doi:10.5194/cp-15-811-2019;
-    # ../shared/data/greenland/README.md): 10-year samples, empty cells are missing values.
+    # tests/data/README.md): 10-year samples, empty cells are missing values.
     record = open_record(ngrip_csv, age_column="Age_BP", age_reference="BP")
     info = describe_record(record)
     assert info.age.interval.median == 10.0

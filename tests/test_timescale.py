@@ -13,7 +13,7 @@ from conftest import RECORDS
 
 def gis_rows(greenland, events=("Holocene", "GI-1e")):
     """Rows of the published Greenland event table (Rasmussen et al. 2014,
-    doi:10.1016/j.quascirev.2014.09.007; ../shared/data/greenland/GIS_table.txt)."""
+    doi:10.1016/j.quascirev.2014.09.007; tests/data/greenland/GIS_table.txt)."""
     import pandas as pd
 
     table = pd.read_csv(greenland / "GIS_table.txt", sep="\t", comment="#")
