@@ -38,7 +38,7 @@ def synthetic_ramp(rng, phi, n=100):
 def test_published_onsets_on_ngrip_decadal_d18o(ngrip_csv, event, age):
     # NGRIP decadal d18O on GICC05 (data: Erhardt et al. 2019, doi:10.5194/cp-15-811-2019);
     # onset ages from Rasmussen et al. (2014, doi:10.1016/j.quascirev.2014.09.007), in the
-    # GIS_table.txt of ../shared/data/greenland: 11,703 and 14,692 b2k. Window +-250 yr.
+    # GIS_table.txt of tests/data/greenland: 11,703 and 14,692 b2k. Window +-250 yr.
     record = open_record(ngrip_csv, age_column="Age_BP", age_reference="BP")
     result = detect_onset(record, "d18O", [age - 250, age + 250], age_reference="b2k", seed=3)
     print(f"{event}: onset {result.onset.median:.1f} b2k, published {age}, deviation "
