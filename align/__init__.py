@@ -1,23 +1,44 @@
 """corealign: date an abrupt event in one archive against a climate transition in another.
 
 The public API is importable from here; see ``README.md`` for a tour and ``DEVELOPERS.md`` for
-the architecture.
+the architecture. Importing :mod:`align` is cheap: each public name loads its module (and that
+module's dependencies) the first time it is used.
 """
 
-from align.ages import convert_age
-from align.detect import detect_event, detect_onset
 from align.errors import InputError
-from align.io import open_record, save_record
-from align.lag import estimate_lag
-from align.provenance import version as _version
-from align.report import write_report
-from align.resample import resample
-from align.survey import survey
-from align.ties import read_ties, transfer
-from align.xcorr import cross_correlate
 
-__version__ = _version()
+#: Public name -> the module that defines it.
+_PUBLIC = {
+    "convert_age": "align.ages",
+    "cross_correlate": "align.xcorr",
+    "detect_event": "align.markers.event",
+    "detect_onset": "align.markers.onset",
+    "estimate_lag": "align.lag",
+    "open_record": "align.io",
+    "read_ties": "align.ties",
+    "resample": "align.resample",
+    "save_record": "align.io",
+    "survey": "align.survey",
+    "transfer": "align.ties",
+    "write_report": "align.report",
+}
 
-__all__ = ["InputError", "convert_age", "cross_correlate", "detect_event", "detect_onset",
-           "estimate_lag", "open_record", "read_ties", "resample", "save_record", "survey",
-           "transfer", "write_report"]
+__all__ = ["InputError", *sorted(_PUBLIC)]
+
+
+def __getattr__(name):
+    if name in _PUBLIC:
+        from importlib import import_module
+
+        value = getattr(import_module(_PUBLIC[name]), name)
+        globals()[name] = value
+        return value
+    if name == "__version__":
+        from align.provenance import version
+
+        return version()
+    raise AttributeError(f"module 'align' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted({*globals(), *__all__, "__version__"})

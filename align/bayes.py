@@ -22,7 +22,7 @@ import emcee
 import numpy as np
 
 from align.ramp import fit_ramp, ramps
-from align.schema import NoiseModel
+from align.markers.onset import NoiseModel
 
 WALKERS = 32
 BURN = 1000

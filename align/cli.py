@@ -1,7 +1,14 @@
 """The ``corealign`` command: parses arguments, calls the library, prints.
 
 Exit codes: 0 success, 2 bad input (one line naming the file, variable and row or field), 1 an
-internal error. ``--json`` prints the same object the library's ``to_dict()`` returns.
+internal error, 130 interrupted. ``--json`` prints the same object the library's ``to_dict()``
+returns. The library is imported inside each command, so ``corealign --help`` and
+``corealign age`` do not load the scientific stack.
+
+Words kept the same on every command: ``--age-reference`` is the reference of an input
+file's ages; ``--to`` the reference of windows and results (default: b2k for lags and surveys,
+which may join records on different references; the record's own for single records).
+Choices and defaults come from :mod:`align.choices` and the schema's fields, never from here.
 """
 
 from __future__ import annotations
@@ -10,28 +17,35 @@ import argparse
 import json
 import os
 import sys
+import types
 import warnings
-from pathlib import Path
+from typing import Literal, Union, get_args, get_origin
 
-from align import text
-from align.ages import REFERENCES, convert_age
-from align.demo import demo_request_path, demo_truth
-from align.describe import describe_grid, describe_record
-from align.detect import detect_event, detect_onset
+from align import choices as C
 from align.errors import InputError
-from align.io import atomic_write, open_record, save_grid, save_record
-from align.lag import estimate_lag
-from align.report import load_result, summary, write_report
-from align.resample import align_records, resample
-from align.suggest import suggest_ties
-from align.survey import survey
-from align.ties import read_ties, transfer
-from align.xcorr import cross_correlate
-from align.schema import AgeConversion
+
+#: Record references as the CLI offers them for ``--to``.
+_REFS = C.options(C.RecordReference)
+
+
+class _Formatter(argparse.HelpFormatter):
+    """Help that shows each option's default (where it has one)."""
+
+    def _get_help_string(self, action):
+        text = action.help or ""
+        default = action.default
+        if (action.option_strings and "%(default)" not in text and "default" not in text
+                and default not in (None, False, argparse.SUPPRESS, [])):
+            text += " (default: %(default)s)"
+        return text
 
 
 class _Parser(argparse.ArgumentParser):
     """An argument parser whose usage errors are one line and exit code 2."""
+
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("formatter_class", _Formatter)
+        super().__init__(*args, **kwargs)
 
     def error(self, message):
         self.exit(2, f"{self.prog}: error: {message}\n")
@@ -53,6 +67,9 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("corealign: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader went away (``| head``): not an error
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except Exception as exc:  # noqa: BLE001 - the one place that turns bugs into exit code 1
         if os.environ.get("COREALIGN_DEBUG"):
             raise
@@ -61,164 +78,277 @@ def main(argv=None):
         return 1
 
 
-class progress_note:
-    """A one-line "working on it" note on a terminal's stderr (silent when piped)."""
-
-    def __init__(self, what):
-        self.what = what
-        self.shown = sys.stderr.isatty()
-
-    def __enter__(self):
-        if self.shown:
-            print(f"corealign: {self.what} ...", end="", file=sys.stderr, flush=True)
-        return self
-
-    def __exit__(self, *exc):
-        if self.shown:
-            print(" done" if exc[0] is None else "", file=sys.stderr)
-        return False
-
-
 def _one_line_warning(message, category, filename, lineno, file=None, line=None):
     print(f"corealign: warning: {message}", file=sys.stderr)
 
 
+# --------------------------------------------------------------------------------------------
+# the parser
+
+
 def build_parser():
     """The full argument parser (one sub-command per job step)."""
+    from align.provenance import version
+
     parser = _Parser(prog="corealign", description=(
         "Date an abrupt event in one paleoclimate record against a climate transition in "
         "another, with an honest uncertainty budget."))
+    parser.add_argument("--version", action="version", version=f"corealign {version()}",
+                        help="print the version and exit")
     commands = parser.add_subparsers(title="commands", metavar="COMMAND", parser_class=_Parser)
+    for add in (_info_parser, _convert_parser, _age_parser, _tie_parser, _suggest_parser,
+                _resample_parser, _align_parser, _detect_parser, _lag_parser, _xcorr_parser,
+                _survey_parser, _report_parser, _serve_parser, _demo_parser):
+        add(commands)
+    return parser
 
+
+def from_field(parser, model, name, flag=None, **overrides):
+    """An option whose type, choices, default and help come from a schema field.
+
+    ``model.model_fields[name]`` gives them; ``overrides`` replace any (e.g. ``default=None``
+    where the library resolves a default itself).
+    """
+    field = model.model_fields[name]
+    annotation = field.annotation
+    if get_origin(annotation) in (Union, types.UnionType):
+        annotation = next(a for a in get_args(annotation) if a is not type(None))
+    options = {"help": field.description or name.replace("_", " "), "default": field.default}
+    if annotation is bool:
+        options["action"] = "store_true"
+    elif get_origin(annotation) is Literal:
+        options["choices"] = get_args(annotation)
+    elif annotation in (int, float, str):
+        options["type"] = annotation
+        options["metavar"] = name.upper()
+    options.update(overrides)
+    return parser.add_argument(flag or "--" + name.replace("_", "-"), **options)
+
+
+def _json_option(parser):
+    parser.add_argument("--json", action="store_true",
+                        help="print the result as JSON (the library's to_dict())")
+
+
+def _to_option(parser, default="the record's"):
+    """``--to``: the reference of windows and results. Its default is the library's (shown in
+    the help), so a request file's own ``age_reference`` is not overridden."""
+    parser.add_argument("--to", metavar="REF", choices=_REFS,
+                        help=f"age reference of windows and results (default: {default})")
+
+
+def _output_option(parser, what, required=True):
+    parser.add_argument("-o", "--output", required=required, metavar="PATH", help=what)
+
+
+def _mapping_options(parser):
+    group = parser.add_argument_group("how to read a table (CSV/TSV or generic NetCDF)")
+    for role in ("age", "depth", "age-sd", "mce", "depth-top", "depth-bottom", "age-top",
+                 "age-bottom"):
+        group.add_argument(f"--{role}-column", metavar="NAME",
+                           help=f"column holding the {role.replace('-', ' ')}")
+    group.add_argument("--age-reference", metavar="REF", choices=_REFS,
+                       help="reference of the input file's ages (b2k or BP)")
+    group.add_argument("--age-units", default=C.DEFAULT_AGE_UNITS,
+                       choices=C.options(C.AgeUnits), help="units of the age columns")
+    group.add_argument("--depth-units", default=C.DEFAULT_DEPTH_UNITS,
+                       choices=C.options(C.DepthUnits), help="units of the depth columns")
+    group.add_argument("--variables", metavar="A,B", help="proxy columns to keep (default: all)")
+    group.add_argument("--units", metavar="VAR=UNIT", action="append", default=[],
+                       help="CF units of a proxy column (repeatable)")
+    for key in ("archive", "site", "core", "timescale", "timescale-kind"):
+        group.add_argument(f"--{key}", metavar="TEXT", help=f"record {key.replace('-', ' ')}")
+
+
+def _info_parser(commands):
     info = commands.add_parser("info", help="what a record holds: variables, ranges, sampling")
     info.add_argument("record", help="NetCDF or CSV/TSV record")
     _mapping_options(info)
     _json_option(info)
     info.set_defaults(run=_info)
 
+
+def _convert_parser(commands):
     convert = commands.add_parser("convert", help="read a table or NetCDF, write a CF record")
     convert.add_argument("input", help="NetCDF or CSV/TSV record")
-    convert.add_argument("-o", "--output", required=True, help="the NetCDF file to write")
+    _output_option(convert, "the NetCDF file to write")
     _mapping_options(convert)
+    _json_option(convert)
     convert.set_defaults(run=_convert)
 
-    age = commands.add_parser("age", help="convert an age between b2k, BP, CE, BCE, ka")
+
+def _age_parser(commands):
+    conventions = ", ".join(C.options(C.AgeConvention))
+    age = commands.add_parser("age", help=f"convert an age between {conventions}")
     age.add_argument("value", type=float, help="the age or calendar year")
     age.add_argument("--from", dest="from_", required=True, metavar="REF",
-                     help=f"reference of VALUE ({', '.join(REFERENCES)})")
+                     help=f"reference of VALUE ({conventions})")
     age.add_argument("--to", required=True, metavar="REF", help="reference to convert to")
     _json_option(age)
     age.set_defaults(run=_age)
+
+
+def _tie_parser(commands):
+    from align.schema import LagRequest
 
     tie = commands.add_parser("tie", help="put a record on another's timescale through ties")
     tie.add_argument("record", help="the record to move (needs depths)")
     tie.add_argument("--ties", required=True, help="tie table: label,depth,ref_depth|ref_age,sd")
     tie.add_argument("--onto", required=True, help="the reference record")
-    tie.add_argument("-o", "--output", required=True, help="the NetCDF file to write")
-    tie.add_argument("--method", default="linear", choices=("linear", "pchip"))
-    tie.add_argument("--bridge-rate", type=float, metavar="R",
-                     help="between-tie variance rate, yr^2 per yr (default: from the ties)")
+    _output_option(tie, "the NetCDF file to write")
+    tie.add_argument("--method", default=C.DEFAULT_TIE_INTERPOLATION,
+                     choices=C.options(C.TieInterpolation),
+                     help="interpolation between tie points")
+    from_field(tie, LagRequest, "bridge_rate", metavar="R",
+               help="between-tie variance rate, yr^2 per yr (default: from the ties)")
     tie.add_argument("--extrapolate", action="store_true",
                      help="keep samples beyond the outer ties (flagged, wider uncertainty)")
     _mapping_options(tie)
+    _json_option(tie)
     tie.set_defaults(run=_tie)
 
+
+def _suggest_parser(commands):
     suggest = commands.add_parser("suggest-ties", help="candidate ties from peaks in both")
     suggest.add_argument("reference", metavar="A.nc:VAR", help="reference record and variable")
     suggest.add_argument("moved", metavar="B.nc:VAR", help="record to move and variable")
     suggest.add_argument("--max-offset", type=float, metavar="YEARS",
                          help="largest age difference at a tie (default: from the timescales)")
-    suggest.add_argument("--threshold", type=float, default=4.0,
-                         help="robust z-score a peak must exceed (default 4)")
-    suggest.add_argument("-o", "--output", required=True, help="candidate tie table (CSV)")
+    suggest.add_argument("--threshold", type=float, default=C.DEFAULT_SUGGEST_THRESHOLD,
+                         help="robust z-score a peak must exceed")
+    _output_option(suggest, "candidate tie table (CSV)")
+    _json_option(suggest)
     suggest.set_defaults(run=_suggest_ties)
 
-    resample_ = commands.add_parser("resample", help="a record on a regular grid (no invented "
-                                                     "detail)")
-    resample_.add_argument("record", help="NetCDF or CSV/TSV record")
-    _grid_options(resample_)
-    resample_.add_argument("--along", default="age", choices=("age", "depth"))
-    resample_.add_argument("--interpolate", action="store_true",
-                           help="interpolate linearly in cells finer than the samples")
-    _json_option(resample_)
-    _mapping_options(resample_)
-    resample_.set_defaults(run=_resample)
 
-    align_ = commands.add_parser("align", help="put B on A's timescale, both on one grid")
-    align_.add_argument("a", metavar="A.nc", help="the reference record")
-    align_.add_argument("b", metavar="B.nc", help="the record brought onto A's timescale")
-    align_.add_argument("--ties", help="tie table between B (depth) and A (ref_depth/ref_age)")
-    align_.add_argument("--same-timescale", action="store_true",
-                        help="A and B are already on the same timescale")
-    _grid_options(align_)
-    align_.set_defaults(run=_align)
+def _grid_options(parser, *, edges=True):
+    from align.schema import ResampleRequest
 
-    detect = commands.add_parser("detect", help="find an event or a transition onset")
+    from_field(parser, ResampleRequest, "step", metavar="YEARS",
+               help="cell width (default: the coarser native resolution)")
+    if edges:
+        from_field(parser, ResampleRequest, "start", help="first cell edge")
+        from_field(parser, ResampleRequest, "stop", help="last cell edge")
+    from_field(parser, ResampleRequest, "min_coverage", metavar="F",
+               help="cells covered less than this fraction are missing")
+    _output_option(parser, "the NetCDF file to write")
+
+
+def _resample_parser(commands):
+    from align.schema import ResampleRequest
+
+    resample = commands.add_parser("resample", help="a record on a regular grid (no invented "
+                                                    "detail)")
+    resample.add_argument("record", help="NetCDF or CSV/TSV record")
+    _grid_options(resample)
+    from_field(resample, ResampleRequest, "along", help="the coordinate of the grid")
+    from_field(resample, ResampleRequest, "interpolate",
+               help="interpolate linearly in cells finer than the samples")
+    _json_option(resample)
+    _mapping_options(resample)
+    resample.set_defaults(run=_resample)
+
+
+def _align_parser(commands):
+    align = commands.add_parser("align", help="put B on A's timescale, both on one grid")
+    align.add_argument("a", metavar="A.nc", help="the reference record")
+    align.add_argument("b", metavar="B.nc", help="the record brought onto A's timescale")
+    align.add_argument("--ties", help="tie table between B (depth) and A (ref_depth/ref_age)")
+    align.add_argument("--same-timescale", action="store_true",
+                       help="A and B are already on the same timescale")
+    _grid_options(align, edges=False)
+    _json_option(align)
+    align.set_defaults(run=_align)
+
+
+def _detect_parser(commands):
+    from align.markers import KINDS
+
+    detect = commands.add_parser("detect", help="find a marker: " + ", ".join(KINDS))
     kinds = detect.add_subparsers(title="markers", metavar="KIND", parser_class=_Parser)
-    event = kinds.add_parser("event", help="where a spike begins (robust z-score)")
-    event.add_argument("target", metavar="RECORD:VARIABLE")
-    event.add_argument("--window", metavar="YOUNG,OLD", help="ages to search")
-    event.add_argument("--threshold", type=float, default=5.0, help="robust z (default 5)")
-    event.add_argument("--baseline-years", type=float, help="running-median span")
-    event.add_argument("--pick", default="first", choices=("first", "peak"))
-    event.add_argument("--direction", default="up", choices=("up", "down"))
-    _marker_options(event)
-    event.set_defaults(run=_detect_event)
-    onset = kinds.add_parser("onset", help="the onset of a transition (ramp fit)")
-    onset.add_argument("target", metavar="RECORD:VARIABLE")
-    onset.add_argument("--window", metavar="YOUNG,OLD", required=True,
-                       help="ages holding the transition and both plateaus")
-    onset.add_argument("--direction", default="auto", choices=("auto", "up", "down"))
-    onset.add_argument("--method", default="ramp", choices=("ramp", "bayes"))
-    onset.add_argument("--draws", type=int, default=2000)
-    onset.add_argument("--seed", type=int)
-    _marker_options(onset)
-    onset.set_defaults(run=_detect_onset)
+    for name, kind in KINDS.items():
+        sub = kinds.add_parser(name, help=kind.summary)
+        sub.add_argument("target", metavar="RECORD:VARIABLE", help="record and variable")
+        sub.add_argument("--window", metavar="YOUNG,OLD", required=kind.window_required,
+                         help="ages to search" + ("" if kind.window_required
+                                                  else " (default: the whole record)"))
+        for option in kind.options.model_fields:
+            if option != "kind":
+                from_field(sub, kind.options, option)
+        sub.add_argument("--seed", type=int, help="random seed (drawn and recorded if absent)")
+        _to_option(sub)
+        _json_option(sub)
+        _mapping_options(sub)
+        sub.set_defaults(run=_detect, kind=name)
+
+
+def _lag_parser(commands):
+    from align.markers import KINDS
+    from align.schema import LagRequest
 
     lag = commands.add_parser("lag", help="the lag between two markers, with its budget")
     for side in ("a", "b"):
         lag.add_argument(f"--{side}", metavar="KIND:RECORD:VARIABLE",
-                         help=f"marker {side}: event or onset, record, variable")
+                         help=f"marker {side}: kind ({', '.join(KINDS)}), record, variable")
         lag.add_argument(f"--{side}-window", metavar="YOUNG,OLD", help=f"window of marker {side}")
     lag.add_argument("--request", metavar="FILE", help="a lag request (JSON) instead of flags")
     lag.add_argument("--ties", help="tie table between b (depth) and a (ref_depth/ref_age)")
-    lag.add_argument("--draws", type=int, help="Monte Carlo draws (default 20000)")
-    lag.add_argument("--seed", type=int)
-    lag.add_argument("--age-reference", choices=("b2k", "BP"), help="default b2k")
-    lag.add_argument("-o", "--output", metavar="DIR", help="write a report folder")
+    for name in ("draws", "seed", "timescale_model", "bridge_rate"):
+        from_field(lag, LagRequest, name, default=None,
+                   help=(LagRequest.model_fields[name].description or name.replace("_", " "))
+                   + f" (default: {LagRequest.model_fields[name].default})")
+    _to_option(lag, C.DEFAULT_AGE_REFERENCE)
+    _output_option(lag, "write a report folder", required=False)
+    lag.add_argument("--overwrite", action="store_true",
+                     help="replace a report already in the output folder")
     _json_option(lag)
     lag.set_defaults(run=_lag)
 
+
+def _xcorr_parser(commands):
+    from align.schema import XcorrRequest
+
     xcorr = commands.add_parser("xcorr", help="cross-correlate two records over a lag range")
-    xcorr.add_argument("a", metavar="A:VARIABLE")
-    xcorr.add_argument("b", metavar="B:VARIABLE")
-    xcorr.add_argument("--max-lag", type=float, required=True, metavar="YEARS")
-    xcorr.add_argument("--window", metavar="YOUNG,OLD")
-    xcorr.add_argument("--step", type=float, metavar="YEARS", help="grid step")
-    xcorr.add_argument("--method", default="pearson", choices=("pearson", "kernel"))
-    xcorr.add_argument("--surrogates", type=int, default=1000)
-    xcorr.add_argument("--surrogate-kind", default="phase", choices=("phase", "ar1"))
-    xcorr.add_argument("--seed", type=int)
-    xcorr.add_argument("--to", metavar="REF", choices=("b2k", "BP"))
+    xcorr.add_argument("a", metavar="A:VARIABLE", help="record a and its variable")
+    xcorr.add_argument("b", metavar="B:VARIABLE", help="record b and its variable")
+    from_field(xcorr, XcorrRequest, "max_lag", metavar="YEARS", required=True,
+               help="largest lag tried, both ways (yr)")
+    xcorr.add_argument("--window", metavar="YOUNG,OLD", help="ages to correlate")
+    from_field(xcorr, XcorrRequest, "step", metavar="YEARS",
+               help="grid step (default: the coarser native resolution)")
+    for name in ("method", "surrogates", "surrogate_kind", "bootstrap", "seed"):
+        from_field(xcorr, XcorrRequest, name)
+    _to_option(xcorr)
     _json_option(xcorr)
     xcorr.set_defaults(run=_xcorr)
 
-    survey_ = commands.add_parser("survey", help="lags of many marker pairs, combined")
-    survey_.add_argument("spec", metavar="SPEC.json")
-    survey_.add_argument("--scheduler", metavar="ADDRESS",
-                         help="a dask.distributed scheduler (default: local threads)")
-    survey_.add_argument("-o", "--output", metavar="DIR", help="write a report folder")
-    _json_option(survey_)
-    survey_.set_defaults(run=_survey)
 
+def _survey_parser(commands):
+    survey = commands.add_parser("survey", help="lags of many marker pairs, combined")
+    survey.add_argument("spec", metavar="SPEC.json", help="the survey (pairs or an event table)")
+    survey.add_argument("--scheduler", metavar="ADDRESS",
+                        help="a dask.distributed scheduler (default: this machine)")
+    _to_option(survey, C.DEFAULT_AGE_REFERENCE)
+    _output_option(survey, "write a report folder", required=False)
+    survey.add_argument("--overwrite", action="store_true",
+                        help="replace a report already in the output folder")
+    _json_option(survey)
+    survey.set_defaults(run=_survey)
+
+
+def _report_parser(commands):
     report = commands.add_parser("report", help="render a report again from a saved result")
     report.add_argument("result", metavar="RESULT.json", help="report.json or --json output")
-    report.add_argument("-o", "--output", metavar="DIR", required=True)
+    _output_option(report, "the report folder")
+    report.add_argument("--overwrite", action="store_true",
+                        help="replace a report already in the output folder")
     report.set_defaults(run=_report)
 
+
+def _serve_parser(commands):
     serve = commands.add_parser("serve", help="run the HTTP service (waitress)")
-    serve.add_argument("--host", default="127.0.0.1")
-    serve.add_argument("--port", type=int, default=8750)
+    serve.add_argument("--host", default="127.0.0.1", help="address to listen on")
+    serve.add_argument("--port", type=int, default=8750, help="port to listen on")
     serve.add_argument("--data-dir", metavar="DIR",
                        help="store folder (default: $COREALIGN_DATA_DIR or the XDG data home)")
     serve.add_argument("--token-file", metavar="FILE",
@@ -228,38 +358,17 @@ def build_parser():
                        help="stop a computation after this long (default 300)")
     serve.set_defaults(run=_serve)
 
+
+def _demo_parser(commands):
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
     demo.add_argument("-o", "--output", metavar="DIR", default="corealign-demo-report",
-                      help="report folder (default: ./corealign-demo-report)")
+                      help="report folder")
     _json_option(demo)
     demo.set_defaults(run=_demo)
-    return parser
 
 
-def _json_option(parser):
-    parser.add_argument("--json", action="store_true", help="print the result as JSON")
-
-
-def _mapping_options(parser):
-    group = parser.add_argument_group("how to read a table (CSV/TSV or generic NetCDF)")
-    for role in ("age", "depth", "age-sd", "mce", "depth-top", "depth-bottom", "age-top",
-                 "age-bottom"):
-        group.add_argument(f"--{role}-column", metavar="NAME", help=f"column holding {role}")
-    group.add_argument("--age-reference", metavar="REF", help="b2k or BP")
-    group.add_argument("--age-units", default="yr", choices=("yr", "ka"))
-    group.add_argument("--depth-units", default="m", choices=("m", "cm", "mm"))
-    group.add_argument("--variables", metavar="A,B", help="proxy columns to keep")
-    group.add_argument("--units", metavar="VAR=UNIT", action="append", default=[],
-                       help="CF units of a proxy column (repeatable)")
-    for key in ("archive", "site", "core", "timescale", "timescale-kind"):
-        group.add_argument(f"--{key}", metavar="TEXT", help=f"record {key.replace('-', ' ')}")
-
-
-def _marker_options(parser):
-    parser.add_argument("--to", metavar="REF", choices=("b2k", "BP"),
-                        help="age reference of the window and result (default: the record's)")
-    _json_option(parser)
-    _mapping_options(parser)
+# --------------------------------------------------------------------------------------------
+# reading arguments
 
 
 def parse_window(text_):
@@ -274,16 +383,6 @@ def parse_window(text_):
     if len(values) != 2:
         raise InputError(f"a window is YOUNG,OLD (two ages), got {text_!r}", field="window")
     return values
-
-
-def _grid_options(parser):
-    parser.add_argument("--step", type=float, metavar="YEARS",
-                        help="cell width (default: the coarser native resolution)")
-    parser.add_argument("--start", type=float, help="first cell edge")
-    parser.add_argument("--stop", type=float, help="last cell edge")
-    parser.add_argument("--min-coverage", type=float, default=0.5, metavar="F",
-                        help="cells covered less than this fraction are missing (default 0.5)")
-    parser.add_argument("-o", "--output", required=True, help="the NetCDF file to write")
 
 
 def mapping_from(args):
@@ -306,33 +405,6 @@ def mapping_from(args):
     return mapping
 
 
-def _print_json(obj):
-    print(json.dumps(obj, indent=2, allow_nan=False))
-
-
-def _info(args):
-    info = describe_record(open_record(args.record, **mapping_from(args)))
-    if args.json:
-        _print_json(info.to_dict())
-    else:
-        print(text.record_info(info))
-
-
-def _convert(args):
-    record = open_record(args.input, **mapping_from(args))
-    path = save_record(record, args.output, history=f"converted from {args.input}")
-    print(f"wrote {path} ({record.sizes['sample']} samples)")
-
-
-def _age(args):
-    result = convert_age(args.value, args.from_, args.to)
-    if args.json:
-        _print_json(AgeConversion(value=args.value, from_=args.from_, to=args.to,
-                                  result=result).to_dict())
-    else:
-        print(f"{result:.10g}")
-
-
 def record_and_variable(text_):
     """Split ``PATH:VARIABLE`` (the variable after the last colon)."""
     path, sep, variable = text_.rpartition(":")
@@ -341,112 +413,56 @@ def record_and_variable(text_):
     return path, variable
 
 
-def _tie(args):
-    record = open_record(args.record, **mapping_from(args))
-    moved = transfer(record, read_ties(args.ties), open_record(args.onto), method=args.method,
-                     extrapolate=args.extrapolate, bridge_rate=args.bridge_rate)
-    save_record(moved, args.output, history=f"written by corealign tie from {args.record}")
-    sd = moved["age_sd"].values
-    print(f"wrote {args.output}: {moved.sizes['sample']} samples on {moved.attrs['timescale']}, "
-          f"age sd {sd.min():.1f} to {sd.max():.1f} yr; bridge rate "
-          f"{moved.attrs['bridge_rate']:.3g} yr^2/yr ({moved.attrs['bridge_rate_choice']})")
-
-
-def _suggest_ties(args):
-    (ref_path, ref_var), (moved_path, moved_var) = map(record_and_variable,
-                                                       (args.reference, args.moved))
-    table = suggest_ties(open_record(ref_path), ref_var, open_record(moved_path), moved_var,
-                         max_offset=args.max_offset, threshold=args.threshold)
-    header = (f"# candidate ties: {moved_path} (depth) onto {ref_path}; review before use, "
-              "delete the rows you reject\n")
-    atomic_write(args.output, lambda tmp: Path(tmp).write_text(
-        header + table.to_csv(index=False, float_format="%.6g")))
-    print(f"wrote {args.output}: {len(table)} candidate ties (never applied automatically)")
-
-
-def _grid_summary(grid, output):
-    along = next(iter(grid.dims))
-    print(f"wrote {output}: {grid.sizes[along]} cells of {grid.attrs['resample_step']:g} along "
-          f"{along}" + (f"; {grid.attrs['step_choice']}" if "step_choice" in grid.attrs else ""))
-
-
-def _resample(args):
-    mapping = mapping_from(args)
-    record = open_record(args.record, **mapping)
-    grid = resample(record, args.step, start=args.start, stop=args.stop,
-                    variables=mapping.get("variables"), min_coverage=args.min_coverage,
-                    along=args.along,
-                    interpolate=args.interpolate)
-    save_grid(grid, args.output, history=f"corealign resample {args.record}")
-    if args.json:
-        _print_json(describe_grid(grid).to_dict())
-    else:
-        _grid_summary(grid, args.output)
-
-
-def _align(args):
-    a, b = open_record(args.a), open_record(args.b)
-    if args.start is not None or args.stop is not None:
-        raise InputError("align chooses the grid from both records; use resample for "
-                         "--start/--stop", field="start")
-    grid = align_records(a, b, ties=read_ties(args.ties) if args.ties else None,
-                         same_timescale=args.same_timescale, step=args.step,
-                         min_coverage=args.min_coverage)
-    save_grid(grid, args.output, history=f"corealign align {args.a} {args.b}")
-    _grid_summary(grid, args.output)
-
-
-def _detect_event(args):
-    path, variable = record_and_variable(args.target)
-    result = detect_event(open_record(path, **mapping_from(args)), variable,
-                          parse_window(args.window), threshold=args.threshold,
-                          baseline_years=args.baseline_years, pick=args.pick,
-                          direction=args.direction, age_reference=args.to)
-    _print_json(result.to_dict()) if args.json else print(text.marker(result))
-
-
-def _detect_onset(args):
-    path, variable = record_and_variable(args.target)
-    with progress_note(f"fitting the onset ({args.draws} {args.method} draws)"):
-        result = detect_onset(open_record(path, **mapping_from(args)), variable,
-                              parse_window(args.window), direction=args.direction,
-                              method=args.method, draws=args.draws, seed=args.seed,
-                              age_reference=args.to)
-    _print_json(result.to_dict()) if args.json else print(text.marker(result))
-
-
 def marker_flag(text_, window, side):
     """``KIND:RECORD:VARIABLE`` and ``YOUNG,OLD`` as a marker spec dict."""
+    from align.markers import KINDS
+
     kind, sep, rest = (text_ or "").partition(":")
     path, sep2, variable = rest.rpartition(":")
-    if not (sep and sep2 and path and variable) or kind not in ("event", "onset"):
-        raise InputError(f"--{side} takes KIND:RECORD:VARIABLE with KIND event or onset, got "
-                         f"{text_!r}", field=side)
+    if not (sep and sep2 and path and variable) or kind not in KINDS:
+        raise InputError(f"--{side} takes KIND:RECORD:VARIABLE with KIND one of "
+                         f"{', '.join(KINDS)}, got {text_!r}", field=side)
     if window is None:
         raise InputError(f"--{side}-window YOUNG,OLD is needed", field=f"{side}-window")
     return {"kind": kind, "record": path, "variable": variable, "window": parse_window(window)}
 
 
-def _lag(args):
-    options = dict(ties=args.ties, draws=args.draws, seed=args.seed,
-                   age_reference=args.age_reference)
-    if args.request:
-        if args.a or args.b:
-            raise InputError("give --request or --a/--b, not both", field="request")
-        request = args.request
-        with progress_note("estimating the lag"):
-            result = estimate_lag(request, **options)
-    else:
-        a = marker_flag(args.a, args.a_window, "a")
-        b = marker_flag(args.b, args.b_window, "b")
-        with progress_note("estimating the lag"):
-            result = estimate_lag(a, b, **options)
-    _finish(result, args, text.lag)
+# --------------------------------------------------------------------------------------------
+# printing
+
+
+def _print_json(obj):
+    print(json.dumps(obj, indent=2, allow_nan=False))
+
+
+class progress_note:
+    """A "working on it" line on stderr, then how long it took (also when not a terminal)."""
+
+    def __init__(self, what):
+        self.what = what
+
+    def __enter__(self):
+        import time
+
+        self.start = time.monotonic()
+        print(f"corealign: {self.what} ...", file=sys.stderr, flush=True)
+        return self
+
+    def __exit__(self, *exc):
+        import time
+
+        if exc[0] is None:
+            print(f"corealign: {self.what}: done in {time.monotonic() - self.start:.1f} s",
+                  file=sys.stderr, flush=True)
+        return False
 
 
 def _finish(result, args, render):
     """Write the report folder if asked, then print JSON or text."""
-    folder = write_report(result, args.output) if args.output else None
+    from align.report import write_report
+
+    folder = (write_report(result, args.output, overwrite=args.overwrite)
+              if args.output else None)
     if args.json:
         _print_json(result.to_dict())
     else:
@@ -455,24 +471,188 @@ def _finish(result, args, render):
             print(f"report: {folder / 'report.html'}")
 
 
+def _record_summary(record, path, args, what):
+    """After writing a record: its description as JSON, or one line."""
+    from align.describe import describe_record
+
+    if args.json:
+        _print_json(describe_record(record).to_dict())
+    else:
+        print(f"wrote {path}: {record.sizes['sample']} samples{what}")
+
+
+def _grid_summary(grid, output, args):
+    from align.describe import describe_grid
+
+    if args.json:
+        _print_json(describe_grid(grid).to_dict())
+        return
+    along = next(iter(grid.dims))
+    print(f"wrote {output}: {grid.sizes[along]} cells of {grid.attrs['resample_step']:g} along "
+          f"{along}" + (f"; {grid.attrs['step_choice']}" if "step_choice" in grid.attrs else ""))
+
+
+# --------------------------------------------------------------------------------------------
+# the commands
+
+
+def _info(args):
+    from align import text
+    from align.describe import describe_record
+    from align.io import open_record
+
+    info = describe_record(open_record(args.record, **mapping_from(args)))
+    if args.json:
+        _print_json(info.to_dict())
+    else:
+        print(text.record_info(info))
+
+
+def _convert(args):
+    from align.io import open_record, save_record
+
+    record = open_record(args.input, **mapping_from(args))
+    path = save_record(record, args.output, history=f"converted from {args.input}")
+    _record_summary(record, path, args, "")
+
+
+def _age(args):
+    from align.ages import convert_age
+
+    result = convert_age(args.value, args.from_, args.to)
+    if args.json:
+        from align.schema import AgeConversion
+
+        _print_json(AgeConversion(value=args.value, from_=args.from_, to=args.to,
+                                  result=result).to_dict())
+    else:
+        print(f"{result:.10g}")
+
+
+def _tie(args):
+    from align.io import open_record, save_record
+    from align.ties import read_ties, transfer
+
+    record = open_record(args.record, **mapping_from(args))
+    moved = transfer(record, read_ties(args.ties), open_record(args.onto), method=args.method,
+                     extrapolate=args.extrapolate, bridge_rate=args.bridge_rate)
+    save_record(moved, args.output, history=f"written by corealign tie from {args.record}")
+    sd = moved["age_sd"].values
+    _record_summary(moved, args.output, args,
+                    f" on {moved.attrs['timescale']}, age sd {sd.min():.1f} to "
+                    f"{sd.max():.1f} yr; bridge rate {moved.attrs['bridge_rate']:.3g} yr^2/yr "
+                    f"({moved.attrs['bridge_rate_choice']})")
+
+
+def _suggest_ties(args):
+    from pathlib import Path
+
+    from align.io import atomic_write, open_record
+    from align.suggest import suggest_ties
+
+    (ref_path, ref_var), (moved_path, moved_var) = map(record_and_variable,
+                                                       (args.reference, args.moved))
+    table = suggest_ties(open_record(ref_path), ref_var, open_record(moved_path), moved_var,
+                         max_offset=args.max_offset, threshold=args.threshold)
+    header = (f"# candidate ties: {moved_path} (depth) onto {ref_path}; review before use, "
+              "delete the rows you reject\n")
+    atomic_write(args.output, lambda tmp: Path(tmp).write_text(
+        header + table.to_csv(index=False, float_format="%.6g")))
+    if args.json:
+        _print_json({"output": str(args.output),
+                     "candidates": json.loads(table.to_json(orient="records"))})
+    else:
+        print(f"wrote {args.output}: {len(table)} candidate ties (never applied automatically)")
+
+
+def _resample(args):
+    from align.io import open_record, save_grid
+    from align.resample import resample
+
+    mapping = mapping_from(args)
+    record = open_record(args.record, **mapping)
+    grid = resample(record, args.step, start=args.start, stop=args.stop,
+                    variables=mapping.get("variables"), min_coverage=args.min_coverage,
+                    along=args.along, interpolate=args.interpolate)
+    save_grid(grid, args.output, history=f"corealign resample {args.record}")
+    _grid_summary(grid, args.output, args)
+
+
+def _align(args):
+    from align.io import open_record, save_grid
+    from align.resample import align_records
+    from align.ties import read_ties
+
+    a, b = open_record(args.a), open_record(args.b)
+    grid = align_records(a, b, ties=read_ties(args.ties) if args.ties else None,
+                         same_timescale=args.same_timescale, step=args.step,
+                         min_coverage=args.min_coverage)
+    save_grid(grid, args.output, history=f"corealign align {args.a} {args.b}")
+    _grid_summary(grid, args.output, args)
+
+
+def _detect(args):
+    from align import text
+    from align.detect import detect_marker
+    from align.io import open_record
+    from align.markers import KINDS
+
+    path, variable = record_and_variable(args.target)
+    kind = KINDS[args.kind]
+    spec = {"kind": args.kind, "variable": variable, "window": parse_window(args.window),
+            **{k: getattr(args, k) for k in kind.options.model_fields if k != "kind"}}
+    record = open_record(path, **mapping_from(args))
+    with progress_note(f"finding the {args.kind} in {variable}"):
+        result = detect_marker(record, spec, seed=args.seed, age_reference=args.to)
+    _print_json(result.to_dict()) if args.json else print(text.marker(result))
+
+
+def _lag(args):
+    from align import text
+    from align.lag import estimate_lag
+
+    options = dict(ties=args.ties, draws=args.draws, seed=args.seed, age_reference=args.to,
+                   timescale_model=args.timescale_model, bridge_rate=args.bridge_rate)
+    if args.request:
+        if args.a or args.b:
+            raise InputError("give --request or --a/--b, not both", field="request")
+        a, b = args.request, None
+    else:
+        a, b = marker_flag(args.a, args.a_window, "a"), marker_flag(args.b, args.b_window, "b")
+    with progress_note("estimating the lag"):
+        result = estimate_lag(a, b, **options)
+    _finish(result, args, text.lag)
+
+
 def _xcorr(args):
+    from align import text
+    from align.io import open_record
+    from align.xcorr import cross_correlate
+
     (path_a, var_a), (path_b, var_b) = map(record_and_variable, (args.a, args.b))
     with progress_note("cross-correlating"):
         result = cross_correlate((open_record(path_a), var_a), (open_record(path_b), var_b),
                                  args.max_lag, step=args.step, method=args.method,
                                  surrogates=args.surrogates, surrogate_kind=args.surrogate_kind,
                                  window=parse_window(args.window), seed=args.seed,
-                                 age_reference=args.to)
+                                 age_reference=args.to, bootstrap=args.bootstrap)
     _print_json(result.to_dict()) if args.json else print(text.xcorr(result))
 
 
 def _survey(args):
-    result = survey(args.spec, scheduler=args.scheduler, progress=sys.stderr.isatty())
+    from align import text
+    from align.progress import Progress
+    from align.survey import survey
+
+    result = survey(args.spec, scheduler=args.scheduler, age_reference=args.to,
+                    progress=Progress("survey", unit="pairs"))
     _finish(result, args, text.survey)
 
 
 def _report(args):
-    folder = write_report(load_result(args.result), args.output)
+    from align.report import load_result, write_report
+
+    folder = write_report(load_result(args.result), args.output, overwrite=args.overwrite)
     print(f"report: {folder / 'report.html'}")
 
 
@@ -483,9 +663,13 @@ def _serve(args):
 
 
 def _demo(args):
+    from align.demo import demo_request_path, demo_truth
+    from align.lag import estimate_lag
+    from align.report import summary, write_report
+
     with progress_note("running the demo (synthetic records, invented scenario)"):
         result = estimate_lag(demo_request_path())
-    folder = write_report(result, args.output)
+    folder = write_report(result, args.output, overwrite=True)
     truth = demo_truth()
     if args.json:
         _print_json({"truth": truth, "result": result.to_dict()})

@@ -5,16 +5,17 @@ right; axes name their units and the age reference; the palette (blue for record
 for record b, purple for the lag, greys for bands) stays distinguishable with the common
 colour-vision deficiencies. Everything drawn comes from the result's JSON, so a report can
 be redrawn from ``report.json`` alone.
+
+Figures are :class:`matplotlib.figure.Figure` objects made without pyplot, so drawing them never
+touches the caller's backend or pyplot state (a notebook keeps its inline figures); each
+function that draws one panel also accepts an ``ax`` to draw into.
 """
 
 from __future__ import annotations
 
-import matplotlib
+from contextlib import contextmanager
 
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+import numpy as np
 
 COLOURS = {"a": "#1f5fa6", "b": "#d9730d", "lag": "#6a3d9a", "ink": "#333333",
            "band": "#bdbdbd", "light": "#e6e6e6"}
@@ -43,7 +44,20 @@ def _steps(ax, top, bottom, values, colour, label=None):
     ax.stairs(heights, edges, color=colour, lw=1.2, label=label, baseline=None)
 
 
-def _interval(ax, estimate, colour, label):
+@contextmanager
+def styled(figsize, **subplots):
+    """A new :class:`~matplotlib.figure.Figure` (and its axes) in the house style."""
+    import matplotlib
+    from matplotlib.figure import Figure
+
+    with matplotlib.rc_context(STYLE):
+        fig = Figure(figsize=figsize)
+        axes = fig.subplots(**subplots)
+        yield fig, axes
+        fig.tight_layout()
+
+
+def interval_span(ax, estimate, colour, label):
     ax.axvspan(*estimate.ci95, color=colour, alpha=0.18, lw=0, label=f"{label} 95 %")
     ax.axvline(estimate.median, color=colour, lw=1.2, ls="--")
 
@@ -51,16 +65,15 @@ def _interval(ax, estimate, colour, label):
 def overview_figure(result):
     """Both records on the common timescale: samples as steps over their intervals, each
     marker with its 95 % interval, and under each record its timescale sd as a band."""
-    with plt.rc_context(STYLE):
-        fig, axes = plt.subplots(4, 1, figsize=(7.5, 6.2), sharex=True,
-                                 gridspec_kw={"height_ratios": [3, 1, 3, 1]})
+    with styled((7.5, 6.2), nrows=4, ncols=1, sharex=True,
+                gridspec_kw={"height_ratios": [3, 1, 3, 1]}) as (fig, axes):
         for row, (side, excerpt, marker) in enumerate(
                 (("a", result.figures.records[0], result.a),
                  ("b", result.figures.records[1], result.b))):
             ax, band = axes[2 * row], axes[2 * row + 1]
             colour = COLOURS[side]
             _steps(ax, excerpt.age_top, excerpt.age_bottom, excerpt.value, colour)
-            _interval(ax, marker.age, colour, f"{marker.kind} {side}")
+            interval_span(ax, marker.age, colour, f"{marker.kind} {side}")
             unit = f" ({excerpt.units})" if excerpt.units else ""
             ax.set_ylabel(f"{excerpt.variable}{unit}")
             ax.set_title(f"{excerpt.label}: {marker.kind} in {excerpt.variable}", loc="left")
@@ -73,51 +86,32 @@ def overview_figure(result):
         _age_axis(axes[-1], result.age_reference)
         fig.suptitle("The two records on one timescale", x=0.01, ha="left", fontsize=11,
                      fontweight="bold")
-        fig.tight_layout()
     return fig
 
 
-def marker_figure(marker, side):
-    """The pick: event (baseline, threshold, the anomalous run) or onset (ramp and band)."""
+def marker_figure(marker, side, ax=None):
+    """How a marker was picked (each kind draws its own: :meth:`MarkerKind.draw`)."""
+    from align.markers import kind_of
+
+    if ax is None:
+        with styled((7.5, 3.0)) as (fig, ax):
+            marker_figure(marker, side, ax)
+        return fig
     colour = COLOURS[side]
     trace = marker.trace
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(7.5, 3.0))
-        _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour, "samples")
-        if marker.kind == "event":
-            ax.plot(trace.curve_age, [np.nan if v is None else v for v in trace.curve],
-                    color=COLOURS["ink"], lw=1, label="baseline (running median)")
-            ax.plot(trace.curve_age, [np.nan if v is None else v for v in trace.threshold],
-                    color=COLOURS["ink"], lw=1, ls=":",
-                    label=f"threshold ({marker.threshold:g} robust sd)")
-            for candidate in marker.candidates:
-                ax.axvspan(*candidate.age_span, color=COLOURS["light"], lw=0)
-            if marker.found:
-                _interval(ax, marker.event, colour, "event")
-            title = f"Event pick: {marker.variable} in {marker.record} ({marker.message})"
-        else:
-            ax.fill_between(trace.curve_age, [np.nan if v is None else v for v in trace.band_low],
-                            [np.nan if v is None else v for v in trace.band_high],
-                            color=COLOURS["band"], alpha=0.6, lw=0, label="ramp 95 % band")
-            ax.plot(trace.curve_age, trace.curve, color=COLOURS["ink"], lw=1.5,
-                    label="fitted ramp")
-            _interval(ax, marker.onset, colour, "onset")
-            state = "clear transition" if marker.clear_transition else "NO clear transition"
-            title = f"Onset fit: {marker.variable} in {marker.record} ({state})"
-        ax.set_title(title, loc="left")
-        ax.set_ylabel(marker.variable)
-        ax.legend(loc="best", frameon=False, fontsize=7)
-        _age_axis(ax, marker.age_reference)
-        fig.tight_layout()
-    return fig
+    _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour, "samples")
+    ax.set_title(kind_of(marker.kind).draw(ax, marker, colour), loc="left")
+    ax.set_ylabel(marker.variable)
+    ax.legend(loc="best", frameon=False, fontsize=7)
+    _age_axis(ax, marker.age_reference)
+    return ax.figure
 
 
 def lag_figure(result):
     """The lag distribution with its median, 68 % and 95 % intervals and the zero line."""
     hist = result.figures.lag_histogram
     edges = np.asarray(hist.edges)
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(7.5, 3.0))
+    with styled((7.5, 3.0)) as (fig, ax):
         ax.stairs(hist.counts, edges, fill=True, color=COLOURS["lag"], alpha=0.35)
         ax.stairs(hist.counts, edges, color=COLOURS["lag"])
         ax.axvspan(*result.lag.ci95, color=COLOURS["light"], zorder=0, label="95 %")
@@ -129,7 +123,6 @@ def lag_figure(result):
         ax.set_ylabel("Monte Carlo draws")
         ax.set_title("Lag distribution", loc="left")
         ax.legend(loc="upper right", frameon=False, fontsize=8)
-        fig.tight_layout()
     return fig
 
 
@@ -137,9 +130,8 @@ def budget_figure(result):
     """The uncertainty budget as bars (sd of each source) and the what-if 95 % widths."""
     items = sorted(result.budget, key=lambda b: b.share)
     width_now = result.lag.ci95[1] - result.lag.ci95[0]
-    with plt.rc_context(STYLE):
-        fig, (left, right) = plt.subplots(1, 2, figsize=(9.5, 3.4),
-                                          gridspec_kw={"width_ratios": [1.2, 1]})
+    with styled((9.5, 3.4), nrows=1, ncols=2,
+                gridspec_kw={"width_ratios": [1.2, 1]}) as (fig, (left, right)):
         colours = [COLOURS["a"] if b.kind == "resolution" else
                    COLOURS["b"] if b.kind == "detection" else COLOURS["lag"] for b in items]
         left.barh(range(len(items)), [b.sd for b in items], color=colours)
@@ -155,15 +147,13 @@ def budget_figure(result):
         right.invert_yaxis()
         right.set_xlabel("width of the 95 % lag interval (yr)")
         right.set_title("What would narrow it", loc="left")
-        fig.tight_layout()
     return fig
 
 
 def survey_figure(result):
     """Every pair's lag with its 95 % interval, and the combined estimate."""
     pairs = [p for p in result.pairs if p.lag is not None]
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(7.5, 0.32 * len(pairs) + 1.6))
+    with styled((7.5, 0.32 * len(pairs) + 1.6)) as (fig, ax):
         for k, pair in enumerate(pairs):
             colour = COLOURS["a"] if pair.clear else COLOURS["band"]
             ax.plot(pair.lag.ci95, [k, k], color=colour, lw=1.5)
@@ -180,7 +170,6 @@ def survey_figure(result):
         ax.invert_yaxis()
         ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
         ax.set_title("Survey: each pair's lag (95 %) and the combination", loc="left")
-        fig.tight_layout()
     return fig
 
 

@@ -12,18 +12,17 @@ and the what-if intervals come from the same draws.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from align.detect import detect_marker
-from align.errors import InputError
 from align.io import open_record, read_json
 from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
 from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
+from align.markers import Part, kind_of
 from align.schema import (BudgetItem, Histogram, LagFigures, LagRequest, LagResult, LagSummary,
-                          MarkerSpec, RecordExcerpt, WhatIf, validate_as)
+                          Model, RecordExcerpt, WhatIf, validate_as)
 from align.ties import bridge_variance, read_ties, transfer
 from align.timescale import ensemble_at, error_covariance, mce_covariance
 
@@ -81,7 +80,7 @@ def lag_request(a, b=None, **options):
     body.update({k: v for k, v in options.items() if v is not None})
     for key in ("a", "b"):
         spec = body.get(key)
-        if isinstance(spec, MarkerSpec):
+        if isinstance(spec, Model):
             body[key] = spec.model_dump()
         elif isinstance(spec, dict) and not isinstance(spec.get("record", ""), str):
             record = spec["record"].copy()  # labelled below; the caller's object stays as is
@@ -95,16 +94,6 @@ def lag_request(a, b=None, **options):
 
 # --------------------------------------------------------------------------------------------
 # the Monte Carlo
-
-
-@dataclass
-class Part:
-    """One source of lag uncertainty: its draws (yr, with the sign they add to the lag)."""
-
-    component: str
-    kind: str
-    owner: str | None
-    draws: np.ndarray
 
 
 def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=None,
@@ -155,13 +144,14 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
         rec_b = transfer(rec_b, tie_table, rec_a, bridge_rate=request.bridge_rate)
     rec_b = with_age_reference(rec_b, ref)
     relation = _relation(rec_a, rec_b)
-    marker_a = _located(detect_marker(rec_a, request.a.model_dump(), seed=seed_a), "a")
-    marker_b = _located(detect_marker(rec_b, request.b.model_dump(), seed=seed_b), "b")
+    marker_a = _located(detect_marker(rec_a, request.a, seed=seed_a), "a")
+    marker_b = _located(detect_marker(rec_b, request.b, seed=seed_b), "b")
+    kind_a, kind_b = kind_of(marker_a.kind), kind_of(marker_b.kind)
     rng = np.random.default_rng(seed_mc)
     n = request.draws
-    age_a, age_b = _center(marker_a), _center(marker_b)
+    age_a, age_b = kind_a.center(marker_a), kind_b.center(marker_b)
     center = age_a - age_b
-    parts = (_marker_parts(marker_a, "a", +1.0, n, rng) + _marker_parts(marker_b, "b", -1.0, n, rng)
+    parts = (kind_a.parts(marker_a, "a", +1.0, n, rng) + kind_b.parts(marker_b, "b", -1.0, n, rng)
              + _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request.timescale_model,
                                 n, rng))
     lag = center + sum(p.draws for p in parts)
@@ -172,32 +162,8 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
 
 
 def _located(marker, label):
-    if marker.kind == "event" and not marker.found:
-        raise InputError(f"marker {label}: {marker.message} (see the candidates; lower the "
-                         "threshold or move the window)", field=f"{label}.window")
+    kind_of(marker.kind).usable(marker, label)
     return marker
-
-
-def _center(marker):
-    if marker.kind == "event":
-        return float(np.mean(marker.sample.age_interval))
-    return float(np.median(marker._fit_draws))
-
-
-def _marker_parts(marker, label, sign, n, rng):
-    """The marker's own uncertainty: within-sample position, and (onsets) the fit."""
-    name = f"{label}: {marker.kind} in {marker.record} {marker.variable}"
-    if marker.kind == "event":
-        lo, hi = marker.sample.age_interval
-        return [Part(f"{name}: position within its sample ({hi - lo:.3g} yr)", "resolution",
-                     label, sign * rng.uniform(-(hi - lo) / 2, (hi - lo) / 2, n))]
-    pick = rng.integers(0, marker._draws.size, n)
-    fit = marker._fit_draws[pick]
-    jitter = marker._draws[pick] - fit
-    return [Part(f"{name}: onset fit under AR(1) noise", "detection", label,
-                 sign * (fit - np.median(marker._fit_draws))),
-            Part(f"{name}: sample interval at the onset ({marker.sample_interval:.3g} yr)",
-                 "resolution", label, sign * jitter)]
 
 
 # --------------------------------------------------------------------------------------------
@@ -304,37 +270,47 @@ def lag_summary(lag):
                       p_a_before_b=float(np.mean(lag > 0)))
 
 
+#: The what-if rows: machine key -> (the change in words, how much it scales a budget part).
+WHAT_IFS = {
+    "halve_resolution_a": ("halve the sample interval of a",
+                           lambda p: 0.5 if p.kind == "resolution" and p.owner == "a" else 1.0),
+    "halve_resolution_b": ("halve the sample interval of b",
+                           lambda p: 0.5 if p.kind == "resolution" and p.owner == "b" else 1.0),
+    "halve_ties": ("halve the tie-point uncertainty", lambda p: 0.5 if p.kind == "tie" else 1.0),
+    "double_ties": ("double the number of tie points (halving the bridge variance)",
+                    lambda p: np.sqrt(0.5) if p.kind == "bridge" else 1.0),
+    "no_timescale": ("remove the timescale error",
+                     lambda p: 0.0 if p.kind == "timescale" else 1.0),
+}
+#: The budget kind each what-if row acts on (rows for kinds absent from a lag are left out).
+WHAT_IF_KIND = {"halve_resolution_a": "resolution", "halve_resolution_b": "resolution",
+                "halve_ties": "tie", "double_ties": "bridge", "no_timescale": "timescale"}
+
+
+def what_if_for(kind, owner):
+    """The key of the what-if row that shrinks a budget item of ``kind`` (and ``owner``)."""
+    if kind == "resolution":
+        return f"halve_resolution_{owner}"
+    return next((key for key, k in WHAT_IF_KIND.items() if k == kind), None)
+
+
 def _what_ifs(center, parts):
-    scenarios = [("halve the sample interval of a",
-                  lambda p: 0.5 if p.kind == "resolution" and p.owner == "a" else 1.0),
-                 ("halve the sample interval of b",
-                  lambda p: 0.5 if p.kind == "resolution" and p.owner == "b" else 1.0)]
     kinds = {p.kind for p in parts}
-    if "tie" in kinds:
-        scenarios.append(("halve the tie-point uncertainty",
-                          lambda p: 0.5 if p.kind == "tie" else 1.0))
-    if "bridge" in kinds:
-        scenarios.append(("double the number of tie points (halving the bridge variance)",
-                          lambda p: np.sqrt(0.5) if p.kind == "bridge" else 1.0))
-    if "timescale" in kinds:
-        scenarios.append(("remove the timescale error",
-                          lambda p: 0.0 if p.kind == "timescale" else 1.0))
     out = []
-    for change, scale in scenarios:
+    for key, (change, scale) in WHAT_IFS.items():
+        if WHAT_IF_KIND[key] not in kinds and WHAT_IF_KIND[key] != "resolution":
+            continue
         lag = center + sum(scale(p) * p.draws for p in parts)
         lo, hi = np.percentile(lag, [2.5, 97.5])
-        out.append(WhatIf(change=change, ci95=[float(lo), float(hi)], width=float(hi - lo)))
+        out.append(WhatIf(key=key, change=change, ci95=[float(lo), float(hi)],
+                          width=float(hi - lo)))
     return out
-
-
-def _describe(marker):
-    return f"the {marker.kind} in {marker.record} {marker.variable}"
 
 
 def verdict(summary, marker_a, marker_b):
     """The lag in words, with its 95 % interval."""
     lo, hi = summary.ci95
-    a, b = _describe(marker_a), _describe(marker_b)
+    a, b = (kind_of(m.kind).describe(m) for m in (marker_a, marker_b))
     interval = f"(95 %: {lo:.0f} to {hi:.0f})"
     if lo > 0:
         return f"{a} precedes {b} by {summary.median:.0f} years {interval}"
@@ -369,19 +345,22 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
         out.append("A modelled timescale given only as an sd is treated as independent between "
                    "depths (conservative); an age ensemble would carry its real correlation.")
     for label, marker in (("a", marker_a), ("b", marker_b)):
-        if marker.kind == "event":
-            out.append(f"Marker {label}: the event's age is uniform over the age interval of "
-                       "its first anomalous sample.")
-        else:
-            out.append(f"Marker {label}: ramp fit with AR(1) noise (sd {marker.noise.sd:.3g}, "
-                       f"coefficient {marker.noise.ar1:.2f} at the mean spacing); the onset is "
-                       "placed no more finely than its sample interval.")
-            if not marker.clear_transition:
-                out.append(f"Caution, marker {label}: {marker.reason}.")
+        out += kind_of(marker.kind).assumptions(marker, label)
     out.append("What-if rows scale only the named term (halving a sample interval halves the "
                "resolution terms; the fit noise is kept).")
     out.append(CAUTION)
     return out
+
+
+def _references(relation, rec_a, rec_b, marker_a, marker_b):
+    """Keys (:mod:`align.references`) of the methods this lag used, each once."""
+    keys = []
+    if "mce" in {uncertainty_kind(rec_a), uncertainty_kind(rec_b)}:
+        keys.append("andersen2006")
+    keys += marker_a.references + marker_b.references
+    if relation == "tied":
+        keys += ["divine2012", "heaton2013"]
+    return list(dict.fromkeys(keys))
 
 
 def _excerpt(record, marker, label):
@@ -422,6 +401,7 @@ def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, re
         what_if=_what_ifs(center, parts), verdict=text, resolvable_lag=resolvable,
         assumptions=_assumptions(relation, rec_a, rec_b, marker_a, marker_b,
                                  request.timescale_model),
+        references=_references(relation, rec_a, rec_b, marker_a, marker_b),
         age_reference=request.age_reference,
         figures=LagFigures(lag_histogram=Histogram(edges=edges.tolist(),
                                                    counts=counts.tolist()),

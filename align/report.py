@@ -14,36 +14,15 @@ import html
 import json
 from pathlib import Path
 
-import matplotlib.pyplot as plt
-
+from align.choices import ReportFormat, options
 from align.errors import InputError
 from align.figures import AGE_NOTE, STYLE, lag_figures, survey_figure
 from align.io import atomic_write, read_json
+from align.lag import what_if_for
+from align.references import cite
 from align.schema import LagResult, SurveyResult, validate_as
 
-FORMATS = ("html", "md", "json")
-REFERENCES = {
-    "Andersen et al. (2006)": "Andersen, K. K. et al. (2006): The Greenland Ice Core Chronology "
-    "2005, 15-42 ka. Part 1: constructing the time scale. Quat. Sci. Rev. 25, 3246-3257. "
-    "doi:10.1016/j.quascirev.2006.08.002",
-    "Mudelsee (2000)": "Mudelsee, M. (2000): Ramp function regression: a tool for quantifying "
-    "climate transitions. Computers & Geosciences 26, 293-307. "
-    "doi:10.1016/S0098-3004(99)00141-7",
-    "Mudelsee (2002)": "Mudelsee, M. (2002): TAUEST: a computer program for estimating "
-    "persistence in unevenly spaced weather/climate time series. Computers & Geosciences 28, "
-    "69-72. doi:10.1016/S0098-3004(01)00041-3",
-    "Erhardt et al. (2019)": "Erhardt, T. et al. (2019): Decadal-scale progression of the onset "
-    "of Dansgaard-Oeschger warming events. Clim. Past 15, 811-825. doi:10.5194/cp-15-811-2019",
-    "Divine et al. (2012)": "Divine, D. V. et al. (2012): Tephra-based age models and the "
-    "uncertainty between tie points. Clim. Past Discuss. 8, 1529-1566. "
-    "doi:10.5194/cpd-8-1529-2012",
-    "Heaton et al. (2013)": "Heaton, T. J. et al. (2013): Tie-point based age models with "
-    "Gaussian processes. Radiocarbon 55(4), 1975-1997. doi:10.2458/azu_js_rc.55.17777",
-    "Efron & Tibshirani (1993)": "Efron, B. and Tibshirani, R. J. (1993): An Introduction to "
-    "the Bootstrap. Chapman & Hall. doi:10.1201/9780429246593",
-    "DerSimonian & Laird (1986)": "DerSimonian, R. and Laird, N. (1986): Meta-analysis in "
-    "clinical trials. Controlled Clinical Trials 7, 177-188. doi:10.1016/0197-2456(86)90046-2",
-}
+FORMATS = options(ReportFormat)
 CAPTIONS = {
     "overview": "Both records on the common timescale. Samples are steps over their age "
                 "intervals; shaded spans are each marker's 95 % interval (dashed: median); the "
@@ -72,7 +51,7 @@ def load_result(path):
                          field=exc.field or "result") from None
 
 
-def write_report(result, directory, formats=FORMATS):
+def write_report(result, directory, formats=FORMATS, *, overwrite=False):
     """Write a report folder for a lag or survey result.
 
     Parameters
@@ -81,6 +60,9 @@ def write_report(result, directory, formats=FORMATS):
     directory : str or os.PathLike
         Created if missing; files in it are replaced atomically.
     formats : sequence of {"html", "md", "json"}
+    overwrite : bool
+        Replace a report already in ``directory`` (refused otherwise, so a report is never
+        lost by accident).
 
     Returns
     -------
@@ -90,19 +72,26 @@ def write_report(result, directory, formats=FORMATS):
     unknown = set(formats) - set(FORMATS)
     if unknown:
         raise InputError(f"unknown report format {sorted(unknown)[0]!r}", field="formats")
+    import matplotlib
+
     folder = Path(directory)
+    if folder.exists() and not folder.is_dir():
+        raise InputError("the report folder is an existing file", source=str(folder),
+                         field="output")
+    if not overwrite and any((folder / f"report.{f}").exists() for f in FORMATS):
+        raise InputError("this folder already holds a report; choose another or overwrite "
+                         "it", source=str(folder), field="output")
     folder.mkdir(parents=True, exist_ok=True)
     figures = (lag_figures(result) if isinstance(result, LagResult)
                else {"survey": survey_figure(result)})
     svgs = {}
     for name, fig in figures.items():
-        with plt.rc_context(STYLE):  # fixed SVG ids: a redrawn report is byte-identical
+        with matplotlib.rc_context(STYLE):  # fixed SVG ids: a redrawn report is byte-identical
             atomic_write(folder / f"{name}.svg", lambda tmp, f=fig: f.savefig(
                 tmp, format="svg", metadata={"Date": None}))
         atomic_write(folder / f"{name}.png", lambda tmp, f=fig: f.savefig(
             tmp, format="png", dpi=150))
         svgs[name] = (folder / f"{name}.svg").read_text()
-        plt.close(fig)
     blocks = lag_blocks(result) if isinstance(result, LagResult) else survey_blocks(result)
     if "json" in formats:
         atomic_write(folder / "report.json", lambda tmp: Path(tmp).write_text(
@@ -153,23 +142,8 @@ def _plain(item):
 
 
 def _what_if_for(result, item):
-    wanted = {"resolution": f"halve the sample interval of {item.owner}",
-              "tie": "halve the tie-point uncertainty",
-              "bridge": "double the number of tie points (halving the bridge variance)",
-              "timescale": "remove the timescale error"}.get(item.kind)
-    return next((w for w in result.what_if if w.change == wanted), None)
-
-
-def _methods(result):
-    used = ["Mudelsee (2000)", "Mudelsee (2002)", "Efron & Tibshirani (1993)"]
-    text = " ".join(result.assumptions)
-    if "Erhardt" in result.a.method + result.b.method:
-        used.append("Erhardt et al. (2019)")
-    if "counting error" in text:
-        used.insert(0, "Andersen et al. (2006)")
-    if result.relation == "tied":
-        used += ["Divine et al. (2012)", "Heaton et al. (2013)"]
-    return used
+    wanted = what_if_for(item.kind, item.owner)
+    return next((w for w in result.what_if if w.key == wanted), None)
 
 
 def _provenance_rows(prov):
@@ -212,7 +186,7 @@ def lag_blocks(result):
                         f"Lag: one joint Monte Carlo of {result.request.draws} draws over every "
                         "source with its correlation; budget shares are each source's variance "
                         "over their sum.", f"Figures: {AGE_NOTE}."]),
-              ("h2", "References"), ("list", [REFERENCES[k] for k in _methods(result)]),
+              ("h2", "References"), ("list", [cite(k) for k in result.references]),
               *_provenance_blocks(result.provenance)]
     return blocks
 
@@ -242,7 +216,7 @@ def survey_blocks(result):
             ("h2", "Pairs"), ("table", ["pair", "lag (yr)", "95 % interval (yr)", "use"], rows),
             ("h2", "Assumptions"), ("list", result.assumptions),
             ("h2", "References"),
-            ("list", [REFERENCES[k] for k in ("DerSimonian & Laird (1986)", "Mudelsee (2000)")]),
+            ("list", [cite(k) for k in result.references]),
             *_provenance_blocks(result.provenance)]
 
 

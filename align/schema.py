@@ -11,23 +11,20 @@ Conventions: ages are in years in the named ``age_reference``; intervals are
 
 from __future__ import annotations
 
-from typing import Annotated, Any, Literal, Union
+from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, PrivateAttr
+from pydantic import ConfigDict, Field, PrivateAttr, create_model
 
-Pair = Annotated[list[float], Field(min_length=2, max_length=2)]
-AgeRef = Literal["b2k", "BP"]
-
-
-class Model(BaseModel):
-    """Base of every schema class: strict about unknown fields, JSON-ready."""
-
-    model_config = ConfigDict(extra="forbid")
-
-    def to_dict(self):
-        """The JSON-ready dictionary (the shape of ``--json`` and of the API)."""
-        return self.model_dump(mode="json")
-
+from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD,
+                           DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
+                           DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_TIMESCALE_MODEL,
+                           MAX_LAG_DRAWS, MIN_LAG_DRAWS, BudgetKind, CorrelationMethod,
+                           GridAxis, SurrogateKind, TimescaleModel, WhatIfKey)
+from align.markers import KINDS, Marker, MarkerSpec, MarkerTemplate
+from align.markers.event import EventCandidate, EventResult, MarkerSample
+from align.markers.onset import Levels, NoiseModel, OnsetResult
+from align.schema_base import (AgeRef, Estimate, InputRef, MarkerBase, MarkerDraws, Model, Pair,
+                               Provenance, Trace, json_schemas, validate_as)
 
 # --------------------------------------------------------------------------------------------
 # records
@@ -96,155 +93,6 @@ class AgeConversion(Model):
 
 
 # --------------------------------------------------------------------------------------------
-# provenance and estimates
-
-
-class InputRef(Model):
-    """One input of a result: its role, where it came from, and its checksum."""
-
-    role: str
-    source: str
-    sha256: str
-    timescale: str = ""
-
-
-class Provenance(Model):
-    """What a result was made from: inputs, parameters, seed and version."""
-
-    inputs: list[InputRef]
-    parameters: dict[str, Any]
-    seed: int | None = None
-    version: str
-    created: str
-
-
-class Estimate(Model):
-    """A quantity with its uncertainty: median, central 68 % and 95 % intervals, sd."""
-
-    median: float
-    ci68: Pair
-    ci95: Pair
-    sd: float
-
-
-# --------------------------------------------------------------------------------------------
-# markers
-
-
-class EventCandidate(Model):
-    """One run of anomalous samples: its age span ``[young, old]`` and strength."""
-
-    age_span: Pair
-    depth_span: Pair | None = None
-    peak_z: float
-    n_samples: int
-
-
-class MarkerSample(Model):
-    """The sample that holds a marker."""
-
-    index: int
-    age_interval: Pair
-    depth: float | None = None
-    value: float
-    z: float | None = None
-
-
-class Trace(Model):
-    """The window's data and the fitted curves, enough to redraw a marker's figure."""
-
-    age_top: list[float]
-    age_bottom: list[float]
-    value: list[float | None]
-    curve_age: list[float] = []
-    curve: list[float | None] = []
-    band_low: list[float | None] = []
-    band_high: list[float | None] = []
-    threshold: list[float | None] = []
-
-
-class MarkerBase(Model):
-    """What every marker says: where it was looked for, how, and at what resolution."""
-
-    record: str
-    variable: str
-    window: Pair
-    age_reference: AgeRef
-    method: str
-    sample_interval: float | None = Field(None, description="age interval (yr) of the sample "
-                                                            "holding the marker")
-    depth: float | None = None
-    trace: Trace
-    provenance: Provenance
-
-    _draws: Any = PrivateAttr(default=None)
-    _fit_draws: Any = PrivateAttr(default=None)
-
-
-class EventResult(MarkerBase):
-    """An event: the oldest sample of the first anomalous run in forward time (or its peak)."""
-
-    kind: Literal["event"] = "event"
-    found: bool
-    message: str
-    event: Estimate | None = None
-    sample: MarkerSample | None = None
-    candidates: list[EventCandidate]
-    threshold: float
-    baseline_years: float
-    scale: float
-    pick: Literal["first", "peak"]
-    direction: Literal["up", "down"]
-
-    @property
-    def age(self):
-        """The event's age estimate (uniform over its sample), or None when none was found."""
-        return self.event
-
-
-class Levels(Model):
-    """The levels before and after a transition (units of the variable)."""
-
-    before: Estimate
-    after: Estimate
-
-
-class NoiseModel(Model):
-    """The fitted noise: sd (units of the variable), AR(1) coefficient at the mean spacing,
-    persistence time (yr)."""
-
-    sd: float
-    ar1: float
-    tau: float
-    model: str = "AR(1) on the irregular time axis"
-
-
-class OnsetResult(MarkerBase):
-    """A transition onset (the older end of the ramp) with midpoint, end and levels."""
-
-    kind: Literal["onset"] = "onset"
-    onset: Estimate
-    midpoint: Estimate
-    end: Estimate
-    duration: Estimate
-    levels: Levels
-    amplitude: Estimate
-    noise: NoiseModel
-    direction: Literal["up", "down"]
-    clear_transition: bool
-    reason: str | None = None
-    draws_used: int
-
-    @property
-    def age(self):
-        """The onset's age estimate."""
-        return self.onset
-
-
-Marker = Annotated[Union[EventResult, OnsetResult], Field(discriminator="kind")]
-
-
-# --------------------------------------------------------------------------------------------
 # cross-correlation
 
 
@@ -267,7 +115,7 @@ class Curve(Model):
 class SurrogateInfo(Model):
     """The surrogates behind the p-value."""
 
-    kind: Literal["phase", "ar1"]
+    kind: SurrogateKind
     count: int
 
 
@@ -277,7 +125,7 @@ class XcorrResult(Model):
     a: str
     b: str
     window: Pair
-    method: Literal["pearson", "kernel"]
+    method: CorrelationMethod
     peak_lag: PeakLag
     peak_correlation: float
     p_value: float | None
@@ -293,26 +141,6 @@ class XcorrResult(Model):
 # lag requests and results
 
 
-class MarkerSpec(Model):
-    """Which marker to find, where. ``record`` is a path (CLI,
-    library; relative paths resolve beside the request file, then in the working folder) or
-    a stored record's id (HTTP API)."""
-
-    kind: Literal["event", "onset"]
-    record: str
-    variable: str
-    window: Pair
-    mapping: dict[str, Any] | None = Field(None, description="how to read a CSV record "
-                                                             "(open_record keywords)")
-    threshold: float | None = Field(None, gt=0, description="events: robust z threshold")
-    baseline_years: float | None = Field(None, gt=0, description="events: baseline span (yr)")
-    pick: Literal["first", "peak"] | None = None
-    direction: Literal["auto", "up", "down"] | None = None
-    method: Literal["ramp", "bayes"] | None = None
-    draws: int | None = Field(None, ge=100, le=100_000, description="onsets: bootstrap or "
-                                                                     "posterior draws")
-
-
 class LagRequest(Model):
     """A lag request: the same for ``corealign lag --request``, ``POST /lag`` and
     ``estimate_lag``."""
@@ -321,10 +149,12 @@ class LagRequest(Model):
     b: MarkerSpec
     ties: str | None = Field(None, description="tie table between b (depth) and a "
                                                "(ref_depth/ref_age); b is moved onto a")
-    age_reference: AgeRef = "b2k"
-    draws: int = Field(20_000, ge=1000, le=1_000_000)
+    age_reference: AgeRef = Field(DEFAULT_AGE_REFERENCE, description="reference of the "
+                                  "windows and results")
+    draws: int = Field(DEFAULT_LAG_DRAWS, ge=MIN_LAG_DRAWS, le=MAX_LAG_DRAWS,
+                       description="Monte Carlo draws")
     seed: int | None = Field(None, ge=0)
-    timescale_model: Literal["correlated", "random-walk"] = "correlated"
+    timescale_model: TimescaleModel = DEFAULT_TIMESCALE_MODEL
     bridge_rate: float | None = Field(None, ge=0)
 
 
@@ -342,7 +172,7 @@ class BudgetItem(Model):
     """One source of lag uncertainty: its sd (yr) and share of the summed variance."""
 
     component: str
-    kind: Literal["resolution", "detection", "timescale", "tie", "bridge"]
+    kind: BudgetKind
     owner: Literal["a", "b"] | None = Field(None, description="the marker or record it "
                                                                "belongs to, if one")
     sd: float
@@ -350,8 +180,10 @@ class BudgetItem(Model):
 
 
 class WhatIf(Model):
-    """The 95 % lag interval (yr) if one improvement were made."""
+    """The 95 % lag interval (yr) if one improvement were made: ``key`` for code, ``change``
+    in words for people."""
 
+    key: WhatIfKey
     change: str
     ci95: Pair
     width: float
@@ -398,35 +230,18 @@ class LagResult(Model):
     verdict: str
     resolvable_lag: float
     assumptions: list[str]
+    references: list[str] = Field(description="keys of the methods' references "
+                                              "(align.references)")
     age_reference: AgeRef
     figures: LagFigures
     provenance: Provenance
 
     _draws: Any = PrivateAttr(default=None)
 
-
-def validate_as(model, data, *, source=None):
-    """``model.model_validate(data)`` with the first problem raised as an
-    :class:`~align.errors.InputError` that names the offending field."""
-    from pydantic import ValidationError
-
-    from align.errors import InputError
-
-    try:
-        return model.model_validate(data)
-    except ValidationError as exc:
-        first = exc.errors()[0]
-        where = ".".join(map(str, first["loc"])) or None
-        raise InputError(first["msg"], source=source, field=where) from None
-
-
-def json_schemas(models):
-    """JSON Schemas of ``models`` with references into ``#/components/schemas`` (OpenAPI)."""
-    from pydantic.json_schema import models_json_schema
-
-    _, top = models_json_schema([(m, "serialization") for m in models],
-                                ref_template="#/components/schemas/{model}")
-    return top.get("$defs", {})
+    @property
+    def draws(self):
+        """The lag draws (yr; not serialised), or None when read back from JSON."""
+        return self._draws
 
 
 # --------------------------------------------------------------------------------------------
@@ -446,21 +261,6 @@ class EventTable(Model):
     rows: list[str] | None = Field(None, description="labels to use (default: all)")
 
 
-class MarkerTemplate(Model):
-    """A marker without its window (the table supplies it)."""
-
-    kind: Literal["event", "onset"]
-    record: str
-    variable: str
-    mapping: dict[str, Any] | None = None
-    threshold: float | None = Field(None, gt=0)
-    baseline_years: float | None = Field(None, gt=0)
-    pick: Literal["first", "peak"] | None = None
-    direction: Literal["auto", "up", "down"] | None = None
-    method: Literal["ramp", "bayes"] | None = None
-    draws: int | None = Field(None, ge=100, le=100_000)
-
-
 class PairSpec(Model):
     """One pair of a survey given explicitly."""
 
@@ -477,10 +277,12 @@ class SurveySpec(Model):
     a: MarkerTemplate | None = None
     b: MarkerTemplate | None = None
     ties: str | None = None
-    age_reference: AgeRef = "b2k"
-    draws: int = Field(20_000, ge=1000, le=1_000_000)
+    age_reference: AgeRef = Field(DEFAULT_AGE_REFERENCE, description="reference of the "
+                                  "windows and results")
+    draws: int = Field(DEFAULT_LAG_DRAWS, ge=MIN_LAG_DRAWS, le=MAX_LAG_DRAWS,
+                       description="Monte Carlo draws")
     seed: int | None = Field(None, ge=0)
-    timescale_model: Literal["correlated", "random-walk"] = "correlated"
+    timescale_model: TimescaleModel = DEFAULT_TIMESCALE_MODEL
 
 
 class SurveyPair(Model):
@@ -515,6 +317,8 @@ class SurveyResult(Model):
     n_used: int
     age_reference: AgeRef
     assumptions: list[str]
+    references: list[str] = Field(description="keys of the methods' references "
+                                              "(align.references)")
     provenance: Provenance
 
 
@@ -522,30 +326,27 @@ class SurveyResult(Model):
 # requests of the single steps (HTTP API bodies; the CLI flags and library keywords mirror them)
 
 
-class EventRequest(Model):
-    """Find an event (``detect_event``; ``POST /detect/event``)."""
+class StepCommon(Model):
+    """What a single detection names: the record, the variable, the window and its reference."""
 
     record: str
     variable: str
-    window: Pair | None = None
-    threshold: float = Field(5.0, gt=0)
-    baseline_years: float | None = Field(None, gt=0)
-    pick: Literal["first", "peak"] = "first"
-    direction: Literal["up", "down"] = "up"
-    age_reference: AgeRef | None = None
+    window: Pair | None = Field(None, description="[young, old] ages to search (an onset "
+                                                  "needs one)")
+    seed: int | None = Field(None, ge=0, description="for kinds that draw")
+    age_reference: AgeRef | None = Field(None, description="reference of the window and the "
+                                                           "result (default: the record's)")
 
 
-class OnsetRequest(Model):
-    """Fit an onset (``detect_onset``; ``POST /detect/onset``)."""
+def _step_request(kind):
+    return create_model(f"{kind.name.title()}Request", __base__=(kind.options, StepCommon),
+                        __doc__=f"Find {kind.summary} (``POST /detect/{kind.name}``).")
 
-    record: str
-    variable: str
-    window: Pair
-    direction: Literal["auto", "up", "down"] = "auto"
-    method: Literal["ramp", "bayes"] = "ramp"
-    draws: int = Field(2000, ge=100, le=100_000)
-    seed: int | None = Field(None, ge=0)
-    age_reference: AgeRef | None = None
+
+#: One single-step request class per marker kind (``POST /detect/{kind}``).
+DETECT_REQUESTS = {name: _step_request(kind) for name, kind in KINDS.items()}
+EventRequest = DETECT_REQUESTS["event"]
+OnsetRequest = DETECT_REQUESTS["onset"]
 
 
 class SeriesRef(Model):
@@ -562,13 +363,13 @@ class XcorrRequest(Model):
     b: SeriesRef
     max_lag: float = Field(gt=0)
     step: float | None = Field(None, gt=0)
-    method: Literal["pearson", "kernel"] = "pearson"
-    surrogates: int = Field(1000, ge=0, le=100_000)
-    surrogate_kind: Literal["phase", "ar1"] = "phase"
+    method: CorrelationMethod = DEFAULT_CORRELATION_METHOD
+    surrogates: int = Field(DEFAULT_SURROGATES, ge=0, le=100_000)
+    surrogate_kind: SurrogateKind = DEFAULT_SURROGATE_KIND
     window: Pair | None = None
     seed: int | None = Field(None, ge=0)
     age_reference: AgeRef | None = None
-    bootstrap: int = Field(1000, ge=10, le=100_000)
+    bootstrap: int = Field(DEFAULT_BOOTSTRAP, ge=10, le=100_000)
 
 
 class ResampleRequest(Model):
@@ -579,8 +380,8 @@ class ResampleRequest(Model):
     start: float | None = None
     stop: float | None = None
     variables: list[str] | None = None
-    min_coverage: float = Field(0.5, ge=0, le=1)
-    along: Literal["age", "depth"] = "age"
+    min_coverage: float = Field(DEFAULT_MIN_COVERAGE, ge=0, le=1)
+    along: GridAxis = DEFAULT_GRID_AXIS
     interpolate: bool = False
 
 
@@ -596,7 +397,7 @@ class GridVariable(Model):
 class GridSummary(Model):
     """A common grid (``resample --json``; ``POST /resample``); the grid itself is NetCDF."""
 
-    along: Literal["age", "depth"]
+    along: GridAxis
     age_reference: AgeRef | None = None
     step: float
     start: float
@@ -607,65 +408,16 @@ class GridSummary(Model):
     fine_cells: str
 
 
-# --------------------------------------------------------------------------------------------
-# the service's own bodies
-
-
-class Health(Model):
-    """``GET /health``."""
-
-    status: Literal["ok"]
-    version: str
-
-
-class RecordEntry(Model):
-    """A stored record in the catalogue."""
-
-    id: str
-    name: str
-    archive: str | None = None
-    site: str | None = None
-    timescale: str | None = None
-    timescale_kind: str | None = None
-    age_reference: AgeRef | None = None
-    n_samples: int
-    variables: list[str]
-    depth_range: Pair | None = None
-    age_range: Pair | None = None
-    checksum: str
-    created: str
-
-
-class RecordList(Model):
-    """``GET /records``."""
-
-    records: list[RecordEntry]
-
-
-class StoredRecord(Model):
-    """``POST /records`` and ``GET /records/{id}``: the catalogue entry and what it holds."""
-
-    entry: RecordEntry
-    info: RecordInfo
-
-
-class StoredTies(Model):
-    """``POST /ties``."""
-
-    id: str
-    labels: list[str]
-    ref_kind: Literal["depth", "age"]
-    checksum: str
-
-
-class Problem(Model):
-    """An RFC 9457 problem-details body (``application/problem+json``)."""
-
-    model_config = ConfigDict(extra="allow")
-
-    type: str
-    title: str
-    status: int
-    detail: str
-    instance: str | None = None
-    pointer: str | None = Field(None, description="JSON pointer to the offending field")
+#: Every name of the schema, including those defined in :mod:`align.schema_base` and the marker
+#: kinds (re-exported here so that the schema has one import path).
+__all__ = [
+    "AgeConversion", "AgeRef", "BudgetItem", "CoordinateInfo", "Curve", "DETECT_REQUESTS",
+    "Estimate", "EventCandidate", "EventRequest", "EventResult", "EventTable",
+    "GridSummary", "GridVariable", "Heterogeneity", "Histogram", "InputRef", "KINDS",
+    "LagFigures", "LagRequest", "LagResult", "LagSummary", "Levels", "Marker",
+    "MarkerBase", "MarkerDraws", "MarkerSample", "MarkerSpec", "MarkerTemplate", "Model",
+    "NoiseModel", "OnsetRequest", "OnsetResult", "Pair", "PairSpec", "PeakLag",
+    "Provenance", "RecordExcerpt", "RecordInfo", "ResampleRequest", "SeriesRef", "Spread",
+    "StepCommon", "SurrogateInfo", "SurveyPair", "SurveyResult", "SurveySpec", "Trace",
+    "VariableInfo", "WhatIf", "XcorrRequest", "XcorrResult", "json_schemas", "validate_as"
+]

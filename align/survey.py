@@ -84,10 +84,10 @@ def _one_pair(pair, spec, sources, seed):
         return SurveyPair(label=pair.label, error=str(exc)), None
     clear = all(getattr(m, "clear_transition", True) for m in (result.a, result.b))
     return SurveyPair(label=pair.label, lag=result.lag, a_age=result.a.age, b_age=result.b.age,
-                      verdict=result.verdict, clear=clear), result._draws
+                      verdict=result.verdict, clear=clear), result.draws
 
 
-def survey(spec, *, scheduler=None, progress=False, sources=None):
+def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=None):
     """Lags of many marker pairs and their combination.
 
     Parameters
@@ -97,10 +97,12 @@ def survey(spec, *, scheduler=None, progress=False, sources=None):
     scheduler : str, optional
         Address of a ``dask.distributed`` scheduler; default: dask's local threaded scheduler
         (the heavy parts release the GIL).
-    progress : bool
-        Show a progress bar (on a terminal).
+    progress : align.progress.Progress, optional
+        Reports finished pairs with an estimate of the time left.
     sources : align.lag.Sources, optional
         Where records and ties come from (default: paths beside the spec file).
+    age_reference : {"b2k", "BP"}, optional
+        Reference of the windows and results; overrides the spec's.
 
     Returns
     -------
@@ -114,6 +116,8 @@ def survey(spec, *, scheduler=None, progress=False, sources=None):
     the scheduler or the order in which pairs finish.
     """
     spec, base = survey_spec(spec)
+    if age_reference is not None:
+        spec = validate_as(SurveySpec, {**spec.model_dump(), "age_reference": age_reference})
     seed = resolve_seed(spec.seed)
     sources = sources or Sources(base)
     pairs = spec.pairs or table_pairs(spec, sources)
@@ -137,6 +141,7 @@ def survey(spec, *, scheduler=None, progress=False, sources=None):
                      "The combined lag is an inverse-variance weighted mean with a "
                      "DerSimonian-Laird between-pair variance; each pair enters through its "
                      "full Monte Carlo lag distribution.", CAUTION],
+        references=["dersimonian1986", "cochran1954", "mudelsee2000"],
         provenance=provenance(inputs=inputs, parameters=spec.model_dump(exclude={"seed"}),
                               seed=seed))
 
@@ -144,21 +149,23 @@ def survey(spec, *, scheduler=None, progress=False, sources=None):
 def _run(pairs, spec, sources, seeds, scheduler, progress):
     import dask
 
-    tasks = [dask.delayed(_one_pair, pure=True)(pair, spec, sources, s)
+    if progress is not None:
+        progress.begin(len(pairs))
+    tasks = [dask.delayed(_counted, pure=True)(pair, spec, sources, s, progress)
              for pair, s in zip(pairs, seeds)]
     if scheduler is not None:
         from distributed import Client
 
         with Client(scheduler) as client:
             return list(client.gather(client.compute(tasks)))
-    if progress:
-        import sys
-
-        from dask.diagnostics import ProgressBar
-
-        with ProgressBar(out=sys.stderr):
-            return list(dask.compute(*tasks, scheduler="threads"))
     return list(dask.compute(*tasks, scheduler="threads"))
+
+
+def _counted(pair, spec, sources, seed, progress):
+    outcome = _one_pair(pair, spec, sources, seed)
+    if progress is not None:
+        progress.step()
+    return outcome
 
 
 def _combine(draws, rng, samples=20_000):

@@ -41,32 +41,18 @@ def record_info(info):
     return "\n".join(lines)
 
 
-def _estimate(est, unit="yr"):
+def estimate_line(est, unit="yr"):
+    """An estimate as ``median unit (95 %: lo to hi)``."""
     return f"{est.median:.1f} {unit} (95 %: {est.ci95[0]:.1f} to {est.ci95[1]:.1f})"
 
 
 def marker(result):
-    """An event or onset result as a few lines of text."""
-    ref = result.age_reference
+    """A marker result as a few lines of text (each kind writes its own body)."""
+    from align.markers import kind_of
+
     lines = [f"{result.kind} in {result.record} {result.variable}, window "
-             f"{result.window[0]:g} to {result.window[1]:g} {ref}"]
-    if result.kind == "event":
-        lines.append(result.message)
-        if result.found:
-            lines.append(f"event       {_estimate(result.event, ref)}; sample "
-                         f"{result.sample.age_interval[0]:.1f} to {result.sample.age_interval[1]:.1f}"
-                         f" (z = {result.sample.z:.1f})")
-        for c in result.candidates:
-            lines.append(f"  candidate {c.age_span[0]:.1f} to {c.age_span[1]:.1f} {ref}: peak z "
-                         f"{c.peak_z:.1f}, {c.n_samples} sample(s)")
-    else:
-        lines += [f"onset       {_estimate(result.onset, ref)}",
-                  f"midpoint    {_estimate(result.midpoint, ref)}",
-                  f"end         {_estimate(result.end, ref)}",
-                  f"duration    {_estimate(result.duration)}",
-                  f"amplitude   {result.amplitude.median:.3g} ({result.direction}); noise sd "
-                  f"{result.noise.sd:.3g}, AR(1) {result.noise.ar1:.2f}",
-                  "clear transition" if result.clear_transition else result.reason]
+             f"{result.window[0]:g} to {result.window[1]:g} {result.age_reference}"]
+    lines += kind_of(result.kind).text(result)
     lines.append(f"method      {result.method}")
     return "\n".join(lines)
 
@@ -78,8 +64,8 @@ def lag(result):
              f"lag a - b   {result.lag.median:.1f} yr (68 %: {result.lag.ci68[0]:.1f} to "
              f"{result.lag.ci68[1]:.1f}; 95 %: {result.lag.ci95[0]:.1f} to "
              f"{result.lag.ci95[1]:.1f}); P(a before b) = {result.lag.p_a_before_b:.3f}",
-             f"a           {_estimate(result.a.age, ref)}",
-             f"b           {_estimate(result.b.age, ref)}",
+             f"a           {estimate_line(result.a.age, ref)}",
+             f"b           {estimate_line(result.b.age, ref)}",
              f"timescales  {result.relation}",
              "budget (share of the variance, sd):"]
     for item in sorted(result.budget, key=lambda b: -b.share):

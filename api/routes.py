@@ -10,10 +10,10 @@ from flask import Blueprint, current_app, jsonify, request, send_file
 
 from align.errors import InputError
 from align.provenance import sha256_bytes, version
-from align.schema import (EventRequest, EventResult, GridSummary, Health, LagRequest, LagResult,
-                          OnsetRequest, OnsetResult, RecordInfo, RecordList, ResampleRequest,
-                          StoredRecord, StoredTies, SurveyResult, SurveySpec, XcorrRequest,
+from align.schema import (DETECT_REQUESTS, KINDS, GridSummary, LagRequest, LagResult,
+                          RecordInfo, ResampleRequest, SurveyResult, SurveySpec, XcorrRequest,
                           XcorrResult)
+from api.bodies import Health, RecordList, StoredRecord, StoredTies
 from align.ties import read_ties
 from api import tasks
 from api.compute import ComputationTimeout, run
@@ -218,19 +218,26 @@ def upload_ties():
 # analyses
 
 
-@endpoint(analysis, "/detect/event", "POST", summary="Find an event", body=EventRequest,
-          response=EventResult, computes=True)
-def detect_event(body):
-    path = record_path(body.record, "/record")
-    return answer(compute(tasks.detect_event, body.model_dump(), path))
+def marker_limits(spec, pointer):
+    """The limits on a marker spec's own sizes (kinds that draw)."""
+    if getattr(spec, "draws", None) is not None:
+        limit(spec.draws, "MAX_DRAWS", f"{pointer}/draws")
 
 
-@endpoint(analysis, "/detect/onset", "POST", summary="Fit a transition onset",
-          body=OnsetRequest, response=OnsetResult, computes=True)
-def detect_onset(body):
-    limit(body.draws, "MAX_DRAWS", "/draws")
-    path = record_path(body.record, "/record")
-    return answer(compute(tasks.detect_onset, body.model_dump(), path))
+def _detect_view(name):
+    def view(body):
+        marker_limits(body, "")
+        path = record_path(body.record, "/record")
+        return answer(compute(tasks.detect, body.model_dump(), path))
+
+    view.__name__ = f"detect_{name}"
+    return view
+
+
+for _name, _kind in KINDS.items():  # one route per marker kind: POST /detect/{kind}
+    endpoint(analysis, f"/detect/{_name}", "POST", summary=f"Find {_kind.summary}",
+             body=DETECT_REQUESTS[_name], response=_kind.result, computes=True)(
+        _detect_view(_name))
 
 
 @endpoint(analysis, "/xcorr", "POST", summary="Cross-correlate two records",
@@ -280,7 +287,7 @@ def lag(body):
     paths = {}
     for side in ("a", "b"):
         spec = getattr(body, side)
-        limit(spec.draws, "MAX_DRAWS", f"/{side}/draws")
+        marker_limits(spec, f"/{side}")
         paths[spec.record] = record_path(spec.record, f"/{side}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
@@ -301,6 +308,7 @@ def survey(body):
     for k, pair in enumerate(body.pairs):
         for side in ("a", "b"):
             spec = getattr(pair, side)
+            marker_limits(spec, f"/pairs/{k}/{side}")
             paths[spec.record] = record_path(spec.record, f"/pairs/{k}/{side}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")

@@ -14,7 +14,7 @@ from functools import wraps
 
 from flask import current_app, request
 
-from align.schema import Problem as ProblemModel
+from api.bodies import Problem as ProblemModel
 from align.schema import json_schemas
 from api.problems import CONTENT_TYPE, Problem
 

@@ -60,18 +60,13 @@ def lag(request, paths):
         return _json(estimate_lag(request, sources=StoreSources(paths)))
 
 
-def detect_event(body, path):
-    from align.detect import detect_event as run
+def detect(body, path):
+    """Any marker kind (``body`` is a ``POST /detect/{kind}`` request)."""
+    from align.detect import detect_marker
 
-    options = {k: v for k, v in body.items() if k not in ("record", "variable", "window")}
-    return _json(run(open_record(path), body["variable"], body.get("window"), **options))
-
-
-def detect_onset(body, path):
-    from align.detect import detect_onset as run
-
-    options = {k: v for k, v in body.items() if k not in ("record", "variable", "window")}
-    return _json(run(open_record(path), body["variable"], body["window"], **options))
+    spec = {k: v for k, v in body.items() if k not in ("seed", "age_reference")}
+    return _json(detect_marker(open_record(path), spec, seed=body.get("seed"),
+                               age_reference=body.get("age_reference")))
 
 
 def xcorr(body, path_a, path_b):

@@ -5,7 +5,7 @@ import json
 import jsonschema
 
 from align import open_record
-from align.detect import detect_onset
+from align import detect_onset
 from align.lag import estimate_lag
 from align.schema import LagResult, OnsetResult
 from api.spec import openapi_document

@@ -4,9 +4,8 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
-from align import InputError, open_record
-from align.detect import detect_event, detect_onset
-from align.noise import persistence_time, simulate_ar1
+from align import InputError, detect_event, detect_onset, open_record
+from align.noise import simulate_ar1
 from align.ramp import bootstrap_ramps, fit_ramp, ramp
 from align.record import build_record
 from conftest import RECORDS, run_cli

@@ -15,7 +15,7 @@ import numpy as np
 from scipy.optimize import curve_fit
 
 from _timing import best_time, report
-from align.detect import detect_onset
+from align import detect_onset
 from align.noise import simulate_ar1
 from align.ramp import ramp
 from align.record import build_record

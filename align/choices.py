@@ -1,0 +1,92 @@
+"""Every set of choices and every default, written once.
+
+The schema (:mod:`align.schema`), the library's signatures and argument checks, the CLI's
+``choices=``, defaults and help, and the service all take them from here;
+``tests/test_choices.py`` checks that the CLI agrees with the schema. To add a choice, add it to
+its ``Literal`` here and handle it where it is computed.
+
+This module imports nothing heavy (``typing`` only), so the CLI can build its parser from it
+without loading the scientific stack.
+"""
+
+from __future__ import annotations
+
+from typing import Literal, get_args
+
+#: References a record's ages may be stored in (years before AD 2000 or AD 1950).
+RecordReference = Literal["b2k", "BP"]
+#: Every age convention :func:`align.convert_age` speaks.
+AgeConvention = Literal["b2k", "BP", "CE", "BCE", "ka b2k", "ka BP"]
+#: Units of an age column.
+AgeUnits = Literal["yr", "ka"]
+#: Units of a depth column.
+DepthUnits = Literal["m", "cm", "mm"]
+
+#: Which sample of an anomalous run dates an event.
+EventPick = Literal["first", "peak"]
+#: Spikes above or dips below the baseline.
+EventDirection = Literal["up", "down"]
+#: Rising, falling, or whichever fits better.
+OnsetDirection = Literal["auto", "up", "down"]
+#: How an onset and its uncertainty are estimated.
+OnsetMethod = Literal["ramp", "bayes"]
+
+#: How layer-counting errors accumulate with depth (:mod:`align.timescale`).
+TimescaleModel = Literal["correlated", "random-walk"]
+#: Interpolation between tie points (:func:`align.transfer`).
+TieInterpolation = Literal["linear", "pchip"]
+#: The coordinate a grid runs along.
+GridAxis = Literal["age", "depth"]
+#: Cross-correlation estimators.
+CorrelationMethod = Literal["pearson", "kernel"]
+#: Surrogates behind a cross-correlation's p-value.
+SurrogateKind = Literal["phase", "ar1"]
+#: Kinds of lag-budget items.
+BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge"]
+#: Machine keys of the what-if rows (the sentences shown to people are in ``align.lag``).
+WhatIfKey = Literal["halve_resolution_a", "halve_resolution_b", "halve_ties", "double_ties",
+                    "no_timescale"]
+#: Formats of a report folder.
+ReportFormat = Literal["html", "md", "json"]
+
+#: Defaults, one constant each.
+DEFAULT_AGE_REFERENCE: RecordReference = "b2k"
+DEFAULT_EVENT_THRESHOLD = 5.0
+DEFAULT_EVENT_PICK: EventPick = "first"
+DEFAULT_EVENT_DIRECTION: EventDirection = "up"
+DEFAULT_ONSET_DIRECTION: OnsetDirection = "auto"
+DEFAULT_ONSET_METHOD: OnsetMethod = "ramp"
+DEFAULT_ONSET_DRAWS = 2000
+DEFAULT_LAG_DRAWS = 20_000
+DEFAULT_TIMESCALE_MODEL: TimescaleModel = "correlated"
+DEFAULT_TIE_INTERPOLATION: TieInterpolation = "linear"
+DEFAULT_GRID_AXIS: GridAxis = "age"
+DEFAULT_MIN_COVERAGE = 0.5
+DEFAULT_CORRELATION_METHOD: CorrelationMethod = "pearson"
+DEFAULT_SURROGATES = 1000
+DEFAULT_SURROGATE_KIND: SurrogateKind = "phase"
+DEFAULT_BOOTSTRAP = 1000
+DEFAULT_SUGGEST_THRESHOLD = 4.0
+DEFAULT_AGE_UNITS: AgeUnits = "yr"
+DEFAULT_DEPTH_UNITS: DepthUnits = "m"
+
+#: Bounds on counts (also the schema's ``ge``/``le``).
+MIN_ONSET_DRAWS, MAX_ONSET_DRAWS = 100, 100_000
+MIN_LAG_DRAWS, MAX_LAG_DRAWS = 1000, 1_000_000
+
+
+def options(choice):
+    """The allowed values of a ``Literal`` alias, as a tuple (for ``choices=`` and checks)."""
+    return get_args(choice)
+
+
+def check_choice(value, choice, field):
+    """Raise :class:`~align.errors.InputError` naming ``field`` unless ``value`` is one of
+    ``choice``'s values; return ``value``."""
+    allowed = options(choice)
+    if value not in allowed:
+        from align.errors import InputError
+
+        raise InputError(f"{field} must be one of {', '.join(map(str, allowed))} "
+                         f"(got {value!r})", field=field)
+    return value

@@ -1,0 +1,237 @@
+"""Events: where a spike begins.
+
+An *event* is the moment an event signal begins: the oldest sample of the first anomalous run
+in forward time. Its age is known only to within that sample's age interval, so its
+distribution is uniform over it (sd ``h / sqrt(12)``). The threshold is a robust z-score: a
+running-median baseline and a MAD scale (x 1.4826) over a span of the record.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+import numpy as np
+from pydantic import Field
+
+from align.choices import (DEFAULT_EVENT_DIRECTION, DEFAULT_EVENT_PICK, DEFAULT_EVENT_THRESHOLD,
+                           EventDirection, EventPick, check_choice)
+from align.errors import InputError
+from align.markers.base import MarkerKind, Part
+from align.schema_base import Estimate, MarkerBase, MarkerDraws, Model, Pair
+
+#: Default running-median span of the event baseline, in median sample intervals.
+BASELINE_SAMPLES = 25
+
+
+class EventOptions(Model):
+    """The options of an event marker."""
+
+    kind: Literal["event"] = "event"
+    threshold: float = Field(DEFAULT_EVENT_THRESHOLD, gt=0,
+                             description="robust z-score a run must exceed")
+    baseline_years: float | None = Field(None, gt=0, description="running-median span (yr); "
+                                         f"default {BASELINE_SAMPLES} median sample intervals")
+    pick: EventPick = Field(DEFAULT_EVENT_PICK, description="the oldest sample of the first "
+                            "run in forward time, or that run's peak")
+    direction: EventDirection = Field(DEFAULT_EVENT_DIRECTION,
+                                      description="spikes above or dips below the baseline")
+
+
+class EventCandidate(Model):
+    """One run of anomalous samples: its age span ``[young, old]`` and strength."""
+
+    age_span: Pair
+    depth_span: Pair | None = None
+    peak_z: float
+    n_samples: int
+
+
+class MarkerSample(Model):
+    """The sample that holds a marker."""
+
+    index: int
+    age_interval: Pair
+    depth: float | None = None
+    value: float
+    z: float | None = None
+
+
+class EventResult(MarkerBase):
+    """An event: the oldest sample of the first anomalous run in forward time (or its peak)."""
+
+    kind: Literal["event"] = "event"
+    found: bool
+    message: str
+    event: Estimate | None = None
+    sample: MarkerSample | None = None
+    candidates: list[EventCandidate]
+    threshold: float
+    baseline_years: float
+    scale: float
+    pick: EventPick
+    direction: EventDirection
+
+    @property
+    def age(self):
+        """The event's age estimate (uniform over its sample), or None when none was found."""
+        return self.event
+
+
+def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRESHOLD,
+                 baseline_years=None, pick=DEFAULT_EVENT_PICK,
+                 direction=DEFAULT_EVENT_DIRECTION, age_reference=None):
+    """Find where an event signal (a spike) begins.
+
+    Parameters
+    ----------
+    record : xarray.Dataset
+    variable : str
+    window : [young, old], optional
+        Ages to search (the record's reference, or ``age_reference``); default the record.
+    threshold : float
+        Robust z-score (running-median baseline, MAD x 1.4826 scale) a run must exceed.
+    baseline_years : float, optional
+        Running-median span (default 25 median sample intervals).
+    pick : {"first", "peak"}
+        The oldest sample of the first run in forward time, or that run's peak sample.
+    direction : {"up", "down"}
+        Spikes above or dips below the baseline.
+    age_reference : {"b2k", "BP"}, optional
+        Reference of the window and the result (default: the record's).
+
+    Returns
+    -------
+    EventResult
+        ``event`` uniform over the picked sample's age interval (yr); every candidate run
+        with its age span and peak z; ``found = False`` with a message when no run exceeds
+        the threshold (a normal result, not an error).
+    """
+    from align.anomaly import robust_z, runs_above
+    from align.detect import prepare_window, trace_list, uniform_estimate
+    from align.provenance import provenance, record_input
+    from align.record import age_reference as reference_of
+    from align.record import record_name
+    from align.schema_base import Trace
+
+    check_choice(pick, EventPick, "pick")
+    check_choice(direction, EventDirection, "direction")
+    if not (np.isfinite(threshold) and threshold > 0):
+        raise InputError("threshold must be a positive number", field="threshold")
+    record, window = prepare_window(record, variable, window, age_reference)
+    age = record["age"].values
+    bounds = record["age_bounds"].values
+    width = bounds[:, 1] - bounds[:, 0]
+    span = float(baseline_years) if baseline_years else BASELINE_SAMPLES * float(np.median(width))
+    if not span > 0:
+        raise InputError("baseline_years must be positive", field="baseline_years")
+    near = (age >= window[0] - span / 2) & (age <= window[1] + span / 2)
+    inside = np.flatnonzero((age >= window[0]) & (age <= window[1]))
+    if inside.size < 5:
+        raise InputError(f"only {inside.size} samples in the window", field="window")
+    values = record[variable].values.astype(float)
+    sign = 1.0 if direction == "up" else -1.0
+    near_idx = np.flatnonzero(near)
+    z_near, base_near, scale = robust_z(age[near_idx], sign * values[near_idx], span)
+    z = np.full(age.size, np.nan)
+    z[near_idx] = z_near
+    baseline = np.full(age.size, np.nan)
+    baseline[near_idx] = sign * base_near
+    runs = [(inside[a], inside[b]) for a, b in runs_above(z[inside], threshold)]
+    depth = record["depth"].values if "depth" in record.coords else None
+    candidates = [EventCandidate(
+        age_span=[float(bounds[a:b + 1, 0].min()), float(bounds[a:b + 1, 1].max())],
+        depth_span=None if depth is None else [float(depth[a]), float(depth[b])],
+        peak_z=float(np.nanmax(z[a:b + 1])), n_samples=int(b - a + 1)) for a, b in runs]
+    trace = Trace(age_top=bounds[inside, 0].tolist(), age_bottom=bounds[inside, 1].tolist(),
+                  value=trace_list(values[inside]), curve_age=age[inside].tolist(),
+                  curve=trace_list(baseline[inside]),
+                  threshold=trace_list(baseline[inside] + sign * threshold * scale))
+    common = dict(record=record_name(record), variable=variable, window=window,
+                  age_reference=reference_of(record),
+                  method=(f"robust z-score > {threshold:g} (running median over {span:g} yr, "
+                          "MAD x 1.4826), first anomalous run in forward time"),
+                  candidates=candidates, threshold=float(threshold), baseline_years=span,
+                  scale=float(scale), pick=pick, direction=direction, trace=trace,
+                  provenance=provenance(inputs=[record_input(record, "record")], parameters={
+                      "variable": variable, "window": window, "threshold": threshold,
+                      "baseline_years": span, "pick": pick, "direction": direction}))
+    if not runs:
+        return EventResult(found=False, message=f"no event found: no sample in the window "
+                                                f"exceeds {threshold:g} robust sd", **common)
+    first, last = max(runs, key=lambda run: age[run[0]])  # the oldest run comes first
+    i = last if pick == "first" else first + int(np.nanargmax(z[first:last + 1]))
+    lo, hi = float(bounds[i, 0]), float(bounds[i, 1])
+    note = (f"{len(runs)} candidate runs; the oldest is taken" if len(runs) > 1
+            else "one anomalous run")
+    return EventResult(
+        found=True, message=f"event found ({note})", event=uniform_estimate(lo, hi),
+        sample=MarkerSample(index=int(i), age_interval=[lo, hi],
+                            depth=None if depth is None else float(depth[i]),
+                            value=float(values[i]), z=float(z[i])),
+        sample_interval=hi - lo, depth=None if depth is None else float(depth[i]), **common)
+
+
+class Event(MarkerKind):
+    """The event kind (see the module)."""
+
+    name = "event"
+    summary = "where a spike begins (robust z-score)"
+    options = EventOptions
+    result = EventResult
+    window_required = False
+
+    def detect(self, record, variable, window, options, *, seed, age_reference):
+        marker = detect_event(record, variable, window, age_reference=age_reference, **options)
+        if marker.found:
+            marker.with_draws(MarkerDraws(age=np.asarray(marker.sample.age_interval)))
+        return marker
+
+    def usable(self, marker, label):
+        if not marker.found:
+            raise InputError(f"marker {label}: {marker.message} (see the candidates; lower the "
+                             "threshold or move the window)", field=f"{label}.window")
+
+    def center(self, marker):
+        return float(np.mean(marker.sample.age_interval))
+
+    def parts(self, marker, label, sign, n, rng):
+        lo, hi = marker.sample.age_interval
+        return [Part(f"{self.part_name(marker, label)}: position within its sample "
+                     f"({hi - lo:.3g} yr)", "resolution", label,
+                     sign * rng.uniform(-(hi - lo) / 2, (hi - lo) / 2, n))]
+
+    def assumptions(self, marker, label):
+        return [f"Marker {label}: the event's age is uniform over the age interval of its first "
+                "anomalous sample."]
+
+    def draw(self, ax, marker, colour):
+        from align.figures import COLOURS, interval_span
+
+        trace = marker.trace
+        ax.plot(trace.curve_age, [np.nan if v is None else v for v in trace.curve],
+                color=COLOURS["ink"], lw=1, label="baseline (running median)")
+        ax.plot(trace.curve_age, [np.nan if v is None else v for v in trace.threshold],
+                color=COLOURS["ink"], lw=1, ls=":",
+                label=f"threshold ({marker.threshold:g} robust sd)")
+        for candidate in marker.candidates:
+            ax.axvspan(*candidate.age_span, color=COLOURS["light"], lw=0)
+        if marker.found:
+            interval_span(ax, marker.event, colour, "event")
+        return f"Event pick: {marker.variable} in {marker.record} ({marker.message})"
+
+    def text(self, marker):
+        from align.text import estimate_line
+
+        ref = marker.age_reference
+        lines = [marker.message]
+        if marker.found:
+            lo, hi = marker.sample.age_interval
+            lines.append(f"event       {estimate_line(marker.event, ref)}; sample {lo:.1f} to "
+                         f"{hi:.1f} (z = {marker.sample.z:.1f})")
+        for c in marker.candidates:
+            lines.append(f"  candidate {c.age_span[0]:.1f} to {c.age_span[1]:.1f} {ref}: peak z "
+                         f"{c.peak_z:.1f}, {c.n_samples} sample(s)")
+        return lines
+
+
+KIND = Event()

@@ -1,0 +1,293 @@
+"""Onsets: the start, in forward time, of a transition (the older end of a fitted ramp).
+
+The ramp is fitted by ramp-function regression (Mudelsee 2000) with an AR(1) parametric
+bootstrap, or by the Bayesian linear ramp with AR(1) noise (Erhardt et al. 2019); either way
+the onset's uncertainty is never finer than the sampling. Timescale error is kept separate;
+the lag stage adds it with the right correlations.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+import numpy as np
+from pydantic import Field
+
+from align.choices import (DEFAULT_ONSET_DIRECTION, DEFAULT_ONSET_DRAWS, DEFAULT_ONSET_METHOD,
+                           MAX_ONSET_DRAWS, MIN_ONSET_DRAWS, EventDirection, OnsetDirection,
+                           OnsetMethod, check_choice)
+from align.errors import InputError
+from align.markers.base import MarkerKind, Part
+from align.schema_base import Estimate, MarkerBase, MarkerDraws, Model
+
+#: Points on the age axis at which a fitted ramp's uncertainty band is drawn.
+BAND_POINTS = 200
+#: Draws that outline a fitted ramp's 95 % band in figures.
+BAND_DRAWS = 400
+
+
+class OnsetOptions(Model):
+    """The options of an onset marker."""
+
+    kind: Literal["onset"] = "onset"
+    direction: OnsetDirection = Field(DEFAULT_ONSET_DIRECTION,
+                                      description="rising, falling, or whichever fits better")
+    method: OnsetMethod = Field(DEFAULT_ONSET_METHOD, description="ramp regression with an "
+                                "AR(1) bootstrap, or the Bayesian ramp (MCMC)")
+    draws: int = Field(DEFAULT_ONSET_DRAWS, ge=MIN_ONSET_DRAWS, le=MAX_ONSET_DRAWS,
+                       description="bootstrap replicates or posterior draws")
+
+
+class Levels(Model):
+    """The levels before and after a transition (units of the variable)."""
+
+    before: Estimate
+    after: Estimate
+
+
+class NoiseModel(Model):
+    """The fitted noise: sd (units of the variable), AR(1) coefficient at the mean spacing,
+    persistence time (yr)."""
+
+    sd: float
+    ar1: float
+    tau: float
+    model: str = "AR(1) on the irregular time axis"
+
+
+class OnsetResult(MarkerBase):
+    """A transition onset (the older end of the ramp) with midpoint, end and levels."""
+
+    kind: Literal["onset"] = "onset"
+    onset: Estimate
+    midpoint: Estimate
+    end: Estimate
+    duration: Estimate
+    levels: Levels
+    amplitude: Estimate
+    noise: NoiseModel
+    direction: EventDirection
+    clear_transition: bool
+    reason: str | None = None
+    draws_used: int
+
+    @property
+    def age(self):
+        """The onset's age estimate."""
+        return self.onset
+
+
+def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
+                 method=DEFAULT_ONSET_METHOD, draws=DEFAULT_ONSET_DRAWS, seed=None,
+                 age_reference=None):
+    """Fit the onset of a transition and its uncertainty.
+
+    Parameters
+    ----------
+    record : xarray.Dataset
+    variable : str
+    window : [young, old]
+        Ages holding the transition with some of both plateaus.
+    direction : {"auto", "up", "down"}
+        Rising, falling, or whichever fits better.
+    method : {"ramp", "bayes"}
+        Ramp regression with an AR(1) parametric bootstrap (default), or the Bayesian linear
+        ramp with AR(1) noise of Erhardt et al. (2019), sampled by MCMC.
+    draws : int
+        Bootstrap replicates or posterior draws.
+    seed : int, optional
+        Drawn and recorded when None.
+    age_reference : {"b2k", "BP"}, optional
+        Reference of the window and the result (default: the record's).
+
+    Returns
+    -------
+    OnsetResult
+        Onset, midpoint and end (ages, yr), duration (yr), levels and amplitude (units of the
+        variable), the noise model, ``clear_transition`` with a reason when the step is not
+        larger than twice the noise sd or a corner sits at the window edge; the onset draws
+        are attached as :class:`~align.schema_base.MarkerDraws` (``result.draws``, not
+        serialised) for the lag stage.
+
+    Notes
+    -----
+    The fit runs in forward time ``t = -age`` with each sample weighted by its age interval
+    (so that densely sampled stretches do not outweigh sparse ones). The bootstrap adds AR(1)
+    noise with the residuals' sd and persistence (:func:`align.noise.ar1_persistence`) to the
+    fitted ramp and refits; both noise parameters are first bias-corrected by a pilot
+    bootstrap (a fitted ramp soaks up part of red noise, so residuals look whiter and quieter
+    than the noise was); each draw of the onset (and end) is then displaced uniformly within the
+    age interval of the sample at that point, because a fit cannot place a corner more
+    finely than the sampling.
+
+    References
+    ----------
+    Mudelsee (2000), doi:10.1016/S0098-3004(99)00141-7; Erhardt et al. (2019),
+    doi:10.5194/cp-15-811-2019 (keys ``mudelsee2000`` and ``erhardt2019`` of
+    :mod:`align.references`).
+    """
+    from align.detect import estimate, onset_bootstrap, prepare_window
+    from align.provenance import provenance, record_input, resolve_seed
+    from align.record import age_reference as reference_of
+    from align.record import record_name
+
+    check_choice(method, OnsetMethod, "method")
+    check_choice(direction, OnsetDirection, "direction")
+    if not (isinstance(draws, (int, np.integer)) and draws >= MIN_ONSET_DRAWS):
+        raise InputError(f"draws must be an integer of at least {MIN_ONSET_DRAWS}",
+                         field="draws")
+    if window is None:
+        raise InputError("an onset needs a window (young, old)", field="window")
+    seed = resolve_seed(seed)
+    record, window = prepare_window(record, variable, window, age_reference)
+    age = record["age"].values
+    bounds = record["age_bounds"].values
+    values = record[variable].values.astype(float)
+    keep = np.flatnonzero((age >= window[0]) & (age <= window[1]) & np.isfinite(values))
+    if keep.size < 8:
+        raise InputError(f"only {keep.size} samples with values in the window; an onset fit "
+                         "needs at least 8", field="window")
+    order = keep[::-1]  # forward time: oldest first
+    t, x = -age[order], values[order]
+    width = bounds[order, 1] - bounds[order, 0]
+    w = width / width.mean()
+    sign = {"auto": 0, "up": 1, "down": -1}[direction]
+    rng = np.random.default_rng(seed)
+    if method == "ramp":
+        samples, fit, noise = onset_bootstrap(t, x, w, sign, draws, rng)
+    else:
+        from align.bayes import posterior_ramps
+
+        samples, fit, noise = posterior_ramps(t, x, w, sign, draws, rng)
+    # resolution: a corner is placed no more finely than the sample interval where it sits
+    h_onset = np.interp(samples[:, 0], t, width)
+    h_end = np.interp(samples[:, 1], t, width)
+    onset_t = samples[:, 0] + rng.uniform(-0.5, 0.5, len(samples)) * h_onset
+    end_t = np.maximum(samples[:, 1] + rng.uniform(-0.5, 0.5, len(samples)) * h_end, onset_t)
+    onset_age, end_age = -onset_t, -end_t
+    amplitude = samples[:, 3] - samples[:, 2]
+    clear, reason = _clarity(fit, noise)
+    depth = record["depth"].values if "depth" in record.coords else None
+    result = OnsetResult(
+        record=record_name(record), variable=variable, window=window,
+        age_reference=reference_of(record), method=_method_text(method, noise),
+        references=(["mudelsee2000", "mudelsee2002", "efron1993"] if method == "ramp"
+                    else ["erhardt2019"]),
+        sample_interval=float(np.interp(fit.t1, t, width)),
+        depth=None if depth is None else float(np.interp(-fit.t1, age, depth)),
+        onset=estimate(onset_age), midpoint=estimate(0.5 * (onset_age + end_age)),
+        end=estimate(end_age), duration=estimate(onset_age - end_age),
+        levels=Levels(before=estimate(samples[:, 2]), after=estimate(samples[:, 3])),
+        amplitude=estimate(amplitude), noise=noise,
+        direction="up" if fit.x2 > fit.x1 else "down", clear_transition=clear, reason=reason,
+        draws_used=int(len(samples)),
+        trace=_onset_trace(bounds[keep], values[keep], window, fit, samples),
+        provenance=provenance(inputs=[record_input(record, "record")], parameters={
+            "variable": variable, "window": window, "direction": direction, "method": method,
+            "draws": draws}, seed=seed))
+    return result.with_draws(MarkerDraws(age=onset_age, fit=-samples[:, 0]))
+
+
+def _clarity(fit, noise):
+    step = abs(fit.x2 - fit.x1)
+    if step <= 2.0 * noise.sd:
+        return False, (f"no clear transition: the step ({step:.3g}) is not larger than twice "
+                       f"the noise sd ({noise.sd:.3g})")
+    if fit.edge:
+        return False, ("no clear transition: a corner of the fitted ramp sits at the window "
+                       "edge; widen the window to include both plateaus")
+    return True, None
+
+
+def _method_text(method, noise):
+    if method == "ramp":
+        return ("ramp regression (Mudelsee 2000) in forward time, levels by weighted least "
+                "squares, corners by exhaustive search over the samples then continuous "
+                "refinement; AR(1) parametric bootstrap on the irregular axis (tau "
+                f"{noise.tau:.3g} yr, bias-corrected), replicates searched coarse-to-fine; "
+                "corners displaced uniformly within their sample interval")
+    return ("Bayesian linear ramp with AR(1) noise (Erhardt et al. 2019), MCMC (emcee); "
+            "corners displaced uniformly within their sample interval")
+
+
+def _onset_trace(bounds, values, window, fit, samples):
+    from align.detect import trace_list
+    from align.ramp import ramp, ramps
+    from align.schema_base import Trace
+
+    grid = np.linspace(window[1], window[0], BAND_POINTS)  # old to young
+    curves = ramps(-grid, samples[:BAND_DRAWS])
+    lo, hi = np.percentile(curves, [2.5, 97.5], axis=0)
+    return Trace(age_top=bounds[:, 0].tolist(), age_bottom=bounds[:, 1].tolist(),
+                 value=trace_list(values), curve_age=grid.tolist(),
+                 curve=ramp(-grid, fit.t1, fit.t2, fit.x1, fit.x2).tolist(),
+                 band_low=lo.tolist(), band_high=hi.tolist())
+
+
+class Onset(MarkerKind):
+    """The onset kind (see the module)."""
+
+    name = "onset"
+    summary = "the onset of a transition (ramp fit)"
+    options = OnsetOptions
+    result = OnsetResult
+
+    def detect(self, record, variable, window, options, *, seed, age_reference):
+        return detect_onset(record, variable, window, seed=seed, age_reference=age_reference,
+                            **options)
+
+    def center(self, marker):
+        return float(np.median(self._draws(marker).fit))
+
+    def parts(self, marker, label, sign, n, rng):
+        draws = self._draws(marker)
+        pick = rng.integers(0, draws.age.size, n)
+        fit = draws.fit[pick]
+        jitter = draws.age[pick] - fit
+        name = self.part_name(marker, label)
+        return [Part(f"{name}: onset fit under AR(1) noise", "detection", label,
+                     sign * (fit - np.median(draws.fit))),
+                Part(f"{name}: sample interval at the onset ({marker.sample_interval:.3g} yr)",
+                     "resolution", label, sign * jitter)]
+
+    @staticmethod
+    def _draws(marker):
+        if marker.draws is None:
+            raise InputError("this onset carries no draws (a result read back from JSON); "
+                             "detect it again to use it in a lag", field="draws")
+        return marker.draws
+
+    def assumptions(self, marker, label):
+        out = [f"Marker {label}: ramp fit with AR(1) noise (sd {marker.noise.sd:.3g}, "
+               f"coefficient {marker.noise.ar1:.2f} at the mean spacing); the onset is placed "
+               "no more finely than its sample interval."]
+        if not marker.clear_transition:
+            out.append(f"Caution, marker {label}: {marker.reason}.")
+        return out
+
+    def draw(self, ax, marker, colour):
+        from align.figures import COLOURS, interval_span
+
+        trace = marker.trace
+        ax.fill_between(trace.curve_age, [np.nan if v is None else v for v in trace.band_low],
+                        [np.nan if v is None else v for v in trace.band_high],
+                        color=COLOURS["band"], alpha=0.6, lw=0, label="ramp 95 % band")
+        ax.plot(trace.curve_age, trace.curve, color=COLOURS["ink"], lw=1.5, label="fitted ramp")
+        interval_span(ax, marker.onset, colour, "onset")
+        state = "clear transition" if marker.clear_transition else "NO clear transition"
+        return f"Onset fit: {marker.variable} in {marker.record} ({state})"
+
+    def text(self, marker):
+        from align.text import estimate_line
+
+        ref = marker.age_reference
+        return [f"onset       {estimate_line(marker.onset, ref)}",
+                f"midpoint    {estimate_line(marker.midpoint, ref)}",
+                f"end         {estimate_line(marker.end, ref)}",
+                f"duration    {estimate_line(marker.duration)}",
+                f"amplitude   {marker.amplitude.median:.3g} ({marker.direction}); noise sd "
+                f"{marker.noise.sd:.3g}, AR(1) {marker.noise.ar1:.2f}",
+                "clear transition" if marker.clear_transition else marker.reason]
+
+
+KIND = Onset()

@@ -1,0 +1,70 @@
+"""The service's own bodies: what only the HTTP API answers (the results it shares with the
+library and the CLI are in :mod:`align.schema`)."""
+
+from __future__ import annotations
+
+from typing import Literal
+
+from pydantic import ConfigDict, Field
+
+from align.schema import AgeRef, Model, Pair, RecordInfo
+
+
+class Health(Model):
+    """``GET /health``."""
+
+    status: Literal["ok"]
+    version: str
+
+
+class RecordEntry(Model):
+    """A stored record in the catalogue."""
+
+    id: str
+    name: str
+    archive: str | None = None
+    site: str | None = None
+    timescale: str | None = None
+    timescale_kind: str | None = None
+    age_reference: AgeRef | None = None
+    n_samples: int
+    variables: list[str]
+    depth_range: Pair | None = None
+    age_range: Pair | None = None
+    checksum: str
+    created: str
+
+
+class RecordList(Model):
+    """``GET /records``."""
+
+    records: list[RecordEntry]
+
+
+class StoredRecord(Model):
+    """``POST /records`` and ``GET /records/{id}``: the catalogue entry and what it holds."""
+
+    entry: RecordEntry
+    info: RecordInfo
+
+
+class StoredTies(Model):
+    """``POST /ties``."""
+
+    id: str
+    labels: list[str]
+    ref_kind: Literal["depth", "age"]
+    checksum: str
+
+
+class Problem(Model):
+    """An RFC 9457 problem-details body (``application/problem+json``)."""
+
+    model_config = ConfigDict(extra="allow")
+
+    type: str
+    title: str
+    status: int
+    detail: str
+    instance: str | None = None
+    pointer: str | None = Field(None, description="JSON pointer to the offending field")
