@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from align.choices import AgeConvention, RecordReference, options
 from align.errors import InputError
 
 #: Offset of each reference from BP, in years, and the scale of its unit.
@@ -37,9 +38,9 @@ _ALIASES = {
 }
 
 #: The references a record's age coordinate may use (ages in years).
-RECORD_REFERENCES = ("b2k", "BP")
+RECORD_REFERENCES = options(RecordReference)
 #: Every reference :func:`convert_age` accepts, canonical spelling.
-REFERENCES = ("b2k", "BP", "CE", "BCE", "ka b2k", "ka BP")
+REFERENCES = options(AgeConvention)
 
 
 def canonical_reference(name, *, field="age_reference"):

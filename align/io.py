@@ -124,7 +124,8 @@ def _read_netcdf(path, mapping, meta):
         with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as opened:
             ds = opened.load()
     except (OSError, ValueError, RuntimeError) as exc:
-        reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else exc.__class__.__name__
+        reason = (exc.strerror if isinstance(exc, OSError) and exc.strerror
+                  else exc.__class__.__name__)
         raise NotATableError(f"not a readable NetCDF file ({reason})", source=str(path)) from exc
     checksum = sha256_file(path)
     if SAMPLE in ds.dims and ("depth" in ds.coords or "age" in ds.coords):

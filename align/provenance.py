@@ -55,7 +55,7 @@ def resolve_seed(seed):
 
 def utc_now():
     """The current UTC time, ISO 8601 to the second."""
-    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+    return _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat()
 
 
 def history_line(text):

@@ -314,8 +314,8 @@ def _check_bounds(ds, name, fail, strict):
     width = b[:, 1] - b[:, 0]
     if (width <= 0).any():
         i = np.argmax(width <= 0)
-        fail(f"sample interval {b[i, 0]:g} to {b[i, 1]:g} is {'empty' if width[i] == 0 else 'negative'}",
-             bname, i)
+        what = "empty" if width[i] == 0 else "negative"
+        fail(f"sample interval {b[i, 0]:g} to {b[i, 1]:g} is {what}", bname, i)
     tol = 1e-9 * max(1.0, float(np.abs(b).max()))
     overlap = b[1:, 0] < b[:-1, 1] - tol
     if overlap.any():

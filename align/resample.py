@@ -17,12 +17,13 @@ import numpy as np
 import xarray as xr
 
 from align.ages import reference_label
+from align.choices import (DEFAULT_GRID_AXIS, DEFAULT_MIN_COVERAGE, DEFAULT_TIE_INTERPOLATION,
+                           GridAxis, check_choice)
 from align.errors import InputError
 from align.record import (MEMBER, NV, SAMPLE, age_reference, interp_extrapolate,
                           proxy_variables, record_name, with_age_reference)
 from align.provenance import history_line
 
-ALONG = ("age", "depth")
 #: Member x cell count above which an ensemble is resampled lazily with dask.
 LAZY_ENSEMBLE = 2_000_000
 
@@ -102,17 +103,19 @@ def grid_edges(lo, hi, step, start=None, stop=None):
 def round_step(step):
     """The smallest of 1, 2, 2.5 or 5 times a power of ten that is at least ``step``."""
     power = 10.0 ** np.floor(np.log10(step))
-    return float(next(f * power for f in (1.0, 2.0, 2.5, 5.0, 10.0) if f * power >= step * (1 - 1e-12)))
+    return float(next(f * power for f in (1.0, 2.0, 2.5, 5.0, 10.0)
+                      if f * power >= step * (1 - 1e-12)))
 
 
-def native_resolution(record, along="age"):
+def native_resolution(record, along=DEFAULT_GRID_AXIS):
     """Median sample interval of a record along ``along`` (yr or m)."""
     bounds = record[f"{along}_bounds"].values
     return float(np.median(bounds[:, 1] - bounds[:, 0]))
 
 
-def resample(records, step=None, *, start=None, stop=None, variables=None, min_coverage=0.5,
-             along="age", interpolate=False, reference=None):
+def resample(records, step=None, *, start=None, stop=None, variables=None,
+             min_coverage=DEFAULT_MIN_COVERAGE,
+             along=DEFAULT_GRID_AXIS, interpolate=False, reference=None):
     """Resample one record, or several onto one grid.
 
     Parameters
@@ -151,8 +154,7 @@ def resample(records, step=None, *, start=None, stop=None, variables=None, min_c
     group = [records] if isinstance(records, xr.Dataset) else list(records)
     if not group:
         raise InputError("no record to resample", field="records")
-    if along not in ALONG:
-        raise InputError(f"along must be 'age' or 'depth' (got {along!r})", field="along")
+    check_choice(along, GridAxis, "along")
     if not 0.0 <= min_coverage <= 1.0:
         raise InputError("min_coverage must lie between 0 and 1", field="min_coverage")
     group = _common_reference(group, along, reference)
@@ -331,8 +333,9 @@ def _ensemble_cells(record, var, edges, min_coverage):
         "cell_methods": "age: mean"})
 
 
-def align_records(a, b, *, ties=None, same_timescale=False, step=None, min_coverage=0.5,
-                  method="linear", bridge_rate=None):
+def align_records(a, b, *, ties=None, same_timescale=False, step=None,
+                  min_coverage=DEFAULT_MIN_COVERAGE, method=DEFAULT_TIE_INTERPOLATION,
+                  bridge_rate=None):
     """Put record ``b`` on record ``a``'s timescale and both on one grid.
 
     Parameters

@@ -62,7 +62,8 @@ def find_peaks(record, variable, *, threshold=4.0, baseline_years=None):
     width = bounds[:, 1] - bounds[:, 0]
     span = baseline_years or 25.0 * float(np.median(width))
     z, _, _ = robust_z(age, record[variable].values, span)
-    peaks = [first + int(np.nanargmax(z[first:last + 1])) for first, last in runs_above(z, threshold)]
+    peaks = [first + int(np.nanargmax(z[first:last + 1]))
+             for first, last in runs_above(z, threshold)]
     index = np.asarray(peaks, dtype=int)
     depth = record["depth"].values[index] if "depth" in record.coords else np.full(index.size,
                                                                                      np.nan)

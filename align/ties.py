@@ -17,11 +17,11 @@ import pandas as pd
 from scipy.interpolate import PchipInterpolator
 from scipy.stats import chi2
 
+from align.choices import DEFAULT_TIE_INTERPOLATION, TieInterpolation, check_choice
 from align.errors import InputError
 from align.provenance import sha256_file
 from align.record import NV, SAMPLE, add_history, age_reference, age_sigma, record_name
 
-METHODS = ("linear", "pchip")
 #: Floor (and fallback with only two ties) of the bridge rate: the bridge sd at the middle of
 #: the longest tie interval is this fraction of its duration (a stated choice).
 FALLBACK_MIDPOINT_FRACTION = 0.02
@@ -272,7 +272,8 @@ def default_bridge_rate(tie_ages, tie_depths, tie_sd):
 # transfer
 
 
-def transfer(record, ties, onto, *, method="linear", extrapolate=False, bridge_rate=None):
+def transfer(record, ties, onto, *, method=DEFAULT_TIE_INTERPOLATION, extrapolate=False,
+             bridge_rate=None):
     """Put a record on another record's timescale through tie points.
 
     Parameters
@@ -312,9 +313,7 @@ def transfer(record, ties, onto, *, method="linear", extrapolate=False, bridge_r
     rate (x - x_k)(x_{k+1} - x) / (x_{k+1} - x_k)``.
     """
     ties = check_ties(ties) if isinstance(ties, TieTable) else read_ties(ties)
-    if method not in METHODS:
-        raise InputError(f"method must be one of {', '.join(METHODS)} (got {method!r})",
-                         field="method")
+    check_choice(method, TieInterpolation, "method")
     if "depth" not in record.coords:
         raise InputError("the record to move has no depths; ties need depths",
                          source=record.attrs.get("source"), field="depth")

@@ -33,11 +33,11 @@ import numpy as np
 import xarray as xr
 from scipy.stats import truncnorm
 
+from align.choices import DEFAULT_TIMESCALE_MODEL, TimescaleModel, check_choice
 from align.errors import InputError
 from align.provenance import resolve_seed
 from align.record import MEMBER, SAMPLE, uncertainty_kind
 
-MODELS = ("correlated", "random-walk")
 #: Samples per independently seeded block of a lazily drawn ensemble (and per dask chunk):
 #: about 33 MB per block at 1,000 members. The draws depend on the seed, not on the machine.
 DRAW_BLOCK = 4096
@@ -45,13 +45,10 @@ DRAW_BLOCK = 4096
 
 def check_model(model):
     """Return ``model`` if it is a known layer-counting error model, else raise."""
-    if model not in MODELS:
-        raise InputError(f"timescale model must be one of {', '.join(MODELS)} (got {model!r})",
-                         field="timescale_model")
-    return model
+    return check_choice(model, TimescaleModel, "timescale_model")
 
 
-def mce_covariance(mce, model="correlated"):
+def mce_covariance(mce, model=DEFAULT_TIMESCALE_MODEL):
     """Covariance of layer-counting age errors at a set of depths.
 
     Parameters
@@ -73,7 +70,7 @@ def mce_covariance(mce, model="correlated"):
     return np.minimum.outer(s, s) ** 2
 
 
-def relative_sd(mce1, mce2, model="correlated"):
+def relative_sd(mce1, mce2, model=DEFAULT_TIMESCALE_MODEL):
     """Relative age sd (yr) between two depths of one layer-counted core.
 
     Notes
@@ -84,7 +81,7 @@ def relative_sd(mce1, mce2, model="correlated"):
     return float(np.sqrt(max(cov[0, 0] + cov[1, 1] - 2 * cov[0, 1], 0.0)))
 
 
-def error_covariance(record, ages, model="correlated"):
+def error_covariance(record, ages, model=DEFAULT_TIMESCALE_MODEL):
     """Covariance of a record's timescale errors at the given ages.
 
     Parameters
@@ -135,7 +132,7 @@ def ensemble_at(record, ages):
 # ensembles
 
 
-def age_ensemble(record, members=1000, *, seed=None, model="correlated"):
+def age_ensemble(record, members=1000, *, seed=None, model=DEFAULT_TIMESCALE_MODEL):
     """Age realisations of a record, every one monotonic down-core.
 
     Parameters

@@ -25,6 +25,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.fft as sfft
 
+from align.choices import (DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD, DEFAULT_SURROGATE_KIND,
+                           DEFAULT_SURROGATES, CorrelationMethod, SurrogateKind, check_choice)
 from align.errors import InputError
 from align.noise import lag1_autocorrelation, persistence_time, simulate_ar1
 from align.provenance import provenance, record_input, resolve_seed
@@ -33,8 +35,6 @@ from align.record import record_name, with_age_reference
 from align.resample import resample
 from align.schema import Curve, PeakLag, SurrogateInfo, XcorrResult
 
-METHODS = ("pearson", "kernel")
-SURROGATES = ("ar1", "phase")
 
 
 # --------------------------------------------------------------------------------------------
@@ -279,9 +279,9 @@ def block_bootstrap_peaks(numerator, denominator, lags, block, replicates, rng):
 # the wrapper
 
 
-def cross_correlate(a, b, max_lag, *, step=None, method="pearson", surrogates=1000,
-                    surrogate_kind="phase", window=None, seed=None, age_reference=None,
-                    bootstrap=1000):
+def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METHOD,
+                    surrogates=DEFAULT_SURROGATES, surrogate_kind=DEFAULT_SURROGATE_KIND,
+                    window=None, seed=None, age_reference=None, bootstrap=DEFAULT_BOOTSTRAP):
     """Cross-correlate two records over a range of lags.
 
     Parameters
@@ -319,10 +319,8 @@ def cross_correlate(a, b, max_lag, *, step=None, method="pearson", surrogates=10
     """
     from align.resample import native_resolution, round_step
 
-    if method not in METHODS:
-        raise InputError(f"method must be one of {', '.join(METHODS)}", field="method")
-    if surrogate_kind not in SURROGATES:
-        raise InputError("surrogates are 'phase' or 'ar1'", field="surrogate_kind")
+    check_choice(method, CorrelationMethod, "method")
+    check_choice(surrogate_kind, SurrogateKind, "surrogate_kind")
     if method == "kernel":
         surrogate_kind = "ar1"  # phase randomisation needs a regular grid
     if not (np.isfinite(max_lag) and max_lag > 0):

@@ -229,7 +229,7 @@ class _Transaction:
 
 
 def _entry(row):
-    out = {key: row[key] for key in row.keys() if key != "info"}
+    out = {key: row[key] for key in row.keys() if key != "info"}  # noqa: SIM118 (sqlite3.Row)
     for key in ("variables", "depth_range", "age_range"):
         out[key] = json.loads(out[key]) if out[key] is not None else None
     return out

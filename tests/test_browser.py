@@ -7,7 +7,7 @@ import shutil
 
 import pytest
 
-from conftest import RECORDS, run_cli
+from conftest import run_cli
 
 pytestmark = pytest.mark.browser
 
@@ -51,4 +51,3 @@ def test_report_renders_in_chromium(tmp_path):
         assert (tmp_path / "report.png").stat().st_size > 10_000
     finally:
         browser.quit()
-    assert RECORDS.exists()

@@ -1,6 +1,5 @@
 """Saved records pass the IOOS compliance checker for CF-1.8 (an outside checker)."""
 
-import numpy as np
 import pytest
 from compliance_checker.runner import CheckSuite
 
@@ -41,10 +40,11 @@ def test_checker_does_flag_a_broken_file(tmp_path):
     # the check can fail: a coordinate with an invalid unit is a CF error
     path = tmp_path / "bad.nc"
     save_record(open_record(RECORDS / "hvd1_ice.nc"), path)
+    assert cf_problems(path) == []  # the same file before it is broken
     import netCDF4
 
     with netCDF4.Dataset(path, "a") as nc:
         nc["depth"].units = "furlongs per fortnight squared"
         nc["sulfate"].standard_name = "not_a_standard_name"
-    assert cf_problems(path)
-    assert np.isfinite(open_record(RECORDS / "hvd1_ice.nc").depth.values).all()
+    problems = cf_problems(path)
+    assert any("units" in p for p in problems), problems

@@ -20,7 +20,7 @@ def assert_same_record(a, b):
     assert set(a.variables) == set(b.variables)
     for name in a.variables:
         np.testing.assert_array_equal(a[name].values, b[name].values, err_msg=name)
-        assert {k: v for k, v in a[name].attrs.items()} == dict(b[name].attrs), name
+        assert dict(a[name].attrs) == dict(b[name].attrs), name
     keep = lambda attrs: {k: v for k, v in attrs.items()  # noqa: E731
                           if k not in ("history", "source", "source_checksum", "Conventions",
                                        "title")}

@@ -69,7 +69,8 @@ def test_round_trip_on_a_real_server(server):
     lag = requests.post(server.url + "/lag", json=request, timeout=300)
     assert lag.status_code == 200, lag.text
     truth = json.loads((RECORDS / "truth.json").read_text())
-    assert lag.json()["lag"]["ci95"][0] <= truth["lag_on_ice_timescale"] <= lag.json()["lag"]["ci95"][1]
+    lo, hi = lag.json()["lag"]["ci95"]
+    assert lo <= truth["lag_on_ice_timescale"] <= hi
     page = requests.get(server.url + lag.headers["Location"] + ".html", timeout=300)
     assert page.status_code == 200 and page.text.count("<svg") == 5
     missing = requests.get(server.url + "/records/" + "0" * 64, timeout=10)
@@ -133,9 +134,9 @@ def test_kill_mid_upload_leaves_no_partial_record(tmp_path):
             handle.write("".join(f"{(i + 1) * 0.001:.3f},{i + 1},{i % 97}\n"
                                  for i in range(start, start + 100_000)))
     killed = 0
-    for attempt in range(3):
+    for _ in range(3):
         server = Server(data, "--workers", "1")
-        thread = threading.Thread(target=lambda: _quietly(
+        thread = threading.Thread(target=_quietly, args=(
             post_file, server.url + "/records", big, {"age_reference": "b2k"}))
         thread.start()
         objects = data / "objects" / "records"

@@ -64,7 +64,8 @@ def test_counted_ensemble_monotonic_and_spread_matches(model, small_blocks):
     spread = ens.std(axis=1)
     # sampling error of an sd from n draws: sd / sqrt(2 (n - 1)); allow 4 of them
     np.testing.assert_allclose(spread, sd, rtol=4 / np.sqrt(2 * (members - 1)))
-    np.testing.assert_allclose(ens.mean(axis=1), ice.age.values, atol=4 * sd.max() / np.sqrt(members))
+    np.testing.assert_allclose(ens.mean(axis=1), ice.age.values,
+                               atol=4 * sd.max() / np.sqrt(members))
 
 
 def test_transferred_ensemble_monotonic_and_spread_matches(small_blocks):

@@ -24,7 +24,7 @@ MarkerKindName = Literal[tuple(KINDS)]
 
 
 def _tagged(classes):
-    return Annotated[Union[tuple(classes)], Field(discriminator="kind")]
+    return Annotated[Union[tuple(classes)], Field(discriminator="kind")]  # noqa: UP007
 
 
 #: A marker to find (lag requests, survey pairs): one spec class per kind.

@@ -58,9 +58,10 @@ def peak_extra_mb(fn):
 def report(name, measured, baseline, unit="s", limit=None, better="lower"):
     """Print one benchmark line: measured, baseline, their ratio and the requirement."""
     ratio = measured / baseline
-    ok = "" if limit is None else (" ok" if (ratio <= limit if better == "lower" else ratio >= limit)
-                                   else " NOT MET")
-    need = "" if limit is None else f" (requirement: {'<=' if better == 'lower' else '>='} {limit:g})"
+    met = limit is None or (ratio <= limit if better == "lower" else ratio >= limit)
+    ok = "" if limit is None else (" ok" if met else " NOT MET")
+    sign = "<=" if better == "lower" else ">="
+    need = "" if limit is None else f" (requirement: {sign} {limit:g})"
     print(f"{name}: {measured:.4g} {unit} vs baseline {baseline:.4g} {unit} -> ratio "
           f"{ratio:.3g}{need}{ok}")
     return ratio

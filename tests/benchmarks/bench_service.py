@@ -41,7 +41,8 @@ def main():
                  "b": {"kind": "event", "record": "trv3_lake.nc", "variable": "tephra",
                        "window": [11850, 12000]}, "draws": 5000, "seed": 3}
         for label, request in (("demo request", demo), ("two events, 5000 draws", small)):
-            local = {**request, "a": {**request["a"], "record": str(RECORDS / request["a"]["record"])},
+            local = {**request,
+                     "a": {**request["a"], "record": str(RECORDS / request["a"]["record"])},
                      "b": {**request["b"], "record": str(RECORDS / request["b"]["record"])}}
             if request.get("ties"):
                 local["ties"] = str(RECORDS / request["ties"])
@@ -49,10 +50,13 @@ def main():
                       "b": {**request["b"], "record": ids[request["b"]["record"]]}}
             if request.get("ties"):
                 served["ties"] = ids[request["ties"]]
-            in_process = best_time(lambda: estimate_lag(local), 5)
+            in_process = best_time(lambda local=local: estimate_lag(local), 5)
             with requests.Session() as session:  # a client that keeps its connection
-                over_http = best_time(lambda: session.post(server.url + "/lag", json=served,
-                                                      timeout=120).raise_for_status(), 5)
+                def post(served=served, session=session):
+                    session.post(server.url + "/lag", json=served,
+                                 timeout=120).raise_for_status()
+
+                over_http = best_time(post, 5)
             report(f"service vs in-process, {label}", over_http, in_process, limit=1.3)
     finally:
         server.stop()
