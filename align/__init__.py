@@ -15,6 +15,8 @@ _PUBLIC = {
     "detect_onset": "align.markers.onset",
     "estimate_lag": "align.lag",
     "open_record": "align.io",
+    "read_request": "align.requests",
+    "read_survey": "align.requests",
     "read_ties": "align.ties",
     "resample": "align.resample",
     "save_record": "align.io",

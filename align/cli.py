@@ -614,9 +614,11 @@ def _lag(args):
     options = dict(ties=args.ties, draws=args.draws, seed=args.seed, age_reference=args.to,
                    timescale_model=args.timescale_model, bridge_rate=args.bridge_rate)
     if args.request:
+        from align.requests import read_request
+
         if args.a or args.b:
             raise InputError("give --request or --a/--b, not both", field="request")
-        a, b = args.request, None
+        a, b = read_request(args.request), None
     else:
         a, b = marker_flag(args.a, args.a_window, "a"), marker_flag(args.b, args.b_window, "b")
     with progress_note("estimating the lag"):
@@ -642,9 +644,10 @@ def _xcorr(args):
 def _survey(args):
     from align import text
     from align.progress import Progress
+    from align.requests import read_survey
     from align.survey import survey
 
-    result = survey(args.spec, scheduler=args.scheduler, age_reference=args.to,
+    result = survey(read_survey(args.spec), scheduler=args.scheduler, age_reference=args.to,
                     progress=Progress("survey", unit="pairs"))
     _finish(result, args, text.survey)
 
@@ -666,9 +669,10 @@ def _demo(args):
     from align.demo import demo_request_path, demo_truth
     from align.lag import estimate_lag
     from align.report import summary, write_report
+    from align.requests import read_request
 
     with progress_note("running the demo (synthetic records, invented scenario)"):
-        result = estimate_lag(demo_request_path())
+        result = estimate_lag(read_request(demo_request_path()))
     folder = write_report(result, args.output, overwrite=True)
     truth = demo_truth()
     if args.json:

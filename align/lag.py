@@ -17,7 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from align.detect import detect_marker
-from align.io import open_record, read_json
+from align.errors import InputError
+from align.io import open_record
 from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
 from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
 from align.markers import Part, kind_of
@@ -35,21 +36,14 @@ CAUTION = ("A lag within its uncertainty does not establish cause or its absence
 
 
 class Sources:
-    """Finds the records and tie tables a request names.
+    """Finds the records and tie tables a request names (paths, or records already in
+    memory). The HTTP service uses a subclass that looks ids up in its store."""
 
-    Paths resolve beside the request file first, then in the working folder. The HTTP
-    service uses a subclass that looks ids up in its store.
-    """
-
-    def __init__(self, base=None, loaded=None):
-        self.base = Path(base) if base else None
+    def __init__(self, loaded=None):
         self.loaded = dict(loaded or {})
 
     def path(self, name):
-        path = Path(name)
-        if not path.is_absolute() and self.base is not None and (self.base / path).exists():
-            return self.base / path
-        return path
+        return Path(name)
 
     def record(self, spec):
         if spec.record in self.loaded:
@@ -63,14 +57,15 @@ class Sources:
 def lag_request(a, b=None, **options):
     """A :class:`LagRequest` and its :class:`Sources` from any of the accepted forms.
 
-    ``a`` may be a whole request (a :class:`LagRequest`, a dict with ``a`` and ``b``, or the
-    path of a JSON file), or the first marker (a :class:`MarkerSpec` or dict) with ``b`` the
-    second. In marker dicts, ``record`` may be an in-memory record (an xarray.Dataset).
+    ``a`` may be a whole request (a :class:`LagRequest` or a dict with ``a`` and ``b``; read a
+    request file with :func:`align.read_request`), or the first marker (a marker spec or dict)
+    with ``b`` the second. In marker dicts, ``record`` may be an in-memory record (an
+    xarray.Dataset).
     """
-    base, loaded = None, {}
-    if isinstance(a, (str, Path)) and b is None:
-        base = Path(a).parent
-        a = read_json(a, "request file")
+    loaded = {}
+    if isinstance(a, (str, Path)):
+        raise InputError("estimate_lag takes a request or two markers, not a file; read the "
+                         "file with align.read_request", source=str(a), field="a")
     if isinstance(a, LagRequest):
         body = a.model_dump()
     elif isinstance(a, dict) and "a" in a and b is None:
@@ -89,7 +84,7 @@ def lag_request(a, b=None, **options):
             record.attrs.setdefault("source", name)
             loaded[name] = record
             body[key] = {**spec, "record": name}
-    return validate_as(LagRequest, body), Sources(base, loaded)
+    return validate_as(LagRequest, body), Sources(loaded)
 
 
 # --------------------------------------------------------------------------------------------
@@ -103,8 +98,8 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     Parameters
     ----------
     a, b : MarkerSpec or dict, or a whole request in ``a``
-        See :func:`lag_request` (a request dict, a :class:`LagRequest`, or the path of a
-        request JSON (README, "Library").
+        See :func:`lag_request` (a request dict or a :class:`LagRequest`; a request file is
+        read with :func:`align.read_request`).
     ties : str, optional
         Tie table between ``b`` (``depth``) and ``a`` (``ref_depth``/``ref_age``); ``b``'s
         record is moved onto ``a``'s timescale through it.

@@ -27,21 +27,19 @@ from align.ages import convert_age
 from align.errors import InputError
 from align.lag import CAUTION, Sources, estimate_lag, lag_summary
 from align.provenance import provenance, resolve_seed, sha256_file
-from align.io import read_json
 from align.schema import (Heterogeneity, PairSpec, SurveyPair, SurveyResult, SurveySpec,
                           validate_as)
 
 
 def survey_spec(spec):
-    """A validated :class:`SurveySpec` and the folder its relative paths resolve against."""
-    base = None
+    """A validated :class:`SurveySpec` (a survey file is read by :func:`align.read_survey`)."""
     if isinstance(spec, (str, Path)):
-        base = Path(spec).parent
-        spec = read_json(spec, "survey file")
+        raise InputError("survey takes a survey spec, not a file; read the file with "
+                         "align.read_survey", source=str(spec), field="spec")
     spec = spec if isinstance(spec, SurveySpec) else validate_as(SurveySpec, spec)
     if not spec.pairs and not (spec.table and spec.a and spec.b):
         raise InputError("a survey needs 'pairs', or a 'table' with 'a' and 'b'", field="pairs")
-    return spec, base
+    return spec
 
 
 def table_pairs(spec, sources):
@@ -115,11 +113,11 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
     Each pair has its own seed, spawned from the survey's, so the result does not depend on
     the scheduler or the order in which pairs finish.
     """
-    spec, base = survey_spec(spec)
+    spec = survey_spec(spec)
     if age_reference is not None:
         spec = validate_as(SurveySpec, {**spec.model_dump(), "age_reference": age_reference})
     seed = resolve_seed(spec.seed)
-    sources = sources or Sources(base)
+    sources = sources or Sources()
     pairs = spec.pairs or table_pairs(spec, sources)
     seeds = [int(s.generate_state(1)[0]) for s in np.random.SeedSequence(seed).spawn(len(pairs))]
     outcomes = _run(pairs, spec, sources, seeds, scheduler, progress)

@@ -4,7 +4,7 @@ import json
 
 import jsonschema
 
-from align import open_record
+from align import open_record, read_request
 from align import detect_onset
 from align.lag import estimate_lag
 from align.schema import LagResult, OnsetResult
@@ -51,7 +51,7 @@ def test_lag_cli_library_and_service_agree(client):
     request = json.loads((RECORDS / "demo_lag_request.json").read_text())
     request["draws"] = 4000
     path = RECORDS / "demo_lag_request.json"
-    library = estimate_lag(path, draws=4000).to_dict()
+    library = estimate_lag(read_request(path), draws=4000).to_dict()
     done = run_cli("lag", "--request", path, "--draws", "4000", "--json")
     assert done.returncode == 0, done.stderr
     cli = json.loads(done.stdout)

@@ -197,7 +197,11 @@ def test_request_errors_are_located(tmp_path):
     request["draws"] = 5
     path = tmp_path / "bad.json"
     path.write_text(json.dumps(request))
+    from align import read_request
+
     with pytest.raises(InputError, match="draws"):
+        read_request(path)
+    with pytest.raises(InputError, match="read_request"):  # files are read at the edges
         estimate_lag(path)
     done = run_cli("lag", "--request", path)
     assert done.returncode == 2 and "draws" in done.stderr

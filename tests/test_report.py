@@ -87,9 +87,9 @@ def test_demo_json_truth_inside_the_interval(tmp_path):
 
 
 def test_survey_report(tmp_path):
-    from align.survey import survey
+    from align import read_survey, survey
 
-    result = survey(RECORDS / "demo_survey.json")
+    result = survey(read_survey(RECORDS / "demo_survey.json"))
     folder = write_report(result, tmp_path)
     page = (folder / "report.html").read_text()
     assert "X1 cooling" in page and page.count("<svg") == 1

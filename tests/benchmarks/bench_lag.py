@@ -20,34 +20,38 @@ import scipy.fft as sfft
 from _timing import best_time, report
 from align import lag as lagmod
 from align.demo import demo_request_path
+from align.markers import kind_of
+from align.requests import read_request
 from align.xcorr import ccf
 
 
 def monte_carlo_case():
     warnings.simplefilter("ignore")
-    result = lagmod.estimate_lag(demo_request_path(), draws=100_000, seed=1)
+    request = read_request(demo_request_path())
+    result = lagmod.estimate_lag(request, draws=100_000, seed=1)
     request = result.request
-    sources = lagmod.lag_request(demo_request_path())[1]
+    sources = lagmod.lag_request(request)[1]
     rec_a = sources.record(request.a)
     rec_b = lagmod.transfer(sources.record(request.b), sources.ties(request.ties), rec_a)
     marker_a = lagmod.detect_marker(rec_a, request.a.model_dump(), seed=1)
     marker_b = lagmod.detect_marker(rec_b, request.b.model_dump(), seed=2)
+    kind_a, kind_b = kind_of(marker_a.kind), kind_of(marker_b.kind)
     n = 100_000
 
     def vectorised():
         rng = np.random.default_rng(3)
-        parts = (lagmod._marker_parts(marker_a, "a", 1.0, n, rng)
-                 + lagmod._marker_parts(marker_b, "b", -1.0, n, rng)
-                 + lagmod._timescale_parts("tied", rec_a, rec_b, lagmod._center(marker_a),
-                                           lagmod._center(marker_b), "correlated", n, rng))
-        lag = lagmod._center(marker_a) - lagmod._center(marker_b) + sum(p.draws for p in parts)
+        parts = (kind_a.parts(marker_a, "a", 1.0, n, rng)
+                 + kind_b.parts(marker_b, "b", -1.0, n, rng)
+                 + lagmod._timescale_parts("tied", rec_a, rec_b, kind_a.center(marker_a),
+                                           kind_b.center(marker_b), "correlated", n, rng))
+        lag = kind_a.center(marker_a) - kind_b.center(marker_b) + sum(p.draws for p in parts)
         return np.percentile(lag, [2.5, 50, 97.5]), [np.var(p.draws) for p in parts]
 
     # the same sums, one draw at a time
     lo, hi = marker_a.sample.age_interval
-    fit, onset = marker_b._fit_draws, marker_b._draws
+    fit, onset = marker_b.draws.fit, marker_b.draws.age
     center_fit = np.median(fit)
-    ta, tb = lagmod._center(marker_a), lagmod._center(marker_b)
+    ta, tb = kind_a.center(marker_a), kind_b.center(marker_b)
     from align.timescale import error_covariance
 
     chol = np.linalg.cholesky(error_covariance(rec_a, [ta, tb]) + 1e-9 * np.eye(2))
