@@ -60,7 +60,9 @@ def main(argv=None):
         return 2
     warnings.showwarning = _one_line_warning
     try:
-        return args.run(args) or 0
+        code = args.run(args) or 0
+        sys.stdout.flush()  # a closed pipe shows here, not at exit
+        return code
     except InputError as exc:
         print(f"corealign: {exc}", file=sys.stderr)
         return 2

@@ -1,0 +1,75 @@
+"""The command line's common words: version, --json on every producing command, --to,
+progress on stderr, a closed pipe, and reports that are never overwritten by accident."""
+
+import json
+import subprocess
+import sys
+
+from conftest import RECORDS, ROOT, run_cli
+
+ICE, LAKE, TIES = RECORDS / "hvd1_ice.nc", RECORDS / "trv3_lake.nc", RECORDS / "hvd1_trv3_ties.csv"
+
+
+def test_version():
+    done = run_cli("--version")
+    assert done.returncode == 0 and done.stdout.startswith("corealign ")
+
+
+def test_json_on_commands_that_write(tmp_path):
+    convert = run_cli("convert", LAKE, "-o", tmp_path / "lake.nc", "--json")
+    assert convert.returncode == 0, convert.stderr
+    assert json.loads(convert.stdout)["ensemble_members"] == 500
+    tie = run_cli("tie", LAKE, "--ties", TIES, "--onto", ICE, "-o", tmp_path / "moved.nc",
+                  "--json")
+    assert tie.returncode == 0, tie.stderr
+    assert json.loads(tie.stdout)["timescale_kind"] == "transferred"
+    aligned = run_cli("align", ICE, LAKE, "--ties", TIES, "-o", tmp_path / "grid.nc", "--json")
+    assert aligned.returncode == 0, aligned.stderr
+    assert json.loads(aligned.stdout)["cells"] > 10
+    suggest = run_cli("suggest-ties", f"{ICE}:sulfate", f"{LAKE}:tephra", "-o",
+                      tmp_path / "candidates.csv", "--json")
+    assert suggest.returncode == 0, suggest.stderr
+    candidates = json.loads(suggest.stdout)["candidates"]
+    assert candidates and {"label", "depth", "sd"} <= set(candidates[0])
+
+
+def test_to_sets_the_reference_of_results():
+    done = run_cli("lag", "--a", f"event:{ICE}:sulfate", "--a-window", "12060,12360",
+                   "--b", f"onset:{LAKE}:d18O", "--b-window", "11850,12450",
+                   "--to", "BP", "--ties", TIES, "--draws", "2000", "--seed", "1", "--json")
+    assert done.returncode == 0, done.stderr
+    result = json.loads(done.stdout)
+    assert result["age_reference"] == "BP" and result["request"]["age_reference"] == "BP"
+    # the same lag in b2k: marker ages shift by 50 years, the lag does not
+    b2k = run_cli("lag", "--a", f"event:{ICE}:sulfate", "--a-window", "12110,12410",
+                  "--b", f"onset:{LAKE}:d18O", "--b-window", "11900,12500",
+                  "--ties", TIES, "--draws", "2000", "--seed", "1", "--json")
+    other = json.loads(b2k.stdout)
+    assert abs(other["a"]["event"]["median"] - result["a"]["event"]["median"] - 50) < 1e-6
+    assert abs(other["lag"]["median"] - result["lag"]["median"]) < 1e-6
+
+
+def test_progress_lines_when_stderr_is_not_a_terminal():
+    done = run_cli("survey", RECORDS / "demo_survey.json")
+    assert done.returncode == 0, done.stderr
+    lines = [line for line in done.stderr.splitlines() if "survey:" in line]
+    assert "2 pairs to do" in lines[0] and lines[-1].startswith("corealign: survey: 2/2 pairs")
+    assert "\r" not in done.stderr
+
+
+def test_a_closed_pipe_ends_quietly():
+    command = (f"{sys.executable} -m align detect event {ICE}:sulfate --json | head -c 100")
+    done = subprocess.run(["bash", "-o", "pipefail", "-c", command], capture_output=True,
+                          text=True, cwd=ROOT, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "Traceback" not in done.stderr and "Broken pipe" not in done.stderr
+
+
+def test_a_report_is_not_overwritten_by_accident(tmp_path):
+    first = run_cli("lag", "--request", RECORDS / "demo_lag_request.json", "--draws", "2000",
+                    "-o", tmp_path)
+    assert first.returncode == 0, first.stderr
+    again = run_cli("report", tmp_path / "report.json", "-o", tmp_path)
+    assert again.returncode == 2 and "already holds a report" in again.stderr
+    forced = run_cli("report", tmp_path / "report.json", "-o", tmp_path, "--overwrite")
+    assert forced.returncode == 0, forced.stderr
