@@ -194,7 +194,8 @@ _UNIT_WORDS = {
 _UNIT_FILLER = {"cal", "calendar", "calibrated", "age", "ages", "before", "present"}
 _PHRASES = (("before present", "bp"), ("before ad 2000", "b2k"), ("before 2000", "b2k"),
             ("b.p.", "bp"), ("b.c.e.", "bce"), ("c.e.", "ce"), ("a.d.", "ad"),
-            ("b.c.", "bc"), ("kyr bp", "ka bp"))
+            ("b.c.", "bc"), ("calbp", "cal bp"), ("calka", "cal ka"), ("kabp", "ka bp"),
+            ("yrbp", "yr bp"), ("kab2k", "ka b2k"), ("yrb2k", "yr b2k"))
 
 
 @dataclass(frozen=True)

@@ -220,8 +220,8 @@ def assign_roles(columns, mapping, name):
             roles[role] = found
         else:
             found = next((lower[c] for c in candidates if c in lower), None)
-            if found is None and role == "age":
-                found = next((key for key, c in columns.items() if _is_time(c)), None)
+            if found is None and role in _LOOSE:
+                found = _loose_match(columns, role)
             if found is not None:
                 roles[role] = found
     if "depth" not in roles and "age" not in roles:
@@ -233,6 +233,21 @@ def assign_roles(columns, mapping, name):
                 raise InputError("an age uncertainty or age bounds without an age column",
                                  source=name, field=columns[roles[role]].header)
     return roles
+
+
+#: Name patterns of depth and age columns found when exactly one column matches
+#: (``age_calBP``, ``Year [BCE]``, ``depth_m``; a CF time axis for age).
+_LOOSE = {"depth": re.compile(r"^depth(?:[\W_].*)?$", re.IGNORECASE),
+          "age": re.compile(r"^(?:age|years?)(?:[\W_].*)?$", re.IGNORECASE)}
+_OTHER_ROLES = {c for role, names in AUTO.items() if role not in _LOOSE for c in names}
+
+
+def _loose_match(columns, role):
+    found = [key for key, c in columns.items() if _LOOSE[role].match(c.name)
+             and key.lower() not in _OTHER_ROLES]
+    if role == "age" and not found:
+        found = [key for key, c in columns.items() if _is_time(c)]
+    return found[0] if len(found) == 1 else None
 
 
 def _is_time(column):

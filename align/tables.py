@@ -208,7 +208,7 @@ def _read_workbook(path, sheet, names):
         if isinstance(chosen, int) and not 0 <= chosen < len(book.sheet_names):
             raise InputError(f"no sheet number {chosen} (the workbook has "
                              f"{len(book.sheet_names)})", source=str(path), field="sheet")
-        raw = book.parse(chosen, header=None, dtype=object)
+        raw = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
     cells = raw.astype(object).where(raw.notna(), "")
     first = cells.iloc[:, 0].astype(str).str.lstrip()
     comment = first.str.startswith("#").to_numpy()
