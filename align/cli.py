@@ -288,6 +288,8 @@ def _detect_parser(commands):
             if option != "kind":
                 from_field(sub, kind.options, option)
         sub.add_argument("--seed", type=int, help="random seed (drawn and recorded if absent)")
+        sub.add_argument("--transform", choices=("log", "log10", "neg"),
+                         help="transform the variable first (log for dust and sea salt)")
         _to_option(sub)
         _json_option(sub)
         _mapping_options(sub)
@@ -303,6 +305,8 @@ def _lag_parser(commands):
         lag.add_argument(f"--{side}", metavar="KIND:RECORD:VARIABLE",
                          help=f"marker {side}: kind ({', '.join(KINDS)}), record, variable")
         lag.add_argument(f"--{side}-window", metavar="YOUNG,OLD", help=f"window of marker {side}")
+        lag.add_argument(f"--{side}-transform", choices=("log", "log10", "neg"),
+                         help=f"transform of marker {side}'s variable")
     lag.add_argument("--request", metavar="FILE", help="a lag request (JSON) instead of flags")
     lag.add_argument("--ties", help="tie table between b (depth) and a (ref_depth/ref_age)")
     for name in ("draws", "seed", "timescale_model", "bridge_rate"):
@@ -633,6 +637,7 @@ def _detect(args):
     path, variable = record_and_variable(args.target)
     kind = KINDS[args.kind]
     spec = {"kind": args.kind, "variable": variable, "window": parse_window(args.window),
+            "transform": args.transform,
             **{k: getattr(args, k) for k in kind.options.model_fields if k != "kind"}}
     record = open_record(path, **mapping_from(args))
     with progress_note(f"finding the {args.kind} in {variable}"):
@@ -652,8 +657,10 @@ def _lag(args):
         a, b = args.request, None
     else:
         mapping = mapping_from(args) or None
-        a = {**marker_flag(args.a, args.a_window, "a"), "mapping": mapping}
-        b = {**marker_flag(args.b, args.b_window, "b"), "mapping": mapping}
+        a = {**marker_flag(args.a, args.a_window, "a"), "mapping": mapping,
+             "transform": args.a_transform}
+        b = {**marker_flag(args.b, args.b_window, "b"), "mapping": mapping,
+             "transform": args.b_transform}
     with progress_note("estimating the lag"):
         result = estimate_lag(a, b, **options)
     _finish(result, args, text.lag)

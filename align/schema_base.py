@@ -9,7 +9,7 @@ name here.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, PrivateAttr
@@ -131,6 +131,8 @@ class SpecCommon(Model):
                                      "age_reference")
     mapping: dict[str, Any] | None = Field(None, description="how to read a CSV record "
                                                              "(open_record keywords)")
+    transform: Literal["log", "log10", "neg"] | None = Field(
+        None, description="transform of the variable before detection (log for dust, sea salt)")
 
 
 class TemplateCommon(Model):
@@ -139,6 +141,7 @@ class TemplateCommon(Model):
     record: str
     variable: str
     mapping: dict[str, Any] | None = None
+    transform: Literal["log", "log10", "neg"] | None = None
 
 
 def validate_as(model, data, *, source=None):

@@ -15,7 +15,8 @@ import xarray as xr
 
 from align import InputError, open_record, save_record
 from align.describe import describe_record
-from align.detect import detect_event
+from align.detect import detect_marker
+from align.markers.event import detect_event
 from conftest import RECORDS, run_cli
 
 FIXTURES = Path(__file__).resolve().parent / "fixtures"
@@ -272,3 +273,52 @@ def test_info_reads_a_grid_without_flags(tmp_path):
     done = run_cli("info", tmp_path / "aligned.nc")
     assert done.returncode == 0, done.stderr
     assert "coverage" not in done.stdout
+
+
+# ----------------------------------------------------------------------------- transforms
+
+def test_log_transform_matches_numpy_and_is_named():
+    from align.transforms import marker_variable
+
+    record = open_record(RECORDS / "hvd1_ice.nc")
+    out, name = marker_variable(record, "sulfate", "log")
+    assert name == "log(sulfate)"
+    np.testing.assert_array_equal(out[name].values, np.log(record.sulfate.values))  # numpy
+    by_hand = record.copy()
+    by_hand["sulfate"] = record.sulfate.copy(data=np.log(record.sulfate.values))
+    window = [float(record.age.values[50]), float(record.age.values[-50])]
+    got = detect_marker(record, {"kind": "event", "variable": "sulfate", "window": window,
+                                 "transform": "log"})
+    want = detect_event(by_hand, "sulfate", window)
+    assert got.variable == "log(sulfate)"
+    assert [c.age_span for c in got.candidates] == [c.age_span for c in want.candidates]
+
+
+def test_log_of_zero_is_refused_with_the_sample():
+    record = open_record(RECORDS / "hvd1_ice.nc")
+    record["sulfate"].values[7] = 0.0
+    with pytest.raises(InputError, match=r"'sulfate', sample 7: cannot take the log of 0"):
+        detect_marker(record, {"kind": "event", "variable": "sulfate", "window": None,
+                               "transform": "log"})
+
+
+def test_variables_by_header_text_and_unknown_lists_them():
+    from align.transforms import find_variable
+
+    record = open_record(FIXTURES / "export.tab")
+    assert find_variable(record, "δ18O H2O [‰ SMOW]") == "δ18O_H2O"
+    assert find_variable(record, "δ18O H2O") == "δ18O_H2O"
+    with pytest.raises(InputError, match=r"variables: Ca, δ18O_H2O"):
+        find_variable(record, "Mg")
+
+
+# ------------------------------------------------------------------------------------- CLI
+
+def test_cli_speaks_options_and_reads_tables_everywhere():
+    done = run_cli("info", FIXTURES / "undeclared.csv", "--age-reference", "BP")
+    assert done.returncode == 2 and "declare it with --missing-value -999" in done.stderr
+    done = run_cli("xcorr", f"{FIXTURES / 'undeclared.csv'}:d18O",
+                   f"{FIXTURES / 'undeclared.csv'}:d18O", "--max-lag", "100",
+                   "--surrogates", "20", "--seed", "1", "--age-reference", "BP",
+                   "--missing-value", "-999", "--json")
+    assert done.returncode == 0, done.stderr
