@@ -16,9 +16,7 @@ from typing import Literal, get_args
 #: References a record's ages may be stored in (years before AD 2000 or AD 1950).
 RecordReference = Literal["b2k", "BP"]
 #: Every age convention :func:`align.convert_age` speaks.
-AgeConvention = Literal["b2k", "BP", "CE", "BCE", "ka b2k", "ka BP"]
-#: Units of an age column.
-AgeUnits = Literal["yr", "ka"]
+AgeConvention = Literal["b2k", "BP", "CE", "BCE", "ka b2k", "ka BP", "astronomical"]
 #: Units of a depth column.
 DepthUnits = Literal["m", "cm", "mm"]
 
@@ -30,6 +28,9 @@ EventDirection = Literal["up", "down"]
 OnsetDirection = Literal["auto", "up", "down"]
 #: How an onset and its uncertainty are estimated.
 OnsetMethod = Literal["ramp", "bayes"]
+
+#: Transforms of a proxy before a marker is looked for (:mod:`align.transforms`).
+Transform = Literal["log", "log10", "neg"]
 
 #: How layer-counting errors accumulate with depth (:mod:`align.timescale`).
 TimescaleModel = Literal["correlated", "random-walk"]
@@ -67,7 +68,6 @@ DEFAULT_SURROGATES = 1000
 DEFAULT_SURROGATE_KIND: SurrogateKind = "phase"
 DEFAULT_BOOTSTRAP = 1000
 DEFAULT_SUGGEST_THRESHOLD = 4.0
-DEFAULT_AGE_UNITS: AgeUnits = "yr"
 DEFAULT_DEPTH_UNITS: DepthUnits = "m"
 
 #: Bounds on counts (also the schema's ``ge``/``le``).

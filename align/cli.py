@@ -16,6 +16,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import re
 import sys
 import types
 import warnings
@@ -64,7 +65,7 @@ def main(argv=None):
         sys.stdout.flush()  # a closed pipe shows here, not at exit
         return code
     except InputError as exc:
-        print(f"corealign: {exc}", file=sys.stderr)
+        print(f"corealign: {cli_words(str(exc))}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("corealign: interrupted", file=sys.stderr)
@@ -144,17 +145,28 @@ def _output_option(parser, what, required=True):
 
 
 def _mapping_options(parser):
-    group = parser.add_argument_group("how to read a table (CSV/TSV or generic NetCDF)")
+    group = parser.add_argument_group("how to read a table (text, .xlsx or generic NetCDF)")
     for role in ("age", "depth", "age-sd", "mce", "depth-top", "depth-bottom", "age-top",
                  "age-bottom"):
         group.add_argument(f"--{role}-column", metavar="NAME",
                            help=f"column holding the {role.replace('-', ' ')}")
-    group.add_argument("--age-reference", metavar="REF", choices=_REFS,
-                       help="reference of the input file's ages (b2k or BP)")
-    group.add_argument("--age-units", default=C.DEFAULT_AGE_UNITS,
-                       choices=C.options(C.AgeUnits), help="units of the age columns")
-    group.add_argument("--depth-units", default=C.DEFAULT_DEPTH_UNITS,
-                       choices=C.options(C.DepthUnits), help="units of the depth columns")
+    group.add_argument("--age-reference", metavar="REF",
+                       help="reference of the input file's ages: b2k, BP, ka b2k, ka BP, CE, "
+                            "BCE or astronomical (default: from the header)")
+    group.add_argument("--age-units", metavar="UNIT",
+                       help="units of the age columns, e.g. yr, ka, 'cal ka BP' (default: "
+                            "from the header, else yr)")
+    group.add_argument("--depth-units", choices=C.options(C.DepthUnits),
+                       help="units of the depth columns (default: from the header, else m)")
+    group.add_argument("--missing-value", "--missing-values", dest="missing_values",
+                       metavar="CODE", action="append", help="a missing-value code (repeatable)")
+    group.add_argument("--sheet", metavar="NAME", help="sheet of an .xlsx workbook")
+    group.add_argument("--names", metavar="A,B", help="column names of a headerless table")
+    group.add_argument("--decimal", choices=(".", ","), help="decimal mark of a text table")
+    group.add_argument("--relative-to", type=float, metavar="AGE",
+                       help="age of the event a relative time column counts from")
+    group.add_argument("--relative-sign", choices=("after", "before"),
+                       help="positive relative time is after or before the event")
     group.add_argument("--variables", metavar="A,B", help="proxy columns to keep (default: all)")
     group.add_argument("--units", metavar="VAR=UNIT", action="append", default=[],
                        help="CF units of a proxy column (repeatable)")
@@ -278,6 +290,8 @@ def _detect_parser(commands):
             if option != "kind":
                 from_field(sub, kind.options, option)
         sub.add_argument("--seed", type=int, help="random seed (drawn and recorded if absent)")
+        sub.add_argument("--transform", choices=C.options(C.Transform),
+                         help="transform the variable first (log for dust and sea salt)")
         _to_option(sub)
         _json_option(sub)
         _mapping_options(sub)
@@ -293,6 +307,8 @@ def _lag_parser(commands):
         lag.add_argument(f"--{side}", metavar="KIND:RECORD:VARIABLE",
                          help=f"marker {side}: kind ({', '.join(KINDS)}), record, variable")
         lag.add_argument(f"--{side}-window", metavar="YOUNG,OLD", help=f"window of marker {side}")
+        lag.add_argument(f"--{side}-transform", choices=C.options(C.Transform),
+                         help=f"transform of marker {side}'s variable")
     lag.add_argument("--request", metavar="FILE", help="a lag request (JSON) instead of flags")
     lag.add_argument("--ties", help="tie table between b (depth) and a (ref_depth/ref_age)")
     for name in ("draws", "seed", "timescale_model", "bridge_rate"):
@@ -304,6 +320,7 @@ def _lag_parser(commands):
     lag.add_argument("--overwrite", action="store_true",
                      help="replace a report already in the output folder")
     _json_option(lag)
+    _mapping_options(lag)
     lag.set_defaults(run=_lag)
 
 
@@ -322,6 +339,7 @@ def _xcorr_parser(commands):
         from_field(xcorr, XcorrRequest, name)
     _to_option(xcorr)
     _json_option(xcorr)
+    _mapping_options(xcorr)
     xcorr.set_defaults(run=_xcorr)
 
 
@@ -387,6 +405,27 @@ def parse_window(text_):
     return values
 
 
+_MAPPING_KEYS = ("age_column", "depth_column", "age_sd_column", "mce_column",
+                 "depth_top_column", "depth_bottom_column", "age_top_column",
+                 "age_bottom_column", "age_reference", "age_units", "depth_units", "archive",
+                 "site", "core", "timescale", "timescale_kind", "missing_values", "sheet",
+                 "decimal", "relative_to", "relative_sign")
+_LIBRARY_WORD = re.compile(r"\b(missing_values=\[([^\]]*)\]|([a-z][a-z_]*)=)")
+
+
+def cli_words(message):
+    """A library message in this command's spelling: ``age_column=`` becomes
+    ``--age-column``, ``missing_values=[-999]`` becomes ``--missing-value -999``."""
+    def spell(match):
+        if match[2] is not None:
+            return f"--missing-value {match[2]}"
+        key = match[3]
+        return f"--{key.replace('_', '-')} " if key in (*_MAPPING_KEYS, "variables",
+                                                          "names") else match[0]
+
+    return _LIBRARY_WORD.sub(spell, message)
+
+
 def mapping_from(args):
     """The :func:`align.open_record` keywords given on the command line."""
     units = {}
@@ -395,13 +434,11 @@ def mapping_from(args):
         if not sep:
             raise InputError(f"--units takes VAR=UNIT, got {item!r}", field="units")
         units[name.strip()] = unit.strip()
-    keys = ("age_column", "depth_column", "age_sd_column", "mce_column", "depth_top_column",
-            "depth_bottom_column", "age_top_column", "age_bottom_column", "age_reference",
-            "age_units", "depth_units", "archive", "site", "core", "timescale",
-            "timescale_kind")
-    mapping = {key: getattr(args, key) for key in keys if getattr(args, key) is not None}
-    if args.variables:
-        mapping["variables"] = [v.strip() for v in args.variables.split(",") if v.strip()]
+    mapping = {key: getattr(args, key) for key in _MAPPING_KEYS
+               if getattr(args, key, None) is not None}
+    for key in ("variables", "names"):
+        if getattr(args, key):
+            mapping[key] = [v.strip() for v in getattr(args, key).split(",") if v.strip()]
     if units:
         mapping["units"] = units
     return mapping
@@ -602,6 +639,7 @@ def _detect(args):
     path, variable = record_and_variable(args.target)
     kind = KINDS[args.kind]
     spec = {"kind": args.kind, "variable": variable, "window": parse_window(args.window),
+            "transform": args.transform,
             **{k: getattr(args, k) for k in kind.options.model_fields if k != "kind"}}
     record = open_record(path, **mapping_from(args))
     with progress_note(f"finding the {args.kind} in {variable}"):
@@ -622,7 +660,11 @@ def _lag(args):
             raise InputError("give --request or --a/--b, not both", field="request")
         a, b = read_request(args.request), None
     else:
-        a, b = marker_flag(args.a, args.a_window, "a"), marker_flag(args.b, args.b_window, "b")
+        mapping = mapping_from(args) or None
+        a = {**marker_flag(args.a, args.a_window, "a"), "mapping": mapping,
+             "transform": args.a_transform}
+        b = {**marker_flag(args.b, args.b_window, "b"), "mapping": mapping,
+             "transform": args.b_transform}
     with progress_note("estimating the lag"):
         result = estimate_lag(a, b, **options)
     _finish(result, args, text.lag)
@@ -635,7 +677,9 @@ def _xcorr(args):
 
     (path_a, var_a), (path_b, var_b) = map(record_and_variable, (args.a, args.b))
     with progress_note("cross-correlating"):
-        result = cross_correlate((open_record(path_a), var_a), (open_record(path_b), var_b),
+        mapping = mapping_from(args)
+        result = cross_correlate((open_record(path_a, **mapping), var_a),
+                                 (open_record(path_b, **mapping), var_b),
                                  args.max_lag, step=args.step, method=args.method,
                                  surrogates=args.surrogates, surrogate_kind=args.surrogate_kind,
                                  window=parse_window(args.window), seed=args.seed,

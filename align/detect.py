@@ -16,6 +16,7 @@ from align.ramp import bootstrap_ramps, fit_ramp, ramp, ramps
 from align.record import age_reference as reference_of
 from align.record import with_age_reference
 from align.schema_base import Estimate
+from align.transforms import marker_variable
 
 #: Pilot replicates that estimate the bias of the noise parameters.
 PILOT = 100
@@ -156,9 +157,11 @@ def detect_marker(record, spec, *, seed=None, age_reference=None):
     kind = kind_of(data["kind"])
     known = set(kind.options.model_fields) - {"kind"}
     options = {k: v for k, v in data.items() if k in known and v is not None}
-    wrong = sorted(set(data) - known - {"kind", "record", "variable", "window", "mapping"})
+    wrong = sorted(set(data) - known - {"kind", "record", "variable", "window", "mapping",
+                                        "transform"})
     if wrong:
         raise InputError(f"{wrong[0]!r} is not an option of an {kind.name} marker "
                          f"(options: {', '.join(sorted(known))})", field=wrong[0])
-    return kind.detect(record, data["variable"], data.get("window"), options, seed=seed,
+    record, variable = marker_variable(record, data["variable"], data.get("transform"))
+    return kind.detect(record, variable, data.get("window"), options, seed=seed,
                        age_reference=age_reference)

@@ -1,4 +1,4 @@
-"""Reading and writing records: NetCDF, CSV/TSV tables and pandas DataFrames.
+"""Reading and writing records: NetCDF, text tables, ``.xlsx`` sheets and pandas DataFrames.
 
 This is the only module that touches record files. Reading never changes the input; writing
 is atomic (a temporary file in the target folder, flushed to disk, then renamed), so a reader
@@ -10,69 +10,89 @@ from __future__ import annotations
 
 import io as _io
 import os
-import re
 import tempfile
 import threading
-import warnings
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import xarray as xr
 
+from align.columns import frame_to_record, safe_name
 from align.errors import InputError, NotATableError
+from align.missing import find_sentinel, mask_codes, split_codes
 from align.provenance import sha256_bytes, sha256_file
-from align.record import (SAMPLE, TIMESCALE_VARIABLES, add_history, build_record,
-                          proxy_variables, validate_record)
+from align.record import SAMPLE, TIMESCALE_VARIABLES, add_history, proxy_variables, validate_record
+from align.tables import read_table
 
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF")
-_DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
-_AGE_SCALE = {"yr": 1.0, "a": 1.0, "years": 1.0, "ka": 1000.0}
 #: The HDF5 library under netCDF4 is not thread-safe: every read and write takes this lock
 #: (surveys run pairs on threads).
 NETCDF_LOCK = threading.RLock()
-_UNIT_IN_HEADER = re.compile(r"^\s*(?P<name>[^(\[]+?)\s*[(\[](?P<unit>[^)\]]+)[)\]]\s*$")
-
-#: Column names found without being told (lower case).
-_AUTO = {"depth": ("depth",), "age": ("age",), "age_sd": ("age_sd", "sd"),
-         "age_mce": ("age_mce", "mce"), "depth_top": ("depth_top",),
-         "depth_bottom": ("depth_bottom",), "age_top": ("age_top",),
-         "age_bottom": ("age_bottom",)}
+#: Global attributes a file's own metadata may not overwrite (they are the record's).
+_RESERVED_ATTRS = ("archive", "site", "core", "timescale", "timescale_kind", "source",
+                   "source_checksum", "history", "bounds_derived", "Conventions", "title")
 
 
 def open_record(source, *, age_reference=None, age_column=None, depth_column=None,
                 age_sd_column=None, mce_column=None, depth_top_column=None,
                 depth_bottom_column=None, age_top_column=None, age_bottom_column=None,
-                age_units="yr", depth_units="m", variables=None, units=None, archive=None,
-                site=None, core=None, timescale=None, timescale_kind=None):
-    """Read a record from a NetCDF file, a CSV/TSV table or a :class:`pandas.DataFrame`.
+                age_units=None, depth_units=None, variables=None, units=None,
+                missing_values=None, relative_to=None, relative_sign=None, sheet=None,
+                names=None, decimal=None, archive=None, site=None, core=None, timescale=None,
+                timescale_kind=None):
+    """Read a record from NetCDF, a delimited text table, an ``.xlsx`` sheet or a DataFrame.
 
     The keywords mirror the command-line mapping options (``--age-column`` is
-    ``age_column``, and so on). A NetCDF file already in the record schema needs none of them.
+    ``age_column``, and so on). A NetCDF file in the record schema, and every grid corealign
+    writes, needs none of them.
 
     Parameters
     ----------
     source : str, os.PathLike or pandas.DataFrame
-        The input.
-    age_reference : {"b2k", "BP"}, optional
-        Reference of the age column; required for tables with ages.
+        The input. Text layouts (commented headers, ``/* */`` metadata blocks, ``Name [unit]``
+        headers) are described in :mod:`align.tables`.
+    age_reference : str, optional
+        What the age column counts from: ``b2k``, ``BP``, ``ka b2k``, ``ka BP``, or calendar
+        years ``CE``, ``BCE``, ``astronomical`` (converted to BP). Needed unless the header
+        unit or the column name says it (``Age [ka BP]``, ``Age_BP``, ``Year (CE)``); a value
+        that contradicts the file is refused. For a CF time axis it names the record's
+        reference (default BP).
     age_column, depth_column : str, optional
-        Columns of sample mid-points (found automatically when named ``age`` and ``depth``).
+        Columns of sample mid-points, by header as written, name without unit, or cleaned
+        name (found automatically when named ``age`` and ``depth``, or, in NetCDF, a CF time
+        axis).
     age_sd_column, mce_column : str, optional
         Per-sample 1-sigma age uncertainty, or maximum counting error (``age_sd``/``sd`` and
         ``age_mce``/``mce`` are found automatically).
     depth_top_column, depth_bottom_column, age_top_column, age_bottom_column : str, optional
         Sample interval columns; when absent, bounds are derived half-way between neighbours
         and the record says so.
-    age_units : {"yr", "ka"}
-        Units of the age and uncertainty columns.
-    depth_units : {"m", "cm", "mm"}
-        Units of the depth columns.
+    age_units : str, optional
+        Units of the age and uncertainty columns (``yr``, ``ka``, or with a reference such as
+        ``ka BP``; default: from the header, else yr).
+    depth_units : {"m", "cm", "mm"}, optional
+        Units of the depth columns (default: from the header, else m).
     variables : list of str, optional
         Proxy columns to keep (default: every other column).
     units : dict of str to str, optional
-        CF units of proxy columns (a ``name (unit)`` header is read too).
+        CF units of proxy columns (a ``name [unit]`` or ``name (unit)`` header is read too).
+    missing_values : list of float or str, optional
+        Missing-value codes (added to those the file declares: CF ``_FillValue`` and
+        ``missing_value``, a ``Missing_Values`` header line). Undeclared codes such as -999
+        far outside a column's values are refused (:mod:`align.missing`).
+    relative_to : float, optional
+        The age (``age_reference``) of the event the time column counts from.
+    relative_sign : {"after", "before"}, optional
+        ``after``: positive time is after the event (``age = relative_to - t``); ``before``:
+        positive time is before it (``age = relative_to + t``).
+    sheet : str or int, optional
+        Sheet of an ``.xlsx`` workbook (default the first).
+    names : list of str, optional
+        Column names of a table without a header line.
+    decimal : {".", ","}, optional
+        Decimal mark of a text table.
     archive, site, core, timescale, timescale_kind : str, optional
         Record metadata (global attributes).
 
@@ -80,7 +100,8 @@ def open_record(source, *, age_reference=None, age_column=None, depth_column=Non
     -------
     xarray.Dataset
         A validated record (see ``records/README.md``), with ``source`` and ``source_checksum``
-        attributes naming what was read.
+        attributes naming what was read; the file's own metadata are kept as attributes and
+        every conversion is a ``history`` line.
 
     Raises
     ------
@@ -92,21 +113,49 @@ def open_record(source, *, age_reference=None, age_column=None, depth_column=Non
                    mce_column=mce_column, depth_top_column=depth_top_column,
                    depth_bottom_column=depth_bottom_column, age_top_column=age_top_column,
                    age_bottom_column=age_bottom_column, age_units=age_units,
-                   depth_units=depth_units, variables=variables, units=units)
+                   depth_units=depth_units, variables=variables, units=units,
+                   missing_values=_as_list(missing_values), relative_to=relative_to,
+                   relative_sign=relative_sign, decimal=decimal)
+    layout = dict(sheet=sheet, names=_as_list(names), decimal=decimal)
     meta = {k: v for k, v in dict(archive=archive, site=site, core=core, timescale=timescale,
                                   timescale_kind=timescale_kind).items() if v is not None}
     if isinstance(source, pd.DataFrame):
         checksum = sha256_bytes(pd.util.hash_pandas_object(source, index=True).values.tobytes())
-        return _from_frame(source, mapping, meta, name="DataFrame", checksum=checksum,
-                           locate=lambda i: ("row", source.index[i]))
+        return frame_to_record(source, mapping, meta, name="DataFrame", checksum=checksum,
+                               locate=lambda i: ("row", source.index[i]))
     path = Path(source)
     if not path.exists():
         raise InputError("no such file", source=str(source), status=404)
     if path.is_dir():
         raise NotATableError("is a folder, not a record file", source=str(source))
     if _is_netcdf(path):
+        given = [k for k, v in layout.items() if v is not None]
+        if given:
+            raise InputError(f"{given[0]}= applies to tables, not NetCDF", source=str(path),
+                             field=given[0])
         return _read_netcdf(path, mapping, meta)
-    return _read_table(path, mapping, meta)
+    table = read_table(path, **layout)
+    return frame_to_record(table.frame, mapping, {**file_attributes(table.metadata), **meta},
+                           name=str(path), checksum=table.checksum, locate=table.locate,
+                           declared_missing=table.missing, descriptions=table.descriptions)
+
+
+def _as_list(value):
+    if value is None or isinstance(value, (list, tuple)):
+        return value
+    return [value]
+
+
+def file_attributes(metadata):
+    """A file's ``Key: value`` metadata as NetCDF-safe global attribute names and values.
+
+    Keys that would overwrite the record's own attributes get a ``file_`` prefix.
+    """
+    out = {}
+    for key, value in metadata.items():
+        name = safe_name(str(key)).lower()
+        out[f"file_{name}" if name in _RESERVED_ATTRS else name] = str(value)
+    return out
 
 
 def _is_netcdf(path):
@@ -128,21 +177,61 @@ def _read_netcdf(path, mapping, meta):
                   else exc.__class__.__name__)
         raise NotATableError(f"not a readable NetCDF file ({reason})", source=str(path)) from exc
     checksum = sha256_file(path)
-    if SAMPLE in ds.dims and ("depth" in ds.coords or "age" in ds.coords):
+    ds = _grid_as_samples(ds)
+    if SAMPLE in ds.dims and _in_schema(ds):
         ds = _fill_netcdf_reference(ds, mapping, path)
+        _clean_proxies(ds, mapping, str(path))
         ds.attrs.update(meta, source=str(path), source_checksum=checksum)
         return validate_record(ds, source=str(path))
     columns = {name: var.values for name, var in ds.variables.items() if var.ndim == 1}
     lengths = {len(v) for v in columns.values()}
     if not columns or len(lengths) != 1:
         raise InputError("found no record: expected a 'sample' dimension with depth or age, "
-                         "or one-dimensional columns of equal length", source=str(path))
-    frame = pd.DataFrame(columns)
-    units = {name: var.attrs["units"] for name, var in ds.variables.items()
-             if var.ndim == 1 and "units" in var.attrs}
-    mapping["units"] = {**units, **(mapping.get("units") or {})}
-    return _from_frame(frame, mapping, {**ds.attrs, **meta}, name=str(path), checksum=checksum,
-                       locate=lambda i: ("sample", i))
+                         "or one-dimensional columns of equal length (variables: "
+                         f"{', '.join(map(str, ds.variables))})", source=str(path))
+    attrs_of = {name: {**var.attrs, **var.encoding} for name, var in ds.variables.items()
+                if var.ndim == 1}
+    return frame_to_record(pd.DataFrame(columns), mapping, {**ds.attrs, **meta},
+                           name=str(path), checksum=checksum, locate=lambda i: ("sample", i),
+                           attrs_of=attrs_of)
+
+
+def _grid_as_samples(ds):
+    """A grid written by :func:`save_grid` (one ``age`` or ``depth`` dimension with bounds)
+    seen as a record: its dimension becomes ``sample``."""
+    if SAMPLE in ds.dims:
+        return ds
+    along = next((d for d in ("age", "depth") if d in ds.dims and d in ds.coords
+                  and f"{d}_bounds" in ds), None)
+    if along is None:
+        return ds
+    return ds.drop_indexes(along).rename_dims({along: SAMPLE})
+
+
+def _in_schema(ds):
+    """A record-schema file: depth in m and/or an age in yr with its reference (or no unit)."""
+    if "depth" not in ds.coords and "age" not in ds.coords:
+        return False
+    if "age" not in ds.coords or "age_reference" in ds["age"].attrs:
+        return True
+    return str(ds["age"].attrs.get("units", "yr")).strip().lower() in ("yr", "years", "a")
+
+
+def _clean_proxies(ds, mapping, name):
+    """Declared missing-value codes to NaN and undeclared sentinels refused, in place."""
+    numbers, _ = split_codes(mapping.get("missing_values") or [])
+    for var in proxy_variables(ds):
+        values = ds[var].values.astype(float)
+        values, count = mask_codes(values, numbers)
+        if count:
+            ds[var] = ds[var].copy(data=values)
+            add_history(ds, f"{count} missing-value code(s) in {var!r} read as missing")
+        find = find_sentinel(values)
+        if find is not None:
+            raise InputError(f"{find[1]} value(s) hold {find[0]:g}, far outside the other "
+                             f"values: a missing-value code? declare it with "
+                             f"missing_values=[{find[0]:g}]", source=name, field=var,
+                             row=find[2], row_kind="sample")
 
 
 def _fill_netcdf_reference(ds, mapping, path):
@@ -275,202 +364,3 @@ def record_to_csv(record):
     buffer = _io.StringIO()
     record_to_frame(record).to_csv(buffer, index=False, float_format="%.10g")
     return "\n".join(lines) + "\n" + buffer.getvalue()
-
-
-# --------------------------------------------------------------------------------------------
-# tables
-
-
-def _read_table(path, mapping, meta):
-    raw = path.read_bytes()
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise NotATableError("not a text table (and not NetCDF)", source=str(path)) from exc
-    lines = text.splitlines()
-    data_lines = [i + 1 for i, line in enumerate(lines)
-                  if line.strip() and not line.lstrip().startswith("#")]
-    if not data_lines:
-        raise InputError("the table is empty (no header and no data rows)", source=str(path))
-    header = lines[data_lines[0] - 1]
-    sep = "\t" if ("\t" in header or path.suffix.lower() in (".tsv", ".tab")) else (
-        ";" if ";" in header and "," not in header else ",")
-    try:
-        frame = pd.read_csv(_io.StringIO(text), sep=sep, comment="#", dtype=str,
-                            keep_default_na=False, skip_blank_lines=True)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise NotATableError(f"not a readable table: {exc}", source=str(path)) from exc
-    rows = data_lines[1:]
-    if len(rows) != len(frame):
-        raise NotATableError(f"could not match {len(frame)} parsed rows to {len(rows)} lines "
-                             "(quoted line breaks?)", source=str(path))
-    frame.columns = [str(c).strip() for c in frame.columns]
-    return _from_frame(frame, mapping, meta, name=str(path), checksum=sha256_bytes(raw),
-                       locate=lambda i: ("line", rows[i]))
-
-
-def _from_frame(frame, mapping, meta, *, name, checksum, locate):
-    """Build a record from a table of columns (strings or numbers)."""
-    if frame.shape[0] == 0:
-        raise InputError("the table is empty (no data rows)", source=name)
-    frame, header_units = _split_header_units(frame, name)
-    roles = _assign_columns(frame.columns, mapping, name)
-    proxy_columns = _proxy_columns(frame, roles, mapping, name)
-    numeric = {col: _numeric_column(frame[col], col, name, locate)
-               for col in [*roles.values(), *proxy_columns]}
-    order, numeric, reversed_note = _top_down(numeric, roles, frame.shape[0])
-    locate_sorted = (lambda i: locate(order[i])) if order is not None else locate
-    for role in ("depth", "age", "age_sd", "age_mce", "depth_top", "depth_bottom", "age_top",
-                 "age_bottom"):
-        col = roles.get(role)
-        if col is not None:
-            missing = np.isnan(numeric[col])
-            if missing.any():
-                kind, row = locate_sorted(int(np.argmax(missing)))
-                raise InputError(f"missing {role.replace('_', ' ')} value", source=name,
-                                 field=col, row=row, row_kind=kind)
-    depth_scale = _scale(_DEPTH_SCALE, mapping.get("depth_units") or "m", "depth_units", name)
-    age_scale = _scale(_AGE_SCALE, mapping.get("age_units") or "yr", "age_units", name)
-
-    def get(role, scale=1.0):
-        col = roles.get(role)
-        return None if col is None else numeric[col] * scale
-
-    def bounds(prefix, scale):
-        top, bottom = get(f"{prefix}_top", scale), get(f"{prefix}_bottom", scale)
-        if (top is None) != (bottom is None):
-            raise InputError(f"give both {prefix} top and bottom columns, or neither",
-                             source=name, field=f"{prefix}_top")
-        return None if top is None else np.column_stack([top, bottom])
-
-    units = {**header_units, **(mapping.get("units") or {})}
-    proxies = {}
-    for col in proxy_columns:
-        var = _safe_name(col)
-        attrs = {"long_name": col}
-        if col in units:
-            attrs["units"] = units[col]
-        proxies[var] = (numeric[col], attrs)
-    attrs = {k: v for k, v in meta.items() if isinstance(v, (str, int, float))}
-    attrs.update(source=name, source_checksum=checksum)
-    age = get("age", age_scale)
-    record = build_record(
-        depth=get("depth", depth_scale), age=age,
-        age_reference=mapping.get("age_reference") if age is not None else None,
-        depth_bounds=bounds("depth", depth_scale), age_bounds=bounds("age", age_scale),
-        age_sd=get("age_sd", age_scale), age_mce=get("age_mce", age_scale), proxies=proxies,
-        attrs=attrs, locate=locate_sorted, source=name)
-    if reversed_note:
-        warnings.warn(f"{name}: {reversed_note}", UserWarning, stacklevel=3)
-        add_history(record, reversed_note)
-    if "bounds_derived" in record.attrs:
-        add_history(record, f"{record.attrs['bounds_derived']} bounds derived half-way between "
-                            "neighbouring mid-points")
-    return record
-
-
-def _split_header_units(frame, name):
-    """Columns named ``Ca (ng/g)`` become ``Ca`` with units ``ng/g``."""
-    units, renamed = {}, {}
-    for col in frame.columns:
-        match = _UNIT_IN_HEADER.match(col)
-        if match:
-            renamed[col] = match["name"].strip()
-            units[renamed[col]] = match["unit"].strip()
-    if len(set(renamed.values()) | (set(frame.columns) - set(renamed))) < len(frame.columns):
-        raise InputError("two columns have the same name once units are split off",
-                         source=name)
-    return frame.rename(columns=renamed), units
-
-
-def _assign_columns(columns, mapping, name):
-    """Which column plays which role (depth, age, uncertainty, bounds)."""
-    lower = {c.lower(): c for c in columns}
-    dupes = [c for c in columns if list(columns).count(c) > 1]
-    if dupes:
-        raise InputError("duplicated column name", source=name, field=dupes[0])
-    roles = {}
-    for role, candidates in _AUTO.items():
-        option = {"age_sd": "age_sd_column", "age_mce": "mce_column"}.get(role, f"{role}_column")
-        given = mapping.get(option)
-        if given is not None:
-            if given not in columns:
-                raise InputError(f"no column {given!r} (columns: {', '.join(columns)})",
-                                 source=name, field=option.replace("_", "-"))
-            roles[role] = given
-        else:
-            found = next((lower[c] for c in candidates if c in lower), None)
-            if found is not None:
-                roles[role] = found
-    if "depth" not in roles and "age" not in roles:
-        raise InputError("no depth or age column; name one with --depth-column or "
-                         f"--age-column (columns: {', '.join(columns)})", source=name,
-                         field="age-column")
-    if "age" in roles and mapping.get("age_reference") is None:
-        raise InputError("the age reference is missing; say --age-reference b2k or BP",
-                         source=name, field="age_reference")
-    if "age" not in roles:
-        for role in ("age_sd", "age_mce", "age_top", "age_bottom"):
-            if role in roles:
-                raise InputError("an age uncertainty or age bounds without an age column",
-                                 source=name, field=roles[role])
-    return roles
-
-
-def _proxy_columns(frame, roles, mapping, name):
-    taken = set(roles.values())
-    wanted = mapping.get("variables")
-    if wanted:
-        missing = [v for v in wanted if v not in frame.columns]
-        if missing:
-            raise InputError(f"no column {missing[0]!r}", source=name, field=missing[0])
-        return [v for v in wanted if v not in taken]
-    return [c for c in frame.columns if c not in taken]
-
-
-def _numeric_column(series, col, name, locate):
-    """Parse one column; empty cells are NaN, anything else non-numeric is an error."""
-    if series.dtype.kind in "fiu":
-        values = series.to_numpy(dtype=float)
-    else:
-        text = series.astype(str).str.strip()
-        values = pd.to_numeric(text.where(text != ""), errors="coerce").to_numpy(dtype=float)
-        bad = np.isnan(values) & (text != "").to_numpy() & ~text.str.lower().isin(
-            ["nan", "na"]).to_numpy()
-        if bad.any():
-            i = int(np.argmax(bad))
-            kind, row = locate(i)
-            raise InputError(f"not a number: {text.iloc[i]!r}", source=name, field=col, row=row,
-                             row_kind=kind)
-    inf = np.isinf(values)
-    if inf.any():
-        kind, row = locate(int(np.argmax(inf)))
-        raise InputError("infinite value", source=name, field=col, row=row, row_kind=kind)
-    return values
-
-
-def _top_down(numeric, roles, n):
-    """Put rows top (shallow/young) first; a table listed bottom-up is reversed, and said so."""
-    key = roles.get("depth") or roles.get("age")
-    values = numeric[key]
-    step = np.diff(values)
-    if n > 1 and np.all(step < 0):
-        order = np.arange(n)[::-1]
-        note = (f"rows reversed to run top-down (the table lists {key} from "
-                f"{values[0]:g} down to {values[-1]:g})")
-        return order, {c: v[::-1].copy() for c, v in numeric.items()}, note
-    return None, numeric, None
-
-
-def _scale(table, unit, option, name):
-    try:
-        return table[str(unit).lower()]
-    except KeyError:
-        raise InputError(f"unknown unit {unit!r}; use one of {', '.join(table)}", source=name,
-                         field=option) from None
-
-
-def _safe_name(column):
-    """A NetCDF/CF-safe variable name: letters, digits and underscores, starting with a letter."""
-    name = re.sub(r"\W+", "_", column).strip("_") or "value"
-    return name if name[0].isalpha() else f"v_{name}"

@@ -19,6 +19,7 @@ import numpy as np
 from align.detect import detect_marker
 from align.errors import InputError
 from align.io import open_record
+from align.transforms import marker_variable
 from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
 from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
 from align.markers import Part, kind_of
@@ -359,6 +360,7 @@ def _references(relation, rec_a, rec_b, marker_a, marker_b):
 
 
 def _excerpt(record, marker, label):
+    record, _ = marker_variable(record, marker.variable)
     age = record["age"].values
     inside = (age >= marker.window[0]) & (age <= marker.window[1])
     sigma = age_sigma(record)

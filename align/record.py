@@ -378,9 +378,17 @@ def _check_uncertainty(ds, fail):
 
 
 def proxy_variables(ds):
-    """Names of the proxy variables: data variables on ``sample`` that are not timescale."""
+    """Names of the proxy variables: data variables on ``sample`` that are not timescale.
+
+    Bookkeeping is not a proxy either: variables another variable names in its CF
+    ``ancillary_variables`` (a grid's ``*_coverage`` and ``*_n_samples``) and a grid's
+    ``native_interval`` (or ``{record}_native_interval``).
+    """
+    ancillary = {name for var in ds.data_vars.values()
+                 for name in str(var.attrs.get("ancillary_variables", "")).split()}
     return [name for name, var in ds.data_vars.items()
-            if var.dims == (SAMPLE,) and name not in TIMESCALE_VARIABLES]
+            if var.dims == (SAMPLE,) and name not in TIMESCALE_VARIABLES
+            and name not in ancillary and not name.endswith("native_interval")]
 
 
 def age_reference(ds):

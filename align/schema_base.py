@@ -14,7 +14,7 @@ from typing import Annotated, Any
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, PrivateAttr
 
-from align.choices import RecordReference
+from align.choices import RecordReference, Transform
 
 Pair = Annotated[list[float], Field(min_length=2, max_length=2)]
 AgeRef = RecordReference
@@ -131,6 +131,8 @@ class SpecCommon(Model):
                                      "age_reference")
     mapping: dict[str, Any] | None = Field(None, description="how to read a CSV record "
                                                              "(open_record keywords)")
+    transform: Transform | None = Field(
+        None, description="transform of the variable before detection (log for dust, sea salt)")
 
 
 class TemplateCommon(Model):
@@ -139,6 +141,7 @@ class TemplateCommon(Model):
     record: str
     variable: str
     mapping: dict[str, Any] | None = None
+    transform: Transform | None = None
 
 
 def validate_as(model, data, *, source=None):

@@ -30,7 +30,8 @@ BLUEPRINTS = (meta, records, analysis, reports)
 MAPPING_KEYS = {"age_reference", "age_column", "depth_column", "age_sd_column", "mce_column",
                 "depth_top_column", "depth_bottom_column", "age_top_column",
                 "age_bottom_column", "age_units", "depth_units", "variables", "units",
-                "archive", "site", "core", "timescale", "timescale_kind"}
+                "archive", "site", "core", "timescale", "timescale_kind", "missing_values",
+                "relative_to", "relative_sign", "sheet", "names", "decimal"}
 UPLOAD_SCHEMA = {"type": "object", "required": ["file"], "properties": {
     "file": {"type": "string", "format": "binary",
              "description": "NetCDF, or CSV/TSV with a mapping"},

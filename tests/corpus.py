@@ -35,3 +35,45 @@ CASES = [
     ("not-netcdf", b"this is not a NetCDF file\n", ".nc", {}, ["not a readable NetCDF"]),
     ("no-depth-or-age", "x,y\n1,2\n3,4\n", ".csv", {}, ["no depth or age column"]),
 ]
+
+
+def _netcdf_bytes(units):
+    """A small NetCDF whose time variable ``t`` has the given units (generated, not stored)."""
+    import xarray as xr
+
+    ds = xr.Dataset({"Ca": ("t", [1.0, 2.0, 3.0])},
+                    coords={"t": ("t", [-30.0, -20.0, -10.0], {"units": units})})
+    return bytes(ds.to_netcdf())
+
+
+def _workbook_bytes():
+    """A one-sheet ``.xlsx`` (sheet ``data``), generated in memory."""
+    import io
+
+    import pandas as pd
+
+    buffer = io.BytesIO()
+    pd.DataFrame({"age": [1.0, 2.0], "Ca": [3.0, 4.0]}).to_excel(buffer, sheet_name="data",
+                                                                  index=False)
+    return buffer.getvalue()
+
+
+CASES += [
+    ("unknown-age-unit", "Age [fortnights],Ca\n1,2\n2,3\n", ".csv", {},
+     ["unknown age unit 'fortnights'"]),
+    ("contradicting-age-reference", "Age [ka BP],Ca\n1,2\n2,3\n", ".csv",
+     {"age_reference": "b2k"}, ["'Age [ka BP]'", "stated twice", "the header unit says BP"]),
+    ("undecodable-cf-time", _netcdf_bytes("months since 1950-01-01"), ".nc", {},
+     ["'t'", "cannot decode time units 'months since 1950-01-01'"]),
+    ("undeclared-sentinel", "age,Ca\n1,2\n2,-999\n3,2.5\n4,-999\n5,3\n", ".csv",
+     {"age_reference": "BP"}, ["'Ca'", "line 3", "2 cell(s) hold -999", "missing-value code"]),
+    ("missing-code-empties-column", "age,Ca\n1,-999\n2,-999\n", ".csv",
+     {"age_reference": "BP", "missing_values": "-999"}, ["'Ca'", "without any value"]),
+    ("no-such-sheet", _workbook_bytes(), ".xlsx", {"age_reference": "BP", "sheet": "nope"},
+     ["'sheet'", "no sheet 'nope' (sheets: data)"]),
+    ("relative-without-sign", "t,Ca\n1,2\n2,3\n", ".csv",
+     {"age_column": "t", "age_reference": "b2k", "relative_to": "100"},
+     ["'relative_sign'", "relative time needs"]),
+    ("calendar-year-zero", "Year (CE),Ca\n0,2\n1,3\n", ".csv", {},
+     ["0 is not a CE year"]),
+]

@@ -65,7 +65,7 @@ def test_xcorr_resample_lag_tie_options_follow_the_schema():
     assert tuple(lag["timescale_model"].choices) == C.options(C.TimescaleModel)
     assert f"default: {LagRequest.model_fields['draws'].default}" in lag["draws"].help
     assert tuple(actions(COMMANDS["tie"])["method"].choices) == C.options(C.TieInterpolation)
-    assert tuple(actions(COMMANDS["info"])["age_units"].choices) == C.options(C.AgeUnits)
+    assert tuple(actions(COMMANDS["info"])["depth_units"].choices) == C.options(C.DepthUnits)
     from align.xcorr import cross_correlate
 
     signature = inspect.signature(cross_correlate).parameters
