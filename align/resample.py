@@ -32,7 +32,7 @@ class GridWarning(UserWarning):
     """A choice made for the user about the grid (the default step)."""
 
 
-def overlap_mean(lo, hi, values, edges):
+def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     """Overlap-weighted means of interval samples over cells, with the bookkeeping.
 
     Parameters
@@ -43,15 +43,17 @@ def overlap_mean(lo, hi, values, edges):
         Sample values; NaN is missing and reduces coverage.
     edges : numpy.ndarray (m + 1,)
         Cell edges, increasing.
+    min_coverage : float
+        Cells covered less than this fraction get a NaN mean (default: none).
 
     Returns
     -------
     mean : numpy.ndarray (m, v)
         ``integral(value over cell) / covered length`` (units of ``values``); NaN where nothing
-        valid overlaps.
+        valid overlaps or the coverage is below ``min_coverage``.
     coverage : numpy.ndarray (m, v)
         Covered fraction of each cell (dimensionless).
-    count : numpy.ndarray (m, v)
+    count : numpy.ndarray (m, v) of int32
         Valid samples overlapping each cell.
     native : numpy.ndarray (m,)
         Mean interval length of the samples overlapping each cell (units of ``lo``).
@@ -60,26 +62,28 @@ def overlap_mean(lo, hi, values, edges):
     -----
     Exact integration of the piecewise-constant record: cell ``j`` gets
     ``sum_i v_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]| / sum_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]|``
-    over valid samples ``i``; computed by a single merge of samples and cells, ``O(n + m)``
-    (:func:`align._kernels.overlap_sums`).
+    over valid samples ``i``; computed by a single merge of samples and cells per variable,
+    ``O(n + m)`` (:func:`align._kernels.overlap_cells`). The columns of the (m, v) outputs
+    are contiguous.
     """
-    from align._kernels import overlap_sums
+    from align._kernels import overlap_cells
 
     values = np.asarray(values, dtype=float)
     vals2d = values[:, None] if values.ndim == 1 else values
-    integral, covered, count, width_sum, width_count, ordered = overlap_sums(
-        np.asarray(lo, dtype=float), np.asarray(hi, dtype=float), vals2d,
-        np.asarray(edges, dtype=float))
-    if not ordered:
-        raise InputError("sample intervals overlap or run backwards (a record with tolerated "
-                         "age inversions cannot be resampled along age; resample along depth)",
-                         field="bounds")
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = integral / covered
-        native = width_sum / width_count
-    mean[covered == 0] = np.nan
-    coverage = covered / np.diff(edges)[:, None]
-    return mean, coverage, count, native
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    edges = np.asarray(edges, dtype=float)
+    m, nv = edges.size - 1, vals2d.shape[1]
+    mean, coverage = np.empty((nv, m)), np.empty((nv, m))
+    count = np.empty((nv, m), dtype=np.int32)
+    native = np.empty(m)
+    for k in range(nv):
+        ordered = overlap_cells(lo, hi, vals2d[:, k], edges, float(min_coverage), mean[k],
+                                coverage[k], count[k], native)
+        if not ordered:
+            raise InputError("sample intervals overlap or run backwards (a record with "
+                             "tolerated age inversions cannot be resampled along age; "
+                             "resample along depth)", field="bounds")
+    return mean.T, coverage.T, count.T, native
 
 
 def grid_edges(lo, hi, step, start=None, stop=None):
@@ -258,12 +262,13 @@ def _add_record(out, record, wanted, along, edges, min_coverage, interpolate, na
     values = (record[wanted[0][0]].values.astype(float, copy=False) if len(wanted) == 1
               else np.column_stack([record[v].values.astype(float) for v, _ in wanted]))
     try:
-        mean, coverage, count, native = overlap_mean(bounds[:, 0], bounds[:, 1], values, edges)
+        mean, coverage, count, native = overlap_mean(bounds[:, 0], bounds[:, 1], values, edges,
+                                                     0.0 if interpolate else min_coverage)
     except InputError as exc:
         raise exc.located(source=record.attrs.get("source"), field=f"{along}_bounds") from None
     if interpolate:
         mean = _interpolate_fine(mean, count, record, along, values, edges)
-    mean[coverage < min_coverage] = np.nan
+        mean[coverage < min_coverage] = np.nan
     dim = along
     unit = "yr" if along == "age" else "m"
     out[native_name] = (dim, native, {
@@ -278,7 +283,7 @@ def _add_record(out, record, wanted, along, edges, min_coverage, interpolate, na
         out[f"{name}_coverage"] = (dim, coverage[:, k], {
             "units": "1", "long_name": f"fraction of the cell covered by non-missing {var} "
                                        "samples"})
-        out[f"{name}_n_samples"] = (dim, count[:, k].astype(np.int32), {
+        out[f"{name}_n_samples"] = (dim, count[:, k], {
             "units": "1", "long_name": f"number of {var} samples overlapping the cell"})
     if along == "age" and "age_ensemble" in record:
         for var, name in wanted:
@@ -312,8 +317,7 @@ def _ensemble_cells(record, var, edges, min_coverage):
         for m in block:
             lo = interp_extrapolate(xb[:, 0], x, ens[:, m])
             hi = interp_extrapolate(xb[:, 1], x, ens[:, m])
-            mean, coverage, _, _ = overlap_mean(lo, hi, values, edges)
-            rows.append(np.where(coverage[:, 0] >= min_coverage, mean[:, 0], np.nan))
+            rows.append(overlap_mean(lo, hi, values, edges, min_coverage)[0][:, 0])
         return np.array(rows)
 
     n_members, n_cells = ens.shape[1], edges.size - 1
