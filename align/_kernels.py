@@ -95,9 +95,10 @@ def interp_sorted(x, xp, fp, out):
 def _disordered(lo, hi, i):
     """Sample ``i`` runs backwards or overlaps the one before beyond the record model's
     rounding tolerance."""
-    if hi[i] < lo[i]:
-        return True
-    return i > 0 and lo[i] < hi[i - 1] - 1e-9 * max(1.0, abs(hi[i - 1]))
+    if i == 0:
+        return hi[i] < lo[i]
+    previous = hi[i - 1]  # (``|``, not ``or``: no branch in the merge's inner loop)
+    return (hi[i] < lo[i]) | (lo[i] < previous - 1e-9 * max(1.0, abs(previous)))
 
 
 @njit(cache=True, nogil=True)
@@ -131,9 +132,9 @@ def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, na
 
     Notes
     -----
-    Cell by cell: a pointer skips the samples that end at or before the cell; the samples
-    from there that start before the cell's end are summed into local accumulators and each
-    output is written once, so the cost is ``O(n + m)`` with no zero-filled scratch arrays and
+    Cell by cell: the samples from a pointer on that start before the cell's end are summed
+    into local accumulators, the pointer moves to the last of them if it reaches into the
+    next cell (past them otherwise), and each output is written once, so the cost is ``O(n + m)`` with no zero-filled scratch arrays and
     no second pass. A sample is counted in a cell when it overlaps it by a positive length;
     a zero-width sample counts in the cell ``[e_j, e_{j+1})`` holding it.
     """
@@ -152,6 +153,8 @@ def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, na
         k = i
         while k < n and lo[k] < right:
             a, b = lo[k], hi[k]
+            if _disordered(lo, hi, k):
+                ordered = False
             overlap = min(b, right) - max(a, left)
             if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
                 width_sum += b - a
@@ -162,6 +165,7 @@ def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, na
                     covered += overlap
                     valid += 1
             k += 1
+        i = k - 1 if k > i and hi[k - 1] > right else k  # only the last can reach beyond
         cover = covered / (right - left)
         coverage[j] = cover
         mean[j] = integral / covered if covered > 0.0 and cover >= min_coverage else np.nan
