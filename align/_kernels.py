@@ -102,7 +102,23 @@ def _disordered(lo, hi, i):
 
 
 @njit(cache=True, nogil=True)
-def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, native):
+def regular_cells(start, step, m):
+    """Bounds ``(start + j step, start + (j + 1) step)`` and centres of ``m`` regular cells,
+    in one pass; the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums
+    of its neighbours."""
+    bounds = np.empty((m, 2))
+    centre = np.empty(m)
+    right = start + step * 0
+    for j in range(m):
+        left, right = right, start + step * (j + 1)
+        bounds[j, 0] = left
+        bounds[j, 1] = right
+        centre[j] = 0.5 * (right + left)
+    return bounds, centre
+
+
+@njit(cache=True, nogil=True)
+def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
     """Overlap-weighted cell means of one variable, exactly, in one merge of samples and cells.
 
     Parameters
@@ -111,14 +127,14 @@ def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, na
         Sample intervals, increasing and not overlapping (strided views are fine).
     values : float64[n]
         Sample values; NaN is missing.
-    edges : float64[m + 1]
-        Cell edges, increasing.
+    cells : float64[m, 2]
+        Cell bounds, increasing and not overlapping (e.g. a sliding-window view of edges).
     min_coverage : float
         Cells covered less than this (fraction) get a NaN mean.
     mean, coverage : float64[m]
         Output: ``sum v_i o_ij / sum o_ij`` over valid samples ``i`` overlapping cell ``j`` by
         ``o_ij`` (NaN when nothing valid overlaps or coverage is below ``min_coverage``), and
-        ``sum o_ij / (e_{j+1} - e_j)``.
+        ``sum o_ij`` over the cell's width.
     count : int32[m]
         Output: valid samples overlapping each cell.
     native : float64[m]
@@ -136,14 +152,13 @@ def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, na
     into local accumulators, the pointer moves to the last of them if it reaches into the
     next cell (past them otherwise), and each output is written once, so the cost is ``O(n + m)`` with no zero-filled scratch arrays and
     no second pass. A sample is counted in a cell when it overlaps it by a positive length;
-    a zero-width sample counts in the cell ``[e_j, e_{j+1})`` holding it.
+    a zero-width sample counts in the cell ``[left, right)`` holding it.
     """
-    n, m = lo.size, edges.size - 1
+    n, m = lo.size, cells.shape[0]
     ordered = True
     i = 0
-    right = edges[0]
     for j in range(m):
-        left, right = right, edges[j + 1]
+        left, right = cells[j, 0], cells[j, 1]
         while i < n and (hi[i] < left or (hi[i] == left and lo[i] < hi[i])):
             if _disordered(lo, hi, i):
                 ordered = False
@@ -174,7 +189,7 @@ def overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, na
     while i < n:  # the samples beyond the grid, up to the first that starts past its end
         if _disordered(lo, hi, i):
             ordered = False
-        if lo[i] >= edges[m]:
+        if lo[i] >= cells[m - 1, 1]:
             break
         i += 1
     return ordered

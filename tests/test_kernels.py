@@ -3,7 +3,8 @@
 import numpy as np
 import pytest
 
-from align._kernels import ar1_series, interp_sorted, overlap_cells, place_between_ties
+from align._kernels import (ar1_series, interp_sorted, overlap_cells, place_between_ties,
+                            regular_cells)
 from align.ties import bridge_variance, tie_variance
 
 
@@ -165,7 +166,8 @@ def run_overlap_cells(lo, hi, values, edges, min_coverage=0.0):
     m = edges.size - 1
     mean, coverage, native = np.empty(m), np.empty(m), np.empty(m)
     count = np.empty(m, dtype=np.int32)
-    ordered = overlap_cells(lo, hi, values, edges, min_coverage, mean, coverage, count, native)
+    cells = np.lib.stride_tricks.sliding_window_view(edges, 2)
+    ordered = overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native)
     return ordered, mean, coverage, count, native
 
 
@@ -210,3 +212,12 @@ def test_overlap_cells_reports_disorder():
     hi = np.array([1.0, 2.0, 2.5, 4.0])  # the third sample overlaps the second
     assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
     assert run_overlap_cells(lo[[0, 1, 3]], hi[[0, 1, 3]], np.ones(3), np.arange(0.0, 5.0))[0]
+
+
+@pytest.mark.parametrize("start, step, m", [(1000.0, 0.1, 12345), (-7.3, 2.5e-3, 1000),
+                                            (11_700.0, 1.0 / 3.0, 999)])
+def test_regular_cells_equal_the_numpy_edges(start, step, m):
+    edges = start + step * np.arange(m + 1)
+    bounds, centre = regular_cells(start, step, m)
+    np.testing.assert_array_equal(bounds, np.column_stack([edges[:-1], edges[1:]]))
+    np.testing.assert_array_equal(centre, 0.5 * (edges[1:] + edges[:-1]))
