@@ -63,11 +63,9 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     Exact integration of the piecewise-constant record: cell ``j`` gets
     ``sum_i v_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]| / sum_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]|``
     over valid samples ``i``; computed by a single merge of samples and cells per variable,
-    ``O(n + m)`` (:func:`align._kernels.overlap_cells`). The columns of the (m, v) outputs
-    are contiguous.
+    ``O(n + m)`` (:func:`align._kernels.overlap_cells`), on large grids in blocks of cells
+    on all cores. The columns of the (m, v) outputs are contiguous.
     """
-    from align._kernels import overlap_cells
-
     values = np.asarray(values, dtype=float)
     vals2d = values[:, None] if values.ndim == 1 else values
     lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
@@ -78,13 +76,36 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     count = np.empty((nv, m), dtype=np.int32)
     native = np.empty(m)
     for k in range(nv):
-        ordered = overlap_cells(lo, hi, vals2d[:, k], cells, float(min_coverage), mean[k],
-                                coverage[k], count[k], native)
-        if not ordered:
+        if not _merge(lo, hi, vals2d[:, k], cells, float(min_coverage), mean[k], coverage[k],
+                      count[k], native):
             raise InputError("sample intervals overlap or run backwards (a record with "
                              "tolerated age inversions cannot be resampled along age; "
                              "resample along depth)", field="bounds")
     return mean.T, coverage.T, count.T, native
+
+
+#: Cells per thread below which a grid is merged on one thread.
+CELLS_PER_THREAD = 200_000
+
+
+def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
+    """Run the merge kernel over blocks of cells in parallel (it releases the GIL); each
+    block starts at the sample before the first that reaches its first cell, so that the
+    ordering check sees every neighbouring pair. Returns whether the samples were ordered."""
+    from bisect import bisect_left
+
+    from align._kernels import overlap_cells
+    from align._threads import blocks, pool
+
+    def block(a, b):
+        s = max(bisect_left(hi, cells[a, 0]) - 1, 0) if a else 0
+        return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
+                             coverage[a:b], count[a:b], native[a:b])
+
+    bounds = blocks(cells.shape[0], CELLS_PER_THREAD)
+    if len(bounds) == 2:
+        return block(0, cells.shape[0])
+    return all(pool().map(block, bounds[:-1], bounds[1:]))
 
 
 def grid_cells(lo, hi, step, start=None, stop=None):
