@@ -112,3 +112,20 @@ def test_cli_xcorr_json():
                 "age_reference", "provenance"):
         assert key in out
     assert len(out["curve"]["lags"]) == len(out["curve"]["r"])
+
+
+@pytest.mark.parametrize("n, k", [(64, 63), (257, 40), (1000, 999)])
+def test_batched_ccf_equals_the_direct_sum_at_every_lag_range(n, k):
+    # the direct formula (numpy.correlate of standardised series over the N_k pairs) for a
+    # batch, up to the longest lag range, where the wrap correction is largest
+    rng = np.random.default_rng(n)
+    a = rng.standard_normal((3, n))
+    b = rng.standard_normal((3, n))
+    r, pairs = ccf(a, b, k)
+    for row in range(3):
+        za = (a[row] - a[row].mean()) / a[row].std()
+        zb = (b[row] - b[row].mean()) / b[row].std()
+        full = np.correlate(za, zb, mode="full")  # index n - 1 + lag: sum_i za[i + lag] zb[i]
+        lags = np.arange(-k, k + 1)
+        np.testing.assert_allclose(r[row], full[n - 1 + lags] / (n - np.abs(lags)),
+                                   rtol=1e-9, atol=1e-12)
