@@ -266,23 +266,42 @@ def block_bootstrap_peaks(numerator, denominator, lags, block, replicates, rng):
     -------
     numpy.ndarray
         Peak lags (yr) of the replicates.
+
+    Notes
+    -----
+    A replicate's curve is ``C B^T`` with ``C`` its count of each block start (a sparse
+    replicates x starts matrix) and ``B`` the block sums of every start (lags x starts, from
+    prefix sums), so no replicate gathers its blocks; ``B`` is made a few lags at a time to
+    bound memory.
     """
+    from scipy import sparse
+
     n = numerator.shape[1]
     block = int(np.clip(np.ceil(block), 1, max(n // 4, 1)))
-    zero = np.zeros((lags.size, 1))
-    csum = np.concatenate([zero, np.cumsum(numerator, axis=1)], axis=1)
-    cden = np.concatenate([zero, np.cumsum(denominator, axis=1)], axis=1)
-    starts = np.arange(n - block + 1)
-    block_num = csum[:, starts + block] - csum[:, starts]
-    block_den = cden[:, starts + block] - cden[:, starts]
-    picks = rng.integers(0, starts.size, (replicates, int(np.ceil(n / block))))
-    peaks = []
-    for row in picks:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            curve = block_num[:, row].sum(axis=1) / block_den[:, row].sum(axis=1)
-        if np.isfinite(curve).any():
-            peaks.append(refine_peak(lags, curve)[0])
-    return np.asarray(peaks)
+    starts = n - block + 1
+    picks = rng.integers(0, starts, (replicates, int(np.ceil(n / block))))
+    counts = sparse.csr_matrix((np.ones(picks.size), picks.ravel(),
+                                np.arange(0, picks.size + 1, picks.shape[1])),
+                               shape=(replicates, starts))
+    num = np.empty((replicates, lags.size))
+    den = np.empty((replicates, lags.size))
+    chunk = max(1, 2_000_000 // n)
+    for lo in range(0, lags.size, chunk):
+        rows = slice(lo, min(lo + chunk, lags.size))
+        num[:, rows] = counts @ _block_sums(numerator[rows], block).T
+        den[:, rows] = counts @ _block_sums(denominator[rows], block).T
+    with np.errstate(invalid="ignore", divide="ignore"):
+        curves = num / den
+    return np.asarray([refine_peak(lags, curve)[0] for curve in curves
+                       if np.isfinite(curve).any()])
+
+
+def _block_sums(x, block):
+    """Sums of ``block`` consecutive values from every start, along the last axis."""
+    total = np.cumsum(x, axis=1)
+    out = total[:, block - 1:].copy()
+    out[:, 1:] -= total[:, :-block]
+    return out
 
 
 # --------------------------------------------------------------------------------------------
