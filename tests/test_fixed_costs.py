@@ -28,3 +28,18 @@ def test_openapi_document_is_built_once(client, monkeypatch):
     assert len(built) == 1
     assert bodies[0] == bodies[2] and bodies[0]["openapi"] == "3.1.0"
     assert "/openapi.json" in bodies[0]["paths"]
+
+
+def test_trace_lists_equal_the_element_by_element_conversion():
+    import json
+
+    import numpy as np
+
+    from align.detect import trace_list
+
+    values = np.random.default_rng(2).normal(size=1000)
+    values[[3, 70, 500]] = [np.nan, np.inf, -np.inf]
+    expected = [None if not np.isfinite(v) else float(v) for v in values]
+    got = trace_list(values)
+    assert got == expected and json.dumps(got) == json.dumps(expected)
+    assert all(type(v) is float for v in got if v is not None)
