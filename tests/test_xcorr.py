@@ -121,7 +121,7 @@ def test_batched_ccf_equals_the_direct_sum_at_every_lag_range(n, k):
     rng = np.random.default_rng(n)
     a = rng.standard_normal((3, n))
     b = rng.standard_normal((3, n))
-    r, pairs = ccf(a, b, k)
+    r, _ = ccf(a, b, k)
     for row in range(3):
         za = (a[row] - a[row].mean()) / a[row].std()
         zb = (b[row] - b[row].mean()) / b[row].std()
