@@ -81,7 +81,7 @@ class SurveySources(Sources):
     pair that names it (the pairs of a survey share a few records)."""
 
     def __init__(self, inner):
-        super().__init__(inner.base, inner.loaded)
+        super().__init__(inner.loaded)
         self.inner = inner
         self.made = {}
 
@@ -202,7 +202,9 @@ def _run(pairs, spec, sources, seeds, scheduler, progress, workers):
             return [_counted(_one_pair(pair, spec, local, seed), progress)
                     for pair, seed in zip(pairs, seeds)]
     token = uuid.uuid4().hex
-    jobs = [_pool(workers).submit(_pair_in_worker, token, pair, spec, sources, seed)
+    body = spec.model_dump()  # plain data: marker specs are classes made at run time
+    jobs = [_pool(workers).submit(_pair_in_worker, token, pair.model_dump(), body, sources,
+                                  seed)
             for pair, seed in zip(pairs, seeds)]
     if progress is not None:
         for job in jobs:
@@ -258,6 +260,7 @@ def _start_worker():
 
 
 def _pair_in_worker(token, pair, spec, sources, seed):
+    pair, spec = validate_as(PairSpec, pair), validate_as(SurveySpec, spec)
     if _WORKER.get("token") != token:
         _WORKER.update(token=token, sources=SurveySources(sources))
     return _one_pair(pair, spec, _WORKER["sources"], seed)
@@ -276,7 +279,9 @@ def _on_cluster(pairs, spec, sources, seeds, address, progress):
 
     client = cluster_client(address)
     token = uuid.uuid4().hex
-    tasks = [dask.delayed(_pair_in_worker, pure=True)(token, pair, spec, sources, s)
+    body = spec.model_dump()
+    tasks = [dask.delayed(_pair_in_worker, pure=True)(token, pair.model_dump(), body, sources,
+                                                      s)
              for pair, s in zip(pairs, seeds)]
     return [_counted(outcome, progress)
             for outcome in client.gather(client.compute(tasks))]

@@ -69,7 +69,7 @@ def test_worker_processes_give_the_serial_answer(greenland):
 
 def test_records_ties_and_transfers_are_made_once_per_survey(monkeypatch):
     from align import lag as lagmod
-    from align.survey import survey_spec
+    from align.requests import read_survey
 
     calls = {"record": 0, "ties": 0, "transfer": 0}
 
@@ -86,9 +86,8 @@ def test_records_ties_and_transfers_are_made_once_per_survey(monkeypatch):
             calls["transfer"] += 1
             return super().transfer(*args, **kwargs)
 
-    spec, base = survey_spec(RECORDS / "demo_survey.json")
-    spec = spec.model_copy(update={"draws": 2000})
-    result = survey(spec, sources=Counting(base), workers=1)
+    spec = read_survey(RECORDS / "demo_survey.json").model_copy(update={"draws": 2000})
+    result = survey(spec, sources=Counting(), workers=1)
     assert len(result.pairs) == 2
     # two records, one tie table, one transfer, for two pairs (before: 4, 2 and 2)
     assert calls == {"record": 2, "ties": 1, "transfer": 1}

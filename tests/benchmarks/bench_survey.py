@@ -41,7 +41,7 @@ def spec(pairs):
             "b": {"kind": "onset", "record": csv, "variable": "d18O", "mapping": mapping,
                   "draws": 400},
             "draws": 4000, "seed": 7}
-    parsed, _ = survey_spec(body)
+    parsed = survey_spec(body)
     rows = table_pairs(parsed, Sources())
     cycled = [rows[k % len(rows)].model_copy(update={"label": f"{rows[k % len(rows)].label} #{k}"})
               for k in range(pairs)]
