@@ -92,79 +92,107 @@ def interp_sorted(x, xp, fp, out):
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _add_overlap(cell, i, overlap, width, values, integral, covered, count, width_sum,
-                 width_count):
-    """Add sample ``i`` (interval length ``width``) to ``cell`` over ``overlap``."""
-    width_sum[cell] += width
-    width_count[cell] += 1
-    for k in range(values.shape[1]):
-        v = values[i, k]
-        if v == v:
-            integral[cell, k] += v * overlap
-            covered[cell, k] += overlap
-            count[cell, k] += 1
+def _disordered(lo, hi, i):
+    """Sample ``i`` runs backwards or overlaps the one before beyond the record model's
+    rounding tolerance."""
+    if i == 0:
+        return hi[i] < lo[i]
+    previous = hi[i - 1]  # (``|``, not ``or``: no branch in the merge's inner loop)
+    return (hi[i] < lo[i]) | (lo[i] < previous - 1e-9 * max(1.0, abs(previous)))
 
 
 @njit(cache=True, nogil=True)
-def overlap_sums(lo, hi, values, edges):
-    """Integrate piecewise-constant samples over grid cells, exactly, in one merge pass.
+def regular_cells(start, step, m):
+    """Bounds ``(start + j step, start + (j + 1) step)`` and centres of ``m`` regular cells,
+    in one pass; the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums
+    of its neighbours."""
+    bounds = np.empty((m, 2))
+    centre = np.empty(m)
+    right = start + step * 0
+    for j in range(m):
+        left, right = right, start + step * (j + 1)
+        bounds[j, 0] = left
+        bounds[j, 1] = right
+        centre[j] = 0.5 * (right + left)
+    return bounds, centre
+
+
+@njit(cache=True, nogil=True)
+def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
+    """Overlap-weighted cell means of one variable, exactly, in one merge of samples and cells.
 
     Parameters
     ----------
     lo, hi : float64[n]
         Sample intervals, increasing and not overlapping (strided views are fine).
-    values : float64[n, v]
-        Sample values of ``v`` variables; NaN is missing.
-    edges : float64[m + 1]
-        Cell edges, increasing.
+    values : float64[n]
+        Sample values; NaN is missing.
+    cells : float64[m, 2]
+        Cell bounds, increasing and not overlapping (e.g. a sliding-window view of edges).
+    min_coverage : float
+        Cells covered less than this (fraction) get a NaN mean.
+    mean, coverage : float64[m]
+        Output: ``sum v_i o_ij / sum o_ij`` over valid samples ``i`` overlapping cell ``j`` by
+        ``o_ij`` (NaN when nothing valid overlaps or coverage is below ``min_coverage``), and
+        ``sum o_ij`` over the cell's width.
+    count : int32[m]
+        Output: valid samples overlapping each cell.
+    native : float64[m]
+        Output: mean interval length of all samples overlapping each cell (NaN: none).
 
     Returns
     -------
-    integral : float64[m, v]
-        Sum over valid samples of ``value * overlap(sample, cell)``.
-    covered : float64[m, v]
-        Sum over valid samples of ``overlap(sample, cell)``.
-    count : int64[m, v]
-        Valid samples overlapping each cell by a positive length.
-    width_sum : float64[m]
-        Sum of the interval lengths of all samples overlapping each cell.
-    width_count : int64[m]
-        Number of samples overlapping each cell.
     ordered : bool
         False if the intervals were not increasing and disjoint, beyond the record model's
-        rounding tolerance (the sums are then wrong).
+        rounding tolerance (the outputs are then wrong).
+
+    Notes
+    -----
+    Cell by cell: the samples from a pointer on that start before the cell's end are summed
+    into local accumulators, the pointer moves to the last of them if it reaches into the
+    next cell (past them otherwise), and each output is written once, so the cost is ``O(n + m)`` with no zero-filled scratch arrays and
+    no second pass. A sample is counted in a cell when it overlaps it by a positive length;
+    a zero-width sample counts in the cell ``[left, right)`` holding it.
     """
-    n, nv = values.shape
-    m = edges.size - 1
-    integral = np.zeros((m, nv))
-    covered = np.zeros((m, nv))
-    count = np.zeros((m, nv), dtype=np.int64)
-    width_sum = np.zeros(m)
-    width_count = np.zeros(m, dtype=np.int64)
+    n, m = lo.size, cells.shape[0]
     ordered = True
-    previous = -np.inf
-    c = 0
-    for i in range(n):
-        a, b = lo[i], hi[i]
-        if a < previous - 1e-9 * max(1.0, abs(previous)) or b < a:  # the record's tolerance
+    i = 0
+    for j in range(m):
+        left, right = cells[j, 0], cells[j, 1]
+        while i < n and (hi[i] < left or (hi[i] == left and lo[i] < hi[i])):
+            if _disordered(lo, hi, i):
+                ordered = False
+            i += 1
+        integral = covered = width_sum = 0.0
+        valid = overlapping = 0
+        k = i
+        while k < n and lo[k] < right:
+            a, b = lo[k], hi[k]
+            if _disordered(lo, hi, k):
+                ordered = False
+            overlap = min(b, right) - max(a, left)
+            if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
+                width_sum += b - a
+                overlapping += 1
+                v = values[k]
+                if v == v:
+                    integral += v * overlap
+                    covered += overlap
+                    valid += 1
+            k += 1
+        i = k - 1 if k > i and hi[k - 1] > right else k  # only the last can reach beyond
+        cover = covered / (right - left)
+        coverage[j] = cover
+        mean[j] = integral / covered if covered > 0.0 and cover >= min_coverage else np.nan
+        count[j] = valid
+        native[j] = width_sum / overlapping if overlapping > 0 else np.nan
+    while i < n:  # the samples beyond the grid, up to the first that starts past its end
+        if _disordered(lo, hi, i):
             ordered = False
-        previous = b
-        while c < m and edges[c + 1] <= a:
-            c += 1
-        if c == m:
+        if lo[i] >= cells[m - 1, 1]:
             break
-        if edges[c] <= a and b <= edges[c + 1]:  # the common case: inside one cell
-            _add_overlap(c, i, b - a, b - a, values, integral, covered, count, width_sum,
-                         width_count)
-            continue
-        j = c
-        while j < m and edges[j] < b:
-            overlap = min(b, edges[j + 1]) - max(a, edges[j])
-            if overlap > 0.0:
-                _add_overlap(j, i, overlap, b - a, values, integral, covered, count,
-                             width_sum, width_count)
-            j += 1
-    return integral, covered, count, width_sum, width_count, ordered
+        i += 1
+    return ordered
 
 
 @njit(cache=True, nogil=True)

@@ -66,7 +66,11 @@ def prepare_window(record, variable, window, reference):
 
 
 def trace_list(values):
-    return [None if not np.isfinite(v) else float(v) for v in values]
+    """Floats as a list, None where missing (one vectorised conversion, no Python loop)."""
+    values = np.asarray(values, dtype=float)
+    out = values.astype(object)
+    out[~np.isfinite(values)] = None
+    return out.tolist()
 
 
 def onset_bootstrap(t, x, w, sign, draws, rng):

@@ -54,6 +54,10 @@ class Sources:
     def ties(self, name):
         return read_ties(self.path(name))
 
+    def transfer(self, record, ties, reference, bridge_rate=None):
+        """``record`` on ``reference``'s timescale through ``ties`` (a survey reuses it)."""
+        return transfer(record, ties, reference, bridge_rate=bridge_rate)
+
 
 def lag_request(a, b=None, **options):
     """A :class:`LagRequest` and its :class:`Sources` from any of the accepted forms.
@@ -137,7 +141,7 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     rec_b = sources.record(request.b)
     tie_table = sources.ties(request.ties) if request.ties else None
     if tie_table is not None:
-        rec_b = transfer(rec_b, tie_table, rec_a, bridge_rate=request.bridge_rate)
+        rec_b = sources.transfer(rec_b, tie_table, rec_a, bridge_rate=request.bridge_rate)
     rec_b = with_age_reference(rec_b, ref)
     relation = _relation(rec_a, rec_b)
     marker_a = _located(detect_marker(rec_a, request.a, seed=seed_a), "a")

@@ -9,13 +9,18 @@ from __future__ import annotations
 
 import datetime as _dt
 import hashlib
+from functools import lru_cache
 from importlib import metadata
 
 import numpy as np
 
 
+@lru_cache(maxsize=1)
 def version():
-    """The installed corealign version (``0+unknown`` when running from an uninstalled tree)."""
+    """The installed corealign version (``0+unknown`` when running from an uninstalled tree).
+
+    Looked up once per process: the installed metadata does not change while it runs.
+    """
     try:
         return metadata.version("corealign")
     except metadata.PackageNotFoundError:

@@ -14,18 +14,13 @@ Mudelsee, M. (2000), Computers & Geosciences 26, 293-307, doi:10.1016/S0098-3004
 
 from __future__ import annotations
 
-import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from functools import lru_cache
 
 import numpy as np
 from scipy.optimize import minimize
 
 #: Samples required on each plateau of a fitted ramp.
 MIN_PLATEAU = 2
-#: Threads that share a bootstrap's refits (the machine's cores).
-THREADS = max(1, os.cpu_count() or 1)
 
 
 def ramp(t, t1, t2, x1, x2):
@@ -166,16 +161,12 @@ def bootstrap_ramps(t, w, fitted, replicates, sign=0):
         refined between samples by a parabola through the profile SSR).
     """
     from align._kernels import ramp_search
+    from align._threads import blocks, pool
 
     step = max(1, t.size // 30)
     series = fitted[None, :] + replicates
     # the compiled search releases the GIL: one thread per core, each on a block of rows
-    edges = np.linspace(0, series.shape[0], min(THREADS, series.shape[0]) + 1).astype(int)
-    parts = _pool().map(lambda k: ramp_search(t, w, series[edges[k]:edges[k + 1]], int(sign),
-                                              step, MIN_PLATEAU), range(edges.size - 1))
+    edges = blocks(series.shape[0], 1)
+    parts = pool().map(lambda k: ramp_search(t, w, series[edges[k]:edges[k + 1]], int(sign),
+                                             step, MIN_PLATEAU), range(len(edges) - 1))
     return np.vstack(list(parts))[:, :4]
-
-
-@lru_cache(maxsize=1)
-def _pool():
-    return ThreadPoolExecutor(max_workers=THREADS, thread_name_prefix="corealign-ramp")

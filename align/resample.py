@@ -32,7 +32,7 @@ class GridWarning(UserWarning):
     """A choice made for the user about the grid (the default step)."""
 
 
-def overlap_mean(lo, hi, values, edges):
+def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     """Overlap-weighted means of interval samples over cells, with the bookkeeping.
 
     Parameters
@@ -41,17 +41,19 @@ def overlap_mean(lo, hi, values, edges):
         Sample intervals, increasing, not overlapping (gaps allowed).
     values : numpy.ndarray (n,) or (n, v)
         Sample values; NaN is missing and reduces coverage.
-    edges : numpy.ndarray (m + 1,)
-        Cell edges, increasing.
+    edges : numpy.ndarray (m + 1,) or (m, 2)
+        Cell edges, increasing, or the cells' bounds.
+    min_coverage : float
+        Cells covered less than this fraction get a NaN mean (default: none).
 
     Returns
     -------
     mean : numpy.ndarray (m, v)
         ``integral(value over cell) / covered length`` (units of ``values``); NaN where nothing
-        valid overlaps.
+        valid overlaps or the coverage is below ``min_coverage``.
     coverage : numpy.ndarray (m, v)
         Covered fraction of each cell (dimensionless).
-    count : numpy.ndarray (m, v)
+    count : numpy.ndarray (m, v) of int32
         Valid samples overlapping each cell.
     native : numpy.ndarray (m,)
         Mean interval length of the samples overlapping each cell (units of ``lo``).
@@ -60,33 +62,60 @@ def overlap_mean(lo, hi, values, edges):
     -----
     Exact integration of the piecewise-constant record: cell ``j`` gets
     ``sum_i v_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]| / sum_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]|``
-    over valid samples ``i``; computed by a single merge of samples and cells, ``O(n + m)``
-    (:func:`align._kernels.overlap_sums`).
+    over valid samples ``i``; computed by a single merge of samples and cells per variable,
+    ``O(n + m)`` (:func:`align._kernels.overlap_cells`), on large grids in blocks of cells
+    on all cores. The columns of the (m, v) outputs are contiguous.
     """
-    from align._kernels import overlap_sums
-
     values = np.asarray(values, dtype=float)
     vals2d = values[:, None] if values.ndim == 1 else values
-    integral, covered, count, width_sum, width_count, ordered = overlap_sums(
-        np.asarray(lo, dtype=float), np.asarray(hi, dtype=float), vals2d,
-        np.asarray(edges, dtype=float))
-    if not ordered:
-        raise InputError("sample intervals overlap or run backwards (a record with tolerated "
-                         "age inversions cannot be resampled along age; resample along depth)",
-                         field="bounds")
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = integral / covered
-        native = width_sum / width_count
-    mean[covered == 0] = np.nan
-    coverage = covered / np.diff(edges)[:, None]
-    return mean, coverage, count, native
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    edges = np.asarray(edges, dtype=float)
+    cells = np.lib.stride_tricks.sliding_window_view(edges, 2) if edges.ndim == 1 else edges
+    m, nv = cells.shape[0], vals2d.shape[1]
+    mean, coverage = np.empty((nv, m)), np.empty((nv, m))
+    count = np.empty((nv, m), dtype=np.int32)
+    native = np.empty(m)
+    for k in range(nv):
+        if not _merge(lo, hi, vals2d[:, k], cells, float(min_coverage), mean[k], coverage[k],
+                      count[k], native):
+            raise InputError("sample intervals overlap or run backwards (a record with "
+                             "tolerated age inversions cannot be resampled along age; "
+                             "resample along depth)", field="bounds")
+    return mean.T, coverage.T, count.T, native
 
 
-def grid_edges(lo, hi, step, start=None, stop=None):
-    """Regular cell edges ``start, start + step, ..., stop``.
+#: Cells per thread below which a grid is merged on one thread.
+CELLS_PER_THREAD = 200_000
 
-    Defaults snap the data range outward to multiples of ``step``.
+
+def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
+    """Run the merge kernel over blocks of cells in parallel (it releases the GIL); each
+    block starts at the sample before the first that reaches its first cell, so that the
+    ordering check sees every neighbouring pair. Returns whether the samples were ordered."""
+    from bisect import bisect_left
+
+    from align._kernels import overlap_cells
+    from align._threads import blocks, pool
+
+    def block(a, b):
+        s = max(bisect_left(hi, cells[a, 0]) - 1, 0) if a else 0
+        return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
+                             coverage[a:b], count[a:b], native[a:b])
+
+    bounds = blocks(cells.shape[0], CELLS_PER_THREAD)
+    if len(bounds) == 2:
+        return block(0, cells.shape[0])
+    return all(pool().map(block, bounds[:-1], bounds[1:]))
+
+
+def grid_cells(lo, hi, step, start=None, stop=None):
+    """Regular cells from ``start`` to ``stop`` by ``step``: their bounds (m, 2) and centres.
+
+    Defaults snap the data range outward to multiples of ``step``. The edges are
+    ``start + step * k``, ``k = 0..m``, exactly.
     """
+    from align._kernels import regular_cells
+
     if not (np.isfinite(step) and step > 0):
         raise InputError("the grid step must be a positive number", field="step")
     start = np.floor(lo / step) * step if start is None else float(start)
@@ -97,7 +126,7 @@ def grid_edges(lo, hi, step, start=None, stop=None):
     if not np.isclose(start + count * step, stop, rtol=0, atol=1e-9 * max(1.0, abs(stop))):
         raise InputError(f"stop - start ({stop - start:g}) is not a whole number of steps "
                          f"({step:g})", field="stop")
-    return start + step * np.arange(count + 1)
+    return regular_cells(float(start), float(step), count)
 
 
 def round_step(step):
@@ -171,13 +200,15 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
     # records run top-down; overlapping age intervals are refused by overlap_mean
     lo = min(r[f"{along}_bounds"].values[0, 0] for r in group)
     hi = max(r[f"{along}_bounds"].values[-1, 1] for r in group)
-    edges = grid_edges(lo, hi, step, start, stop)
+    cells, centre = grid_cells(lo, hi, step, start, stop)
     names = _output_names(group, variables)
-    out = _grid_dataset(group[0], along, edges)
+    data = {f"{along}_bounds": ((along, NV), cells)}
     for record, wanted in zip(group, names):
         native = ("native_interval" if len(group) == 1
                   else f"{_prefix(record_name(record))}_native_interval")
-        _add_record(out, record, wanted, along, edges, min_coverage, interpolate, native)
+        data.update(_record_cells(record, wanted, along, cells, centre, min_coverage,
+                                  interpolate, native))
+    out = xr.Dataset(data, coords={along: (along, centre, _axis_attrs(group[0], along))})
     out.attrs.update(
         Conventions="CF-1.8", title="corealign common grid",
         resample_step=float(step), min_coverage=float(min_coverage),
@@ -187,7 +218,7 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
         sources=" ; ".join(f"{record_name(r)}: {r.attrs.get('source', '')} sha256 "
                            f"{r.attrs.get('source_checksum', '')}" for r in group),
         history=history_line(f"resampled {', '.join(record_name(r) for r in group)} onto "
-                             f"{edges.size - 1} cells of {step:g} along {along}"))
+                             f"{cells.shape[0]} cells of {step:g} along {along}"))
     if chosen:
         out.attrs["step_choice"] = chosen
     return out
@@ -238,37 +269,36 @@ def _prefix(name):
     return safe if safe[0].isalpha() else f"r_{safe}"
 
 
-def _grid_dataset(first, along, edges):
-    centre = 0.5 * (edges[1:] + edges[:-1])
+def _axis_attrs(first, along):
     if along == "age":
         ref = age_reference(first)
-        attrs = {"units": "yr", "long_name": f"age, {reference_label(ref)}",
-                 "age_reference": ref, "bounds": "age_bounds"}
-    else:
-        attrs = {"units": "m", "long_name": "depth below the top of the core",
-                 "positive": "down", "bounds": "depth_bounds"}
-    return xr.Dataset({f"{along}_bounds": ((along, NV), np.column_stack([edges[:-1], edges[1:]]))},
-                      coords={along: (along, centre, attrs)})
+        return {"units": "yr", "long_name": f"age, {reference_label(ref)}",
+                "age_reference": ref, "bounds": "age_bounds"}
+    return {"units": "m", "long_name": "depth below the top of the core", "positive": "down",
+            "bounds": "depth_bounds"}
 
 
-def _add_record(out, record, wanted, along, edges, min_coverage, interpolate, native_name):
+def _record_cells(record, wanted, along, cells, centre, min_coverage, interpolate,
+                  native_name):
+    """One record's variables on the grid: ``{name: (dims, values, attrs)}``."""
     if not wanted:
-        return
+        return {}
     bounds = record[f"{along}_bounds"].values
     values = (record[wanted[0][0]].values.astype(float, copy=False) if len(wanted) == 1
               else np.column_stack([record[v].values.astype(float) for v, _ in wanted]))
     try:
-        mean, coverage, count, native = overlap_mean(bounds[:, 0], bounds[:, 1], values, edges)
+        mean, coverage, count, native = overlap_mean(bounds[:, 0], bounds[:, 1], values, cells,
+                                                     0.0 if interpolate else min_coverage)
     except InputError as exc:
         raise exc.located(source=record.attrs.get("source"), field=f"{along}_bounds") from None
     if interpolate:
-        mean = _interpolate_fine(mean, count, record, along, values, edges)
-    mean[coverage < min_coverage] = np.nan
+        mean = _interpolate_fine(mean, count, record, along, values, centre)
+        mean[coverage < min_coverage] = np.nan
     dim = along
     unit = "yr" if along == "age" else "m"
-    out[native_name] = (dim, native, {
+    out = {native_name: (dim, native, {
         "units": unit, "long_name": f"mean sample interval of {record_name(record)} beneath "
-                                    "the cell"})
+                                    "the cell"})}
     for k, (var, name) in enumerate(wanted):
         attrs = {key: val for key, val in record[var].attrs.items()
                  if key in ("units", "long_name", "standard_name")}
@@ -278,17 +308,17 @@ def _add_record(out, record, wanted, along, edges, min_coverage, interpolate, na
         out[f"{name}_coverage"] = (dim, coverage[:, k], {
             "units": "1", "long_name": f"fraction of the cell covered by non-missing {var} "
                                        "samples"})
-        out[f"{name}_n_samples"] = (dim, count[:, k].astype(np.int32), {
+        out[f"{name}_n_samples"] = (dim, count[:, k], {
             "units": "1", "long_name": f"number of {var} samples overlapping the cell"})
     if along == "age" and "age_ensemble" in record:
         for var, name in wanted:
-            out[f"{name}_ensemble"] = _ensemble_cells(record, var, edges, min_coverage)
+            out[f"{name}_ensemble"] = _ensemble_cells(record, var, cells, min_coverage)
+    return out
 
 
-def _interpolate_fine(mean, count, record, along, values, edges):
+def _interpolate_fine(mean, count, record, along, values, centre):
     """Linear interpolation between mid-points for cells inside a single sample."""
     mid = record[along].values
-    centre = 0.5 * (edges[1:] + edges[:-1])
     out = mean.copy()
     values = values.reshape(values.shape[0], -1)
     for k in range(values.shape[1]):
@@ -299,7 +329,7 @@ def _interpolate_fine(mean, count, record, along, values, edges):
     return out
 
 
-def _ensemble_cells(record, var, edges, min_coverage):
+def _ensemble_cells(record, var, cells, min_coverage):
     """Member-by-member resampling of one variable: a (member, cell) DataArray."""
     ens = record["age_ensemble"].transpose(SAMPLE, MEMBER).values
     x = record["depth"].values if "depth" in record.coords else np.arange(ens.shape[0], float)
@@ -312,11 +342,10 @@ def _ensemble_cells(record, var, edges, min_coverage):
         for m in block:
             lo = interp_extrapolate(xb[:, 0], x, ens[:, m])
             hi = interp_extrapolate(xb[:, 1], x, ens[:, m])
-            mean, coverage, _, _ = overlap_mean(lo, hi, values, edges)
-            rows.append(np.where(coverage[:, 0] >= min_coverage, mean[:, 0], np.nan))
+            rows.append(overlap_mean(lo, hi, values, cells, min_coverage)[0][:, 0])
         return np.array(rows)
 
-    n_members, n_cells = ens.shape[1], edges.size - 1
+    n_members, n_cells = ens.shape[1], cells.shape[0]
     if n_members * n_cells > LAZY_ENSEMBLE:
         per = max(1, LAZY_ENSEMBLE // (4 * n_cells))
         from dask import delayed

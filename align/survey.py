@@ -1,7 +1,9 @@
 """Surveys: the lag of many marker pairs, and whether a lead is systematic.
 
-Each pair's lag is estimated on its own (:func:`align.lag.estimate_lag`), in parallel on dask
-(the local scheduler by default, a ``dask.distributed`` cluster when one is named). The pairs
+Each pair's lag is estimated on its own (:func:`align.lag.estimate_lag`), in parallel: on
+worker processes of this machine by default (the per-pair work is Python-heavy and holds the
+GIL, so threads do not help), or on a ``dask.distributed`` cluster when one is named. Records,
+tie tables and transfers are made once per survey (per worker process), not once per pair. The pairs
 are combined by Monte Carlo from their full lag distributions: every draw of the combined lag
 is the inverse-variance weighted mean of one draw from each pair plus a between-pair deviation
 whose variance is estimated from the scatter (DerSimonian & Laird 1986), so the combined
@@ -17,6 +19,10 @@ Cochran, W. G. (1954), Biometrics 10, 101-129, doi:10.2307/3001666.
 
 from __future__ import annotations
 
+import multiprocessing
+import os
+import uuid
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -26,7 +32,7 @@ from scipy.stats import chi2
 from align.ages import convert_age
 from align.errors import InputError
 from align.lag import CAUTION, Sources, estimate_lag, lag_summary
-from align.provenance import provenance, resolve_seed, sha256_file
+from align.provenance import dataset_checksum, provenance, resolve_seed, sha256_file
 from align.schema import (Heterogeneity, PairSpec, SurveyPair, SurveyResult, SurveySpec,
                           validate_as)
 
@@ -70,6 +76,39 @@ def table_pairs(spec, sources):
     return pairs
 
 
+class SurveySources(Sources):
+    """A survey's sources: each record, tie table and transfer made once, then reused by every
+    pair that names it (the pairs of a survey share a few records)."""
+
+    def __init__(self, inner):
+        super().__init__(inner.loaded)
+        self.inner = inner
+        self.made = {}
+
+    def _once(self, key, make):
+        if key not in self.made:
+            self.made[key] = make()
+        return self.made[key]
+
+    def path(self, name):
+        return self.inner.path(name)
+
+    def record(self, spec):
+        mapping = tuple(sorted((spec.mapping or {}).items()))
+        return self._once(("record", spec.record, mapping), lambda: self.inner.record(spec))
+
+    def ties(self, name):
+        return self._once(("ties", name), lambda: self.inner.ties(name))
+
+    def transfer(self, record, ties, reference, bridge_rate=None):
+        # keyed by content: the same record converted to another age reference is a new
+        # object; the tie table is the one object ``ties`` keeps
+        key = ("transfer", dataset_checksum(record), id(ties), dataset_checksum(reference),
+               bridge_rate)
+        return self._once(key, lambda: self.inner.transfer(record, ties, reference,
+                                                           bridge_rate))
+
+
 def _one_pair(pair, spec, sources, seed):
     """Estimate one pair; a bad pair is reported, not raised (a survey goes on)."""
     try:
@@ -85,7 +124,8 @@ def _one_pair(pair, spec, sources, seed):
                       verdict=result.verdict, clear=clear), result.draws
 
 
-def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=None):
+def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=None,
+           workers=None):
     """Lags of many marker pairs and their combination.
 
     Parameters
@@ -93,14 +133,17 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
     spec : SurveySpec, dict or path of a JSON file
         Pairs, or an event table with marker templates (see :class:`align.schema.SurveySpec`).
     scheduler : str, optional
-        Address of a ``dask.distributed`` scheduler; default: dask's local threaded scheduler
-        (the heavy parts release the GIL).
+        Address of a ``dask.distributed`` scheduler (its client is kept and reused by later
+        surveys); default: worker processes on this machine.
     progress : align.progress.Progress, optional
         Reports finished pairs with an estimate of the time left.
     sources : align.lag.Sources, optional
         Where records and ties come from (default: paths beside the spec file).
     age_reference : {"b2k", "BP"}, optional
         Reference of the windows and results; overrides the spec's.
+    workers : int, optional
+        Worker processes on this machine (default: one per core, at most one per pair;
+        ``1``: in this process, as inside a daemon process such as a service worker).
 
     Returns
     -------
@@ -111,7 +154,9 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
     Notes
     -----
     Each pair has its own seed, spawned from the survey's, so the result does not depend on
-    the scheduler or the order in which pairs finish.
+    the scheduler, the number of workers or the order in which pairs finish. BLAS libraries
+    are held to one thread per process while pairs run: their products are small, and with a
+    process per core more threads only compete for the same cores.
     """
     spec = survey_spec(spec)
     if age_reference is not None:
@@ -120,7 +165,7 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
     sources = sources or Sources()
     pairs = spec.pairs or table_pairs(spec, sources)
     seeds = [int(s.generate_state(1)[0]) for s in np.random.SeedSequence(seed).spawn(len(pairs))]
-    outcomes = _run(pairs, spec, sources, seeds, scheduler, progress)
+    outcomes = _run(pairs, spec, sources, seeds, scheduler, progress, workers)
     rows = [row for row, _ in outcomes]
     draws = [(row, d) for row, d in outcomes if d is not None and row.clear]
     combined, heterogeneity, statement = _combine(draws, np.random.default_rng(seed))
@@ -144,26 +189,102 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
                               seed=seed))
 
 
-def _run(pairs, spec, sources, seeds, scheduler, progress):
-    import dask
-
+def _run(pairs, spec, sources, seeds, scheduler, progress, workers):
+    """Per pair (in order): ``(SurveyPair, draws or None)``."""
+    workers = worker_count(workers, len(pairs))
     if progress is not None:
         progress.begin(len(pairs))
-    tasks = [dask.delayed(_counted, pure=True)(pair, spec, sources, s, progress)
-             for pair, s in zip(pairs, seeds)]
     if scheduler is not None:
-        from distributed import Client
+        return _on_cluster(pairs, spec, sources, seeds, scheduler, progress)
+    if workers == 1:
+        with _one_blas_thread():
+            local = SurveySources(sources)
+            return [_counted(_one_pair(pair, spec, local, seed), progress)
+                    for pair, seed in zip(pairs, seeds)]
+    token = uuid.uuid4().hex
+    body = spec.model_dump()  # plain data: marker specs are classes made at run time
+    jobs = [_pool(workers).submit(_pair_in_worker, token, pair.model_dump(), body, sources,
+                                  seed)
+            for pair, seed in zip(pairs, seeds)]
+    if progress is not None:
+        for job in jobs:
+            job.add_done_callback(lambda _: progress.step())
+    return [job.result() for job in jobs]
 
-        with Client(scheduler) as client:
-            return list(client.gather(client.compute(tasks)))
-    return list(dask.compute(*tasks, scheduler="threads"))
 
-
-def _counted(pair, spec, sources, seed, progress):
-    outcome = _one_pair(pair, spec, sources, seed)
+def _counted(outcome, progress):
     if progress is not None:
         progress.step()
     return outcome
+
+
+def worker_count(workers, pairs):
+    """Worker processes for ``pairs`` pairs: ``workers``, or one per core; one inside a daemon
+    process (which may not start processes) or for a single pair."""
+    if workers is not None and int(workers) < 1:
+        raise InputError("workers must be at least 1", field="workers")
+    if multiprocessing.current_process().daemon:
+        return 1
+    return max(1, min(int(workers or os.cpu_count() or 1), pairs))
+
+
+def _one_blas_thread():
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+#: A worker process keeps the sources of the survey (token) it last served.
+_WORKER = {}
+
+
+@lru_cache(maxsize=2)
+def _pool(workers):
+    """Worker processes kept for later surveys: started from a server process that has
+    imported corealign once (no per-worker import of numba and xarray, no fork of this
+    process's threads)."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    context = multiprocessing.get_context("forkserver")
+    context.set_forkserver_preload(["align.survey", "align.lag", "align._kernels"])
+    return ProcessPoolExecutor(max_workers=workers, mp_context=context,
+                               initializer=_start_worker)
+
+
+def _start_worker():
+    """One thread per worker process for BLAS and for the compiled kernels' pool."""
+    import align._threads
+
+    align._threads.THREADS = 1
+    _WORKER["blas"] = _one_blas_thread()
+
+
+def _pair_in_worker(token, pair, spec, sources, seed):
+    pair, spec = validate_as(PairSpec, pair), validate_as(SurveySpec, spec)
+    if _WORKER.get("token") != token:
+        _WORKER.update(token=token, sources=SurveySources(sources))
+    return _one_pair(pair, spec, _WORKER["sources"], seed)
+
+
+@lru_cache(maxsize=4)
+def cluster_client(address):
+    """The ``dask.distributed`` client of a scheduler, connected once and reused."""
+    from distributed import Client
+
+    return Client(address, set_as_default=False)
+
+
+def _on_cluster(pairs, spec, sources, seeds, address, progress):
+    import dask
+
+    client = cluster_client(address)
+    token = uuid.uuid4().hex
+    body = spec.model_dump()
+    tasks = [dask.delayed(_pair_in_worker, pure=True)(token, pair.model_dump(), body, sources,
+                                                      s)
+             for pair, s in zip(pairs, seeds)]
+    return [_counted(outcome, progress)
+            for outcome in client.gather(client.compute(tasks))]
 
 
 def _combine(draws, rng, samples=20_000):

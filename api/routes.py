@@ -18,7 +18,7 @@ from align.ties import read_ties
 from api import tasks
 from api.compute import ComputationTimeout, run
 from api.problems import Problem
-from api.spec import endpoint, openapi_document
+from api.spec import endpoint, openapi_text
 
 meta = Blueprint("meta", __name__)
 records = Blueprint("records", __name__)
@@ -92,7 +92,7 @@ def health():
 @endpoint(meta, "/openapi.json", "GET", summary="This API's OpenAPI document",
           produces=("application/json",))
 def openapi():
-    return answer(openapi_document(version()))
+    return answer(openapi_text(version()))
 
 
 # --------------------------------------------------------------------------------------------

@@ -10,7 +10,7 @@ from __future__ import annotations
 import hmac
 import re
 from dataclasses import dataclass, field
-from functools import wraps
+from functools import lru_cache, wraps
 
 from flask import current_app, request
 
@@ -97,7 +97,25 @@ def check_token():
 
 
 def openapi_document(version):
-    """The OpenAPI 3.1 document of every registered route."""
+    """The OpenAPI 3.1 document of every registered route, built once per version and set of
+    routes (the same object is returned after: callers must not change it)."""
+    return _openapi_document(version, len(ROUTES))
+
+
+def openapi_text(version):
+    """:func:`openapi_document` as JSON text, serialised once (what ``/openapi.json`` sends)."""
+    return _openapi_text(version, len(ROUTES))
+
+
+@lru_cache(maxsize=4)
+def _openapi_text(version, _routes):
+    import json
+
+    return json.dumps(openapi_document(version))
+
+
+@lru_cache(maxsize=4)
+def _openapi_document(version, _routes):
     models = {r.body for r in ROUTES if r.body} | {r.response for r in ROUTES if r.response}
     schemas = json_schemas(sorted(models | {ProblemModel}, key=lambda m: m.__name__))
     paths = {}

@@ -3,7 +3,8 @@
 import numpy as np
 import pytest
 
-from align._kernels import ar1_series, interp_sorted, place_between_ties
+from align._kernels import (ar1_series, interp_sorted, overlap_cells, place_between_ties,
+                            regular_cells)
 from align.ties import bridge_variance, tie_variance
 
 
@@ -101,28 +102,122 @@ def test_exhaustive_ramp_search_finds_the_brute_force_optimum():
         assert out[r, 4] == pytest.approx(ssr[best], rel=1e-9, abs=1e-9)
 
 
-def test_overlap_sums_equal_the_overlap_matrix():
-    """The one-pass merge equals the plain formula: overlap(sample i, cell j) =
-    max(0, min(hi_i, e_j+1) - max(lo_i, e_j)), summed with numpy."""
-    from align._kernels import overlap_sums
-
-    rng = np.random.default_rng(6)
-    widths = rng.uniform(0.2, 3.0, 300)
-    gaps = np.where(rng.random(300) < 0.1, rng.uniform(0, 2, 300), 0.0)
-    lo = np.cumsum(widths + gaps) - widths
-    hi = lo + widths
-    values = rng.normal(size=(300, 2))
-    values[rng.random((300, 2)) < 0.1] = np.nan
-    edges = np.arange(-5.0, hi[-1] + 7.0, 1.7)
-    integral, covered, count, width_sum, width_count, ordered = overlap_sums(lo, hi, values,
-                                                                             edges)
+def overlap_matrix_means(lo, hi, values, edges):
+    """The overlap-weighted cell means written as plain numpy: a dense (sample, cell) matrix
+    of overlaps."""
     overlap = np.clip(np.minimum(hi[:, None], edges[None, 1:])
                       - np.maximum(lo[:, None], edges[None, :-1]), 0.0, None)
-    touches = overlap > 0
     valid = np.isfinite(values)
+    covered = overlap[valid].sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = (values[valid, None] * overlap[valid]).sum(axis=0) / covered
+        touching = overlap > 0
+        native = ((hi - lo)[:, None] * touching).sum(axis=0) / touching.sum(axis=0)
+    return mean, covered / np.diff(edges), (touching & valid[:, None]).sum(axis=0), native
+
+
+def merge_by_samples(lo, hi, values, edges):
+    """The sample-by-sample merge that ``overlap_cells`` replaced (corealign before the fine-
+    grid rework), transcribed to plain Python with its numpy post-processing."""
+    m = edges.size - 1
+    integral, covered, count = np.zeros(m), np.zeros(m), np.zeros(m, dtype=np.int64)
+    width_sum, width_count = np.zeros(m), np.zeros(m, dtype=np.int64)
+
+    def add(cell, overlap, width, v):
+        width_sum[cell] += width
+        width_count[cell] += 1
+        if v == v:
+            integral[cell] += v * overlap
+            covered[cell] += overlap
+            count[cell] += 1
+
+    c = 0
+    for a, b, v in zip(lo, hi, values):
+        while c < m and edges[c + 1] <= a:
+            c += 1
+        if c == m:
+            break
+        if edges[c] <= a and b <= edges[c + 1]:
+            add(c, b - a, b - a, v)
+            continue
+        j = c
+        while j < m and edges[j] < b:
+            overlap = min(b, edges[j + 1]) - max(a, edges[j])
+            if overlap > 0.0:
+                add(j, overlap, b - a, v)
+            j += 1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = integral / covered
+        native = width_sum / width_count
+    mean[covered == 0] = np.nan
+    return mean, covered / np.diff(edges), count, native
+
+
+def irregular_intervals(rng, n):
+    widths = rng.uniform(0.2, 3.0, n)
+    widths[rng.random(n) < 0.02] = 0.0  # a few zero-width samples
+    spaces = np.where(rng.random(n) < 0.1, rng.uniform(0, 2, n), 0.0)
+    lo = 1000.0 + np.cumsum(widths + spaces) - widths
+    values = np.where(rng.random(n) < 0.05, np.nan, rng.normal(size=n))
+    return lo, lo + widths, values
+
+
+def run_overlap_cells(lo, hi, values, edges, min_coverage=0.0):
+    m = edges.size - 1
+    mean, coverage, native = np.empty(m), np.empty(m), np.empty(m)
+    count = np.empty(m, dtype=np.int32)
+    cells = np.lib.stride_tricks.sliding_window_view(edges, 2)
+    ordered = overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native)
+    return ordered, mean, coverage, count, native
+
+
+@pytest.mark.parametrize("step", [0.07, 0.5, 1.6, 2.0, 13.0])
+def test_overlap_cells_equals_the_overlap_matrix(step):
+    rng = np.random.default_rng(4)
+    lo, hi, values = irregular_intervals(rng, 600)
+    edges = 995.0 + step * np.arange(int((hi[-1] + 10 - 995.0) / step))
+    ordered, mean, coverage, count, native = run_overlap_cells(lo, hi, values, edges)
     assert ordered
-    np.testing.assert_allclose(integral, overlap.T @ np.where(valid, values, 0.0), atol=1e-9)
-    np.testing.assert_allclose(covered, overlap.T @ valid, atol=1e-9)
-    np.testing.assert_array_equal(count, touches.T.astype(int) @ valid)
-    np.testing.assert_allclose(width_sum, touches.T @ (hi - lo), atol=1e-9)
-    np.testing.assert_array_equal(width_count, touches.sum(axis=0))
+    e_mean, e_coverage, e_count, e_native = overlap_matrix_means(lo, hi, values, edges)
+    np.testing.assert_allclose(mean, e_mean, rtol=1e-10, equal_nan=True)
+    np.testing.assert_allclose(coverage, e_coverage, rtol=1e-10, atol=1e-12)
+    positive = hi > lo  # the matrix cannot see zero-width samples: compare where none lies
+    inside = np.zeros(edges.size - 1, bool)
+    cell = np.searchsorted(edges, lo[~positive], side="right") - 1
+    inside[cell[(cell >= 0) & (cell < inside.size)]] = True
+    np.testing.assert_array_equal(count[~inside], e_count[~inside])
+    np.testing.assert_allclose(native[~inside], e_native[~inside], rtol=1e-12, equal_nan=True)
+
+
+@pytest.mark.parametrize("step", [0.05, 0.3, 1.0, 1.6, 7.3])
+def test_overlap_cells_is_identical_to_the_sample_merge_it_replaced(step):
+    rng = np.random.default_rng(5)
+    lo, hi, values = irregular_intervals(rng, 2000)
+    # an edge on a sample bound, with a zero-width sample there
+    hi[100] = lo[100]
+    edges = lo[100] + step * np.arange(-int((lo[100] - 990.0) / step),
+                                       int((hi[-1] - lo[100]) / step))
+    ordered, mean, coverage, count, native = run_overlap_cells(lo, hi, values, edges)
+    assert ordered
+    old = merge_by_samples(lo, hi, values, edges)
+    for new, before in zip((mean, coverage, count, native), old):
+        np.testing.assert_array_equal(new, before)
+    # min_coverage is applied in the same pass
+    strict = run_overlap_cells(lo, hi, values, edges, 0.7)[1]
+    np.testing.assert_array_equal(strict, np.where(coverage >= 0.7, mean, np.nan))
+
+
+def test_overlap_cells_reports_disorder():
+    lo = np.array([0.0, 1.0, 1.5, 3.0])
+    hi = np.array([1.0, 2.0, 2.5, 4.0])  # the third sample overlaps the second
+    assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+    assert run_overlap_cells(lo[[0, 1, 3]], hi[[0, 1, 3]], np.ones(3), np.arange(0.0, 5.0))[0]
+
+
+@pytest.mark.parametrize("start, step, m", [(1000.0, 0.1, 12345), (-7.3, 2.5e-3, 1000),
+                                            (11_700.0, 1.0 / 3.0, 999)])
+def test_regular_cells_equal_the_numpy_edges(start, step, m):
+    edges = start + step * np.arange(m + 1)
+    bounds, centre = regular_cells(start, step, m)
+    np.testing.assert_array_equal(bounds, np.column_stack([edges[:-1], edges[1:]]))
+    np.testing.assert_array_equal(centre, 0.5 * (edges[1:] + edges[:-1]))

@@ -163,3 +163,25 @@ def test_cli_resample_and_align_pass_the_cf_checker(tmp_path):
     refused = run_cli("align", RECORDS / "hvd1_ice.nc", RECORDS / "trv3_lake.nc", "-o",
                       tmp_path / "no.nc")
     assert refused.returncode == 2 and "different timescales" in refused.stderr
+
+
+def test_blocks_of_cells_on_threads_give_the_same_grid(monkeypatch):
+    import importlib
+
+    module = importlib.import_module("align.resample")
+    threads = importlib.import_module("align._threads")
+    rng = np.random.default_rng(7)
+    lo, hi = random_intervals(rng, 3000)
+    values = np.where(rng.random(3000) < 0.05, np.nan, rng.normal(size=3000))
+    edges = np.arange(995.0, hi[-1] + 5, 0.37)
+    whole = overlap_mean(lo, hi, values, edges)
+    monkeypatch.setattr(module, "CELLS_PER_THREAD", 100)
+    monkeypatch.setattr(threads, "THREADS", 4)
+    assert len(threads.blocks(edges.size - 1, 100)) == 5
+    for split, one in zip(overlap_mean(lo, hi, values, edges), whole):
+        np.testing.assert_array_equal(split, one)
+    # disorder is found wherever it lies, also where a block starts
+    cell = np.searchsorted(lo, edges[(edges.size - 1) // 2]) + 1
+    lo[cell] = hi[cell - 1] - 0.1
+    with pytest.raises(InputError, match="overlap"):
+        overlap_mean(lo, hi, values, edges)

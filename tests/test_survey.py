@@ -57,3 +57,48 @@ def test_cli_survey_on_the_demo():
     assert [p["label"] for p in result["pairs"]] == ["X1 cooling", "X2 warming"]
     lo, hi = result["combined"]["ci95"]
     assert lo <= 0 <= hi  # in truth ice and lake change together (records/README.md)
+
+
+def test_worker_processes_give_the_serial_answer(greenland):
+    spec = greenland_spec(greenland, rows=["Holocene", "GI-1e", "GI-4"], draws=2000)
+    serial = survey(spec, workers=1)
+    parallel = survey(spec, workers=2)
+    strip = lambda r: {k: v for k, v in r.to_dict().items() if k != "provenance"}  # noqa: E731
+    assert strip(serial) == strip(parallel)
+
+
+def test_records_ties_and_transfers_are_made_once_per_survey(monkeypatch):
+    from align import lag as lagmod
+    from align.requests import read_survey
+
+    calls = {"record": 0, "ties": 0, "transfer": 0}
+
+    class Counting(lagmod.Sources):
+        def record(self, spec):
+            calls["record"] += 1
+            return super().record(spec)
+
+        def ties(self, name):
+            calls["ties"] += 1
+            return super().ties(name)
+
+        def transfer(self, *args, **kwargs):
+            calls["transfer"] += 1
+            return super().transfer(*args, **kwargs)
+
+    spec = read_survey(RECORDS / "demo_survey.json").model_copy(update={"draws": 2000})
+    result = survey(spec, sources=Counting(), workers=1)
+    assert len(result.pairs) == 2
+    # two records, one tie table, one transfer, for two pairs (before: 4, 2 and 2)
+    assert calls == {"record": 2, "ties": 1, "transfer": 1}
+
+
+def test_worker_count():
+    from align.errors import InputError
+    from align.survey import worker_count
+
+    assert worker_count(None, 1) == 1
+    assert worker_count(3, 2) == 2
+    assert worker_count(1, 100) == 1
+    with pytest.raises(InputError, match="workers"):
+        worker_count(0, 5)

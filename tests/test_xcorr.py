@@ -112,3 +112,46 @@ def test_cli_xcorr_json():
                 "age_reference", "provenance"):
         assert key in out
     assert len(out["curve"]["lags"]) == len(out["curve"]["r"])
+
+
+@pytest.mark.parametrize("n, k", [(64, 63), (257, 40), (1000, 999)])
+def test_batched_ccf_equals_the_direct_sum_at_every_lag_range(n, k):
+    # the direct formula (numpy.correlate of standardised series over the N_k pairs) for a
+    # batch, up to the longest lag range, where the wrap correction is largest
+    rng = np.random.default_rng(n)
+    a = rng.standard_normal((3, n))
+    b = rng.standard_normal((3, n))
+    r, _ = ccf(a, b, k)
+    for row in range(3):
+        za = (a[row] - a[row].mean()) / a[row].std()
+        zb = (b[row] - b[row].mean()) / b[row].std()
+        full = np.correlate(za, zb, mode="full")  # index n - 1 + lag: sum_i za[i + lag] zb[i]
+        lags = np.arange(-k, k + 1)
+        np.testing.assert_allclose(r[row], full[n - 1 + lags] / (n - np.abs(lags)),
+                                   rtol=1e-9, atol=1e-12)
+
+
+def test_block_bootstrap_equals_gathering_each_replicates_blocks():
+    # the replicate loop that the count x block-sum product replaced: the same blocks (same
+    # seed), gathered and summed one replicate at a time
+    from align.xcorr import block_bootstrap_peaks, lagged_products, refine_peak
+
+    rng = np.random.default_rng(11)
+    xa = ar1(rng, 3000, 0.6)
+    xb = np.roll(xa, 4) + 0.8 * rng.standard_normal(3000)
+    xb[100:130] = np.nan
+    k, block, replicates = 25, 17.3, 200
+    lags = np.arange(-k, k + 1) * 2.0
+    numerator, denominator = lagged_products(xa, xb, k)
+    peaks = block_bootstrap_peaks(numerator, denominator, lags, block, replicates,
+                                  np.random.default_rng(5))
+    b = int(np.ceil(block))
+    picks = np.random.default_rng(5).integers(0, 3000 - b + 1, (replicates, int(np.ceil(3000 / b))))
+    expected = []
+    for row in picks:
+        idx = (row[:, None] + np.arange(b)).ravel()
+        curve = numerator[:, idx].sum(axis=1) / denominator[:, idx].sum(axis=1)
+        expected.append(refine_peak(lags, curve)[0])
+    np.testing.assert_allclose(peaks, expected, rtol=1e-9)
+    # b_i = a_{i-4}: r(k) = sum a_i b_{i-k} peaks at k = -4 steps of 2
+    assert np.median(peaks) == pytest.approx(-8.0, abs=2.0)

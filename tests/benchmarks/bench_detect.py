@@ -14,7 +14,7 @@ import warnings
 import numpy as np
 from scipy.optimize import curve_fit
 
-from _timing import best_time, report
+from _timing import machine, report_paired
 from align import detect_onset
 from align.noise import simulate_ar1
 from align.ramp import ramp
@@ -31,7 +31,6 @@ def main():
     record = build_record(age=age, age_bounds=np.column_stack([edges[:-1], edges[1:]]),
                           age_reference="b2k", proxies={"x": (truth + noise, {})})
     window = [float(edges[0]), float(edges[-1])]
-    ours = best_time(lambda: detect_onset(record, "x", window, draws=2000, seed=1), repeat=3)
 
     t = -age[::-1]
     replicates = ramp(t, -11_050.0, -10_990.0, 0.0, 3.0) + simulate_ar1(t, 8.0, 1.0, 2000, rng)
@@ -46,9 +45,10 @@ def main():
                 except RuntimeError:
                     pass
 
-    baseline = best_time(by_hand, repeat=1)
-    report("curve_fit per replicate vs detect_onset (speed-up)", baseline, ours, limit=20.0,
-           better="higher")
+    print(machine())
+    report_paired("detect_onset vs curve_fit per replicate (speed-up)",
+                  lambda: detect_onset(record, "x", window, draws=2000, seed=1), by_hand,
+                  limit=20.0, better="higher", rounds=3)
 
 
 if __name__ == "__main__":

@@ -20,13 +20,14 @@ import requests
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from _timing import best_time, report  # noqa: E402
+from _timing import machine, report_paired  # noqa: E402
 from align.lag import estimate_lag  # noqa: E402
 from conftest import RECORDS, Server  # noqa: E402
 
 
 def main():
     warnings.simplefilter("ignore")
+    print(machine())
     server = Server(tempfile.mkdtemp(), "--workers", "1")
     try:
         ids = {}
@@ -50,14 +51,13 @@ def main():
                       "b": {**request["b"], "record": ids[request["b"]["record"]]}}
             if request.get("ties"):
                 served["ties"] = ids[request["ties"]]
-            in_process = best_time(lambda local=local: estimate_lag(local), 5)
             with requests.Session() as session:  # a client that keeps its connection
                 def post(served=served, session=session):
                     session.post(server.url + "/lag", json=served,
                                  timeout=120).raise_for_status()
 
-                over_http = best_time(post, 5)
-            report(f"service vs in-process, {label}", over_http, in_process, limit=1.3)
+                report_paired(f"service vs in-process, {label}", post,
+                              lambda local=local: estimate_lag(local), limit=1.3, rounds=5)
     finally:
         server.stop()
 

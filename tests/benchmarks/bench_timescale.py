@@ -14,7 +14,7 @@ import warnings
 
 import numpy as np
 
-from _timing import best_time, peak_rss_mb, report
+from _timing import machine, peak_rss_mb, report_paired
 from align.record import build_record
 from align.ties import TieTable, transfer
 
@@ -41,10 +41,8 @@ def transfer_case(n=1_000_000, n_ties=1000):
             warnings.simplefilter("ignore")
             transfer(record, ties, reference, bridge_rate=5.0)
 
-    ours_t = best_time(ours, repeat=3)
-    base_t = best_time(lambda: np.interp(every_depth, tie_depth, tie_age), repeat=5)
-    report("transfer 1e6 samples through 1000 ties vs one numpy.interp", ours_t, base_t,
-           limit=3.0)
+    report_paired("transfer 1e6 samples through 1000 ties vs one numpy.interp", ours,
+                  lambda: np.interp(every_depth, tie_depth, tie_age), limit=3.0, rounds=7)
 
 
 ENSEMBLE = """
@@ -76,5 +74,6 @@ def ensemble_case():
 
 
 if __name__ == "__main__":
+    print(machine())
     transfer_case()
     ensemble_case()
