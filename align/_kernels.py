@@ -150,9 +150,10 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     -----
     Cell by cell: the samples from a pointer on that start before the cell's end are summed
     into local accumulators, the pointer moves to the last of them if it reaches into the
-    next cell (past them otherwise), and each output is written once, so the cost is ``O(n + m)`` with no zero-filled scratch arrays and
-    no second pass. A sample is counted in a cell when it overlaps it by a positive length;
-    a zero-width sample counts in the cell ``[left, right)`` holding it.
+    next cell (past them otherwise), and each output is written once, so the cost is
+    ``O(n + m)`` with no zero-filled scratch arrays and no second pass. A sample is counted in
+    a cell when it overlaps it by a positive length; a zero-width sample counts in the cell
+    ``[left, right)`` holding it.
     """
     n, m = lo.size, cells.shape[0]
     ordered = True

@@ -73,7 +73,8 @@ def case(record, cells, rounds):
     print(f"peak memory, {label}: +{extra:.0f} MB while resampling, inputs {input_mb:.0f} MB, "
           f"output {output_mb:.0f} MB -> inputs + extra = "
           f"{(input_mb + extra) / (3 * input_mb + output_mb):.2f}x (3 x inputs + output) "
-          f"(requirement: <= 1) {'ok' if input_mb + extra <= 3 * input_mb + output_mb else 'NOT MET'}",
+          f"(requirement: <= 1) "
+          f"{'ok' if input_mb + extra <= 3 * input_mb + output_mb else 'NOT MET'}",
           flush=True)
 
 
