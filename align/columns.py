@@ -100,7 +100,7 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
     notes = []
     numeric = {}
     for col in [*roles.values(), *proxies]:
-        values = _numeric_column(frame[col], col, name, locate, texts, mapping.get("decimal"))
+        values = numeric_column(frame[col], col, name, locate, texts, mapping.get("decimal"))
         values, count = mask_codes(values, numbers)
         if count:
             notes.append(f"{count} missing-value code(s) in {columns[col].header!r} read as "
@@ -271,7 +271,7 @@ def _proxy_columns(columns, roles, mapping, name):
     return [c for c in columns if c not in taken]
 
 
-def _numeric_column(series, col, name, locate, texts=(), decimal=None):
+def numeric_column(series, col, name, locate, texts=(), decimal=None):
     """Parse one column; empty cells and text codes are NaN, anything else non-numeric fails."""
     if series.dtype.kind in "fiu":
         values = series.to_numpy(dtype=float)

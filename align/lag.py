@@ -240,12 +240,13 @@ def _absolute(record, age, label, sign, n, rng):
 def _tie_parts(moved, age_b, n, rng):
     """Tie and bridge errors of the transferred record at b's position (subtracted)."""
     attrs = moved.attrs
-    tie_depth, tie_age, tie_sd = (np.atleast_1d(np.asarray(attrs[k], dtype=float))
-                                  for k in ("tie_depth", "tie_age", "tie_sd"))
+    tie_age, tie_sd = (np.atleast_1d(np.asarray(attrs[k], dtype=float))
+                       for k in ("tie_age", "tie_sd"))
     rate = float(attrs["bridge_rate"])
-    depth = float(np.interp(age_b, moved["age"].values, moved["depth"].values))
-    k = int(np.clip(np.searchsorted(tie_depth, depth, side="right") - 1, 0, tie_depth.size - 2))
-    w = float(np.clip((depth - tie_depth[k]) / (tie_depth[k + 1] - tie_depth[k]), 0.0, 1.0))
+    # the tie weights by where b sits between its two ties on the transferred (increasing)
+    # timescale: the same fraction as in depth (or own age) for the linear transfer
+    k = int(np.clip(np.searchsorted(tie_age, age_b, side="right") - 1, 0, tie_age.size - 2))
+    w = float(np.clip((age_b - tie_age[k]) / (tie_age[k + 1] - tie_age[k]), 0.0, 1.0))
     tie = (1 - w) * rng.normal(0, tie_sd[k], n) + w * rng.normal(0, tie_sd[k + 1], n)
     x1, x2 = tie_age[k], tie_age[k + 1]
     inside = bridge_variance(min(max(age_b, x1), x2), x1, x2, rate)

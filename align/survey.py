@@ -26,7 +26,6 @@ from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 from scipy.stats import chi2
 
 from align.ages import convert_age
@@ -50,12 +49,15 @@ def survey_spec(spec):
 
 def table_pairs(spec, sources):
     """One :class:`PairSpec` per row of the event table."""
+    from align.columns import numeric_column
+    from align.tables import read_table
+
     table = spec.table
     path = sources.path(table.path)
-    try:
-        frame = pd.read_csv(path, sep=None, engine="python", comment="#")
-    except (OSError, pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the event table ({exc})", source=str(path)) from None
+    if not Path(path).exists():
+        raise InputError("no such event table", source=str(path), status=404)
+    read = read_table(path)
+    frame = read.frame
     for col in (table.label_column, table.age_column):
         if col not in frame.columns:
             raise InputError("no such column in the event table", source=str(path), field=col)
@@ -64,10 +66,17 @@ def table_pairs(spec, sources):
         if missing:
             raise InputError(f"no row labelled {missing[0]!r}", source=str(path),
                              field=table.label_column)
-        frame = frame[frame[table.label_column].astype(str).isin(table.rows)]
+    ages = numeric_column(frame[table.age_column], table.age_column, str(path), read.locate)
+    keep = (frame[table.label_column].astype(str).isin(table.rows).to_numpy() if table.rows
+            else np.ones(len(frame), dtype=bool))
+    blank = keep & ~np.isfinite(ages)
+    if blank.any():
+        kind, row = read.locate(int(np.argmax(blank)))
+        raise InputError("an event without an age", source=str(path), field=table.age_column,
+                         row=row, row_kind=kind)
     pairs = []
     before, after = table.window
-    for label, age in zip(frame[table.label_column].astype(str), frame[table.age_column]):
+    for label, age in zip(frame[table.label_column].astype(str)[keep], ages[keep]):
         centre = float(convert_age(float(age), table.age_reference, spec.age_reference))
         window = [centre + before, centre + after]
         pairs.append(PairSpec(label=label,

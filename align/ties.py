@@ -9,17 +9,15 @@ monotone interpolation, and its uncertainty is pinned at the ties and grows betw
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 from scipy.interpolate import PchipInterpolator
 from scipy.stats import chi2
 
 from align.choices import DEFAULT_TIE_INTERPOLATION, TieInterpolation, check_choice
 from align.errors import InputError
-from align.provenance import sha256_file
 from align.record import NV, SAMPLE, add_history, age_reference, age_sigma, record_name
 
 #: Floor (and fallback with only two ties) of the bridge rate: the bridge sd at the middle of
@@ -34,15 +32,20 @@ class TieWarning(UserWarning):
     """Samples lie beyond the outer ties and were left out (or extrapolated)."""
 
 
+#: Units of a tie's position in the moved record, by its kind.
+_POSITION_UNITS = {"depth": "m", "age": "yr"}
+
+
 @dataclass(frozen=True)
 class TieTable:
-    """Validated tie points, in increasing depth.
+    """Validated tie points, in increasing position.
 
     Attributes
     ----------
     labels : tuple of str
-    depth : numpy.ndarray
-        Depth in the record being moved (m).
+    position : numpy.ndarray
+        Where each tie sits in the record being moved: its depth (m), or, for a record that
+        has only ages, its age on that record's own timescale (yr, in its age reference).
     ref : numpy.ndarray
         Matching depth in the reference record (m) or age on its timescale (yr).
     ref_kind : {"depth", "age"}
@@ -50,15 +53,18 @@ class TieTable:
         1-sigma match uncertainty (yr).
     source, checksum : str
         The tie file and the SHA-256 of its bytes.
+    position_kind : {"depth", "age"}
+        The coordinate of ``position``.
     """
 
     labels: tuple
-    depth: np.ndarray
+    position: np.ndarray
     ref: np.ndarray
     ref_kind: str
     sd: np.ndarray
     source: str = ""
     checksum: str = ""
+    position_kind: str = "depth"
 
     def __len__(self):
         return len(self.labels)
@@ -70,11 +76,15 @@ def read_ties(path):
     Parameters
     ----------
     path : str or os.PathLike
-        CSV with header ``label,depth,ref_depth,sd`` or ``label,depth,ref_age,sd``: ``depth``
-        in the record being moved (m), ``ref_depth`` the matching depth in the reference
-        record (m) or ``ref_age`` an age on the reference timescale (yr, in the reference
-        record's age reference), ``sd`` the 1-sigma match uncertainty in years. Further
-        columns (a score, evidence) are allowed and ignored; ``#`` lines are comments.
+        A table (the dialects of :func:`align.tables.read_table`) with header
+        ``label,depth,ref_depth,sd`` or ``label,depth,ref_age,sd``: ``depth`` in the record
+        being moved (m), ``ref_depth`` the matching depth in the reference record (m) or
+        ``ref_age`` an age on the reference timescale (yr, in the reference record's age
+        reference), ``sd`` the 1-sigma match uncertainty in years. A record with ages only
+        is tied by ``age`` instead of ``depth`` (``label,age,ref_age,sd`` or
+        ``label,age,ref_depth,sd``): its own age at the tie, in its own age reference; the
+        bridge uncertainty then grows with the age distance between ties. Further columns (a
+        score, evidence) are allowed and ignored; ``#`` lines are comments.
 
     Returns
     -------
@@ -86,34 +96,37 @@ def read_ties(path):
         Fewer than two ties; ties not strictly increasing in both columns (crossing ties name
         the pair); duplicated labels; missing or non-numeric values; negative sd.
     """
+    from align.columns import numeric_column
+    from align.tables import read_table
+
     path = Path(path)
     if not path.exists():
         raise InputError("no such tie file", source=str(path), status=404)
-    try:
-        frame = pd.read_csv(path, comment="#", dtype={"label": str}, skipinitialspace=True)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"not a readable tie table: {exc}", source=str(path)) from exc
-    frame.columns = [str(c).strip() for c in frame.columns]
+    table = read_table(path)
+    frame = table.frame
     ref_cols = [c for c in ("ref_depth", "ref_age") if c in frame.columns]
-    missing = [c for c in ("label", "depth", "sd") if c not in frame.columns]
-    if missing or len(ref_cols) != 1:
-        raise InputError("the header must be label,depth,ref_depth,sd or label,depth,ref_age,sd"
-                         f" (found {','.join(frame.columns)})", source=str(path),
-                         field=missing[0] if missing else "ref_depth")
-    ref_col = ref_cols[0]
+    at_cols = [c for c in ("depth", "age") if c in frame.columns]
+    missing = [c for c in ("label", "sd") if c not in frame.columns]
+    if missing or len(ref_cols) != 1 or len(at_cols) != 1:
+        raise InputError("the header must be label,depth|age,ref_depth|ref_age,sd (found "
+                         f"{','.join(frame.columns)})", source=str(path),
+                         field=missing[0] if missing else "ref_depth" if len(ref_cols) != 1
+                         else "depth")
+    ref_col, at_col = ref_cols[0], at_cols[0]
     labels = frame["label"].astype(str).str.strip().tolist()
     columns = {}
-    for col in ("depth", ref_col, "sd"):
-        values = pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float)
+    for col in (at_col, ref_col, "sd"):
+        values = numeric_column(frame[col], col, str(path), table.locate)
         bad = ~np.isfinite(values)
         if bad.any():
             i = int(np.argmax(bad))
-            raise InputError(f"tie {labels[i]!r} has no valid {col} ({frame[col].iloc[i]!r})",
-                             source=str(path), field=col)
+            kind, row = table.locate(i)
+            raise InputError(f"tie {labels[i]!r} has no {col}", source=str(path), field=col,
+                             row=row, row_kind=kind)
         columns[col] = values
-    ties = TieTable(labels=tuple(labels), depth=columns["depth"], ref=columns[ref_col],
+    ties = TieTable(labels=tuple(labels), position=columns[at_col], ref=columns[ref_col],
                     ref_kind=ref_col.removeprefix("ref_"), sd=columns["sd"], source=str(path),
-                    checksum=sha256_file(path))
+                    checksum=table.checksum, position_kind=at_col)
     check_ties(ties)
     return ties
 
@@ -133,30 +146,31 @@ def check_ties(ties):
         i = int(np.argmax(ties.sd < 0))
         raise InputError(f"tie {ties.labels[i]!r} has a negative sd", source=source,
                          field="sd")
-    order = np.argsort(ties.depth, kind="stable")
-    depth, ref = ties.depth[order], ties.ref[order]
+    if ties.position_kind not in _POSITION_UNITS:
+        raise InputError("ties sit at a depth or an age", source=source, field="position")
+    order = np.argsort(ties.position, kind="stable")
+    at, ref = ties.position[order], ties.ref[order]
     labels = [ties.labels[i] for i in order]
-    ref_col = f"ref_{ties.ref_kind}"
-    for i in range(len(depth) - 1):
+    ref_col, kind = f"ref_{ties.ref_kind}", ties.position_kind
+    for i in range(len(at) - 1):
         a, b = labels[i], labels[i + 1]
-        if depth[i + 1] == depth[i]:
-            raise InputError(f"ties {a!r} and {b!r} are at the same depth {depth[i]:g}",
-                             source=source, field="depth")
+        if at[i + 1] == at[i]:
+            raise InputError(f"ties {a!r} and {b!r} are at the same {kind} {at[i]:g}",
+                             source=source, field=kind)
         if ref[i + 1] <= ref[i]:
-            raise InputError(f"ties {a!r} and {b!r} cross: depth increases ({depth[i]:g} to "
-                             f"{depth[i + 1]:g}) but {ref_col} does not ({ref[i]:g} to "
+            raise InputError(f"ties {a!r} and {b!r} cross: {kind} increases ({at[i]:g} to "
+                             f"{at[i + 1]:g}) but {ref_col} does not ({ref[i]:g} to "
                              f"{ref[i + 1]:g})", source=source, field=ref_col)
     if not np.array_equal(order, np.arange(len(order))):
-        return TieTable(labels=tuple(labels), depth=depth, ref=ref, ref_kind=ties.ref_kind,
-                        sd=ties.sd[order], source=ties.source, checksum=ties.checksum)
+        return replace(ties, labels=tuple(labels), position=at, ref=ref, sd=ties.sd[order])
     return ties
 
 
 def _check_range(ties, record, reference):
-    """Ties must lie inside the moved record's depth range and the reference's range."""
-    for name, values, rec in (("depth", ties.depth, record),
+    """Ties must lie inside the moved record's range and the reference's range."""
+    for name, values, rec in ((ties.position_kind, ties.position, record),
                               (f"ref_{ties.ref_kind}", ties.ref, reference)):
-        coord = "depth" if name != "ref_age" else "age"
+        coord = name.removeprefix("ref_")
         if coord not in rec.coords:
             raise InputError(f"the {'reference' if rec is reference else 'moved'} record has no "
                              f"{coord} to tie by {name}", source=ties.source or None, field=name)
@@ -217,15 +231,15 @@ def tie_variance(w, sd1, sd2):
     return (1.0 - w) ** 2 * sd1**2 + w**2 * sd2**2
 
 
-def default_bridge_rate(tie_ages, tie_depths, tie_sd):
+def default_bridge_rate(tie_ages, tie_positions, tie_sd):
     """Bridge rate (yr^2 per yr) estimated from how unevenly the ties divide time and depth.
 
     Parameters
     ----------
     tie_ages : numpy.ndarray
         Ages of the ties on the reference timescale (yr), increasing.
-    tie_depths : numpy.ndarray
-        Their depths in the moved record (m).
+    tie_positions : numpy.ndarray
+        Their positions in the moved record (depths in m, or its own ages in yr).
     tie_sd : numpy.ndarray
         Their 1-sigma match uncertainties (yr).
 
@@ -257,8 +271,8 @@ def default_bridge_rate(tie_ages, tie_depths, tie_sd):
     if k < 2:
         return floor, ("stated default: bridge sd at mid-interval = "
                        f"{FALLBACK_MIDPOINT_FRACTION:.0%} of the interval (two ties only)")
-    ratio = (tie_ages[-1] - tie_ages[0]) / (tie_depths[-1] - tie_depths[0])
-    dev = durations - ratio * np.diff(tie_depths)
+    ratio = (tie_ages[-1] - tie_ages[0]) / (tie_positions[-1] - tie_positions[0])
+    dev = durations - ratio * np.diff(tie_positions)
     excess = (dev**2 - tie_sd[:-1] ** 2 - tie_sd[1:] ** 2) / durations
     estimate = max(0.0, excess.sum()) / chi2.ppf(RATE_CONFIDENCE, k - 1)
     if estimate <= floor:
@@ -314,9 +328,12 @@ def transfer(record, ties, onto, *, method=DEFAULT_TIE_INTERPOLATION, extrapolat
     """
     ties = check_ties(ties) if isinstance(ties, TieTable) else read_ties(ties)
     check_choice(method, TieInterpolation, "method")
-    if "depth" not in record.coords:
-        raise InputError("the record to move has no depths; ties need depths",
-                         source=record.attrs.get("source"), field="depth")
+    at = ties.position_kind
+    if at not in record.coords:
+        raise InputError(f"the record to move has no {at}s; these ties sit at {at}s"
+                         + (" (tie a record with ages only by age: label,age,ref_age,sd)"
+                            if at == "depth" else ""),
+                         source=record.attrs.get("source"), field=at)
     if age_reference(onto) is None:
         raise InputError("the reference record has no timescale", source=onto.attrs.get("source"),
                          field="age")
@@ -325,13 +342,12 @@ def transfer(record, ties, onto, *, method=DEFAULT_TIE_INTERPOLATION, extrapolat
     _check_range(ties, record, onto)
     tie_ages = _tie_ages(ties, onto)
     if bridge_rate is None:
-        rate, how = default_bridge_rate(tie_ages, ties.depth, ties.sd)
+        rate, how = default_bridge_rate(tie_ages, ties.position, ties.sd)
     else:
         rate, how = float(bridge_rate), "set by the user"
     moved = record.isel({SAMPLE: _inside_ties(record, ties, extrapolate)})
-    depth = moved["depth"].values
-    ages, sds = _place_between_ties(depth, ties, tie_ages, method, rate, onto)
-    bounds = _map_bounds(moved["depth_bounds"].values, ties.depth, tie_ages, method)
+    ages, sds = _place_between_ties(moved[at].values, ties, tie_ages, method, rate, onto)
+    bounds = _map_bounds(moved[f"{at}_bounds"].values, ties.position, tie_ages, method)
     return _assemble(moved, onto, ties, tie_ages, ages, bounds, sds, method, rate, how)
 
 
@@ -352,25 +368,31 @@ def _edge_relation(record):
 
 
 def _inside_ties(record, ties, extrapolate):
-    """The samples to transfer: a slice (samples are in depth order, so this is a search)."""
-    b = record["depth_bounds"].values
-    first = int(np.searchsorted(b[:, 0], ties.depth[0], side="left"))
-    stop = int(np.searchsorted(b[:, 1], ties.depth[-1], side="right"))
-    outside = b.shape[0] - max(stop - first, 0)
+    """The samples to transfer: a slice (samples are in order, so this is a search)."""
+    first, stop = _between_outer_ties(record, ties)
+    outside = record.sizes[SAMPLE] - max(stop - first, 0)
     if outside:
         what = "extrapolated beyond" if extrapolate else "left out: they lie beyond"
         warnings.warn(f"{record_name(record)}: {outside} sample(s) {what} the outer ties "
-                      f"({ties.depth[0]:g} to {ties.depth[-1]:g} m)"
+                      f"({ties.position[0]:g} to {ties.position[-1]:g} "
+                      f"{_POSITION_UNITS[ties.position_kind]})"
                       + ("" if extrapolate else "; use extrapolate=True (--extrapolate) to keep "
                          "them"), TieWarning, stacklevel=3)
     if stop <= first and not extrapolate:
         raise InputError("no sample lies between the outer ties", source=ties.source or None,
-                         field="depth")
+                         field=ties.position_kind)
     return slice(None) if extrapolate else slice(first, stop)
 
 
-def _depth_to_age(x, tie_depth, tie_age, method):
-    """Monotone depth-to-age mapping through the ties, linear beyond the outer ties."""
+def _between_outer_ties(record, ties):
+    """First and stop index of the samples between the outer ties."""
+    b = record[f"{ties.position_kind}_bounds"].values
+    return (int(np.searchsorted(b[:, 0], ties.position[0], side="left")),
+            int(np.searchsorted(b[:, 1], ties.position[-1], side="right")))
+
+
+def _position_to_age(x, tie_depth, tie_age, method):
+    """Monotone position-to-age mapping through the ties, linear beyond the outer ties."""
     x = np.asarray(x, dtype=float)
     if method == "pchip":
         y = PchipInterpolator(tie_depth, tie_age, extrapolate=False)(
@@ -389,7 +411,7 @@ def _map_bounds(bounds, tie_depth, tie_age, method):
     """Map sample bounds (each column is increasing, so each is one merge pass)."""
     inside = tie_depth[0] <= bounds[0, 0] and bounds[-1, 1] <= tie_depth[-1]
     if method != "linear" or not inside:
-        return _depth_to_age(bounds, tie_depth, tie_age, method)
+        return _position_to_age(bounds, tie_depth, tie_age, method)
     from align._kernels import interp_sorted
 
     out = np.empty(bounds.shape)
@@ -398,10 +420,11 @@ def _map_bounds(bounds, tie_depth, tie_age, method):
     return out
 
 
-def _place_between_ties(depth, ties, tie_ages, method, rate, onto):
+def _place_between_ties(positions, ties, tie_ages, method, rate, onto):
     """Transferred ages and their uncertainty parts (yr): reference, tie, bridge, total.
 
-    Between ties ``k`` and ``k + 1`` (fraction ``w`` of the way in depth): the tie variance
+    Between ties ``k`` and ``k + 1`` (fraction ``w`` of the way in depth, or in the moved
+    record's own age for ties by age): the tie variance
     is :func:`tie_variance`, the bridge variance :func:`bridge_variance` at the transferred
     age; beyond the outer ties the bridge grows as a free random walk, ``rate |x - x_outer|``;
     the reference part is the reference's own sd at the transferred age. A compiled single
@@ -410,10 +433,10 @@ def _place_between_ties(depth, ties, tie_ages, method, rate, onto):
     from align._kernels import place_between_ties
 
     linear = method == "linear"
-    ages = (np.empty(depth.size) if linear
-            else _depth_to_age(depth, ties.depth, tie_ages, method))
-    var_tie, var_bridge = place_between_ties(np.ascontiguousarray(depth, dtype=float),
-                                             ties.depth, tie_ages, ties.sd**2, float(rate),
+    ages = (np.empty(positions.size) if linear
+            else _position_to_age(positions, ties.position, tie_ages, method))
+    var_tie, var_bridge = place_between_ties(np.ascontiguousarray(positions, dtype=float),
+                                             ties.position, tie_ages, ties.sd**2, float(rate),
                                              linear, ages)
     sd_ref = _reference_sd(onto, ages)
     total = np.square(sd_ref)
@@ -460,10 +483,8 @@ def _assemble(moved, onto, ties, tie_ages, ages, bounds, sds, method, rate, how)
                            ("bridge", sd_bridge, "between-tie (Brownian bridge)")):
         out[f"age_sd_{name}"] = (SAMPLE, sd, {
             "units": "yr", "long_name": f"1-sigma age uncertainty: {what} part"})
-    b = moved["depth_bounds"].values
-    first = int(np.searchsorted(b[:, 0], ties.depth[0], side="left"))
-    stop = int(np.searchsorted(b[:, 1], ties.depth[-1], side="right"))
-    flagged = np.ones(b.shape[0], np.int8)
+    first, stop = _between_outer_ties(moved, ties)
+    flagged = np.ones(moved.sizes[SAMPLE], np.int8)
     flagged[first:stop] = 0
     out["extrapolated"] = (SAMPLE, flagged, {
         "long_name": "age extrapolated beyond the outer tie points", "flag_values": [0, 1],
@@ -475,7 +496,8 @@ def _assemble(moved, onto, ties, tie_ages, ages, bounds, sds, method, rate, how)
         reference_checksum=str(onto.attrs.get("source_checksum", "")),
         reference_timescale_kind=str(onto.attrs.get("timescale_kind", "")),
         ties_source=ties.source, ties_checksum=ties.checksum, tie_labels="; ".join(ties.labels),
-        tie_depth=ties.depth, tie_age=tie_ages, tie_sd=ties.sd, transfer_method=method,
+        tie_position=ties.position, tie_position_kind=ties.position_kind, tie_age=tie_ages,
+        tie_sd=ties.sd, transfer_method=method,
         bridge_rate=rate, bridge_rate_choice=how)
     if "depth" in str(moved.attrs.get("bounds_derived", "")):
         out.attrs["bounds_derived"] = "depth"

@@ -28,7 +28,8 @@ def moved_record(edges):
     ("label,depth,ref_age,sd\nA,1.0,100,2\n", "at least two ties"),
     ("label,depth,ref_age,sd\nA,1.0,100,2\nB,2.0,90,2\n", "ties 'A' and 'B' cross"),
     ("label,depth,ref_age,sd\nA,1.0,100,2\nA,2.0,190,2\n", "duplicated tie label 'A'"),
-    ("label,depth,ref_age,sd\nA,1.0,100,2\nB,2.0,abc,2\n", "tie 'B' has no valid ref_age"),
+    ("label,depth,ref_age,sd\nA,1.0,100,2\nB,2.0,abc,2\n", "line 3.*not a number: 'abc'"),
+    ("label,depth,ref_age,sd\nA,1.0,100,2\nB,2.0,,2\n", "line 3.*tie 'B' has no ref_age"),
     ("label,depth,sd\nA,1.0,2\nB,2.0,2\n", "header must be"),
 ])
 def test_tie_table_errors_name_the_ties(tmp_path, text, fragment):
@@ -98,7 +99,7 @@ def test_transfer_keeps_own_timescale_and_provenance(tmp_path):
     ties = read_ties(RECORDS / "hvd1_trv3_ties.csv")
     ref_age = np.interp(ties.ref, np.sort(ice.depth_bounds.values.ravel()),
                         np.sort(ice.age_bounds.values.ravel()))
-    for depth, age in zip(ties.depth[1:-1], ref_age[1:-1]):
+    for depth, age in zip(ties.position[1:-1], ref_age[1:-1]):
         i = np.flatnonzero((out.depth_bounds.values[:, 0] <= depth)
                            & (out.depth_bounds.values[:, 1] >= depth))[0]
         lo, hi = out.age_bounds.values[i]
@@ -115,7 +116,7 @@ def test_extrapolation_is_flagged_and_widens(tmp_path):
     flagged = out.extrapolated.values == 1
     ties = read_ties(RECORDS / "hvd1_trv3_ties.csv")
     b = lake.depth_bounds.values
-    beyond = (b[:, 0] < ties.depth[0]) | (b[:, 1] > ties.depth[-1])
+    beyond = (b[:, 0] < ties.position[0]) | (b[:, 1] > ties.position[-1])
     assert flagged.sum() == beyond.sum() > 0
     bridge = out.age_sd_bridge.values
     top = np.flatnonzero(flagged & (out.depth.values < 4.0))
@@ -156,7 +157,7 @@ def test_coverage_on_synthetic_truth():
         from align.ties import TieTable
 
         ties = TieTable(labels=tuple(f"t{i}" for i in range(tie_edge.size)),
-                        depth=edges[tie_edge], ref=true_edge_age[tie_edge] + rng.normal(0, sd),
+                        position=edges[tie_edge], ref=true_edge_age[tie_edge] + rng.normal(0, sd),
                         ref_kind="age", sd=sd)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", TieWarning)
@@ -167,3 +168,60 @@ def test_coverage_on_synthetic_truth():
     coverage = inside / total
     print(f"transfer coverage of true ages by 95 % intervals: {coverage:.3f} ({total} samples)")
     assert 0.90 <= coverage <= 0.99
+
+
+def test_ties_by_age_move_an_age_only_record(tmp_path):
+    """A record with ages only (a published age-only download) is tied by its own ages: the
+    transferred ages pass through the ties, and the bridge variance is the Brownian bridge of
+    the reference-age distance to the ties, r (x - x1)(x2 - x) / (x2 - x1), written out here
+    independently; the same ties given by depth on a copy with depth = own age / 1000 give the
+    same record (the age position is the depth position in other units)."""
+    own = np.arange(1000.0, 3000.0, 5.0) + 2.5
+    record = build_record(age=own, age_reference="BP", proxies={"x": (np.zeros(own.size), {})},
+                          attrs={"core": "download"})
+    reference = exact_reference((900.0, 3500.0))
+    ties = read_ties(write(tmp_path, "label,age,ref_age,sd\nA,1000,1100,0\nB,1800,1950,0\n"
+                                     "C,3000,3300,0\n"))
+    assert ties.position_kind == "age"
+    rate = 4.0
+    out = transfer(record, ties, reference, bridge_rate=rate)
+    x = out.age.values
+    np.testing.assert_allclose(x, np.interp(own, [1000, 1800, 3000], [1100, 1950, 3300]),
+                               rtol=1e-12)
+    x1 = np.where(x <= 1950, 1100.0, 1950.0)
+    x2 = np.where(x <= 1950, 1950.0, 3300.0)
+    expected = rate * (x - x1) * (x2 - x) / (x2 - x1)
+    np.testing.assert_allclose(out.age_sd_bridge.values ** 2, expected, rtol=1e-9, atol=1e-9)
+    by_depth = build_record(depth=own / 1000.0, age=own, age_reference="BP",
+                            proxies={"x": (np.zeros(own.size), {})}, attrs={"core": "download"})
+    depth_ties = read_ties(write(tmp_path, "label,depth,ref_age,sd\nA,1.0,1100,0\n"
+                                           "B,1.8,1950,0\nC,3.0,3300,0\n", "d.csv"))
+    same = transfer(by_depth, depth_ties, reference, bridge_rate=rate)
+    np.testing.assert_allclose(same.age.values, x, rtol=1e-12)
+    np.testing.assert_allclose(same.age_sd.values, out.age_sd.values, rtol=1e-9, atol=1e-9)
+
+
+def test_published_age_only_table_moves_through_age_ties(tmp_path, ngrip_csv):
+    """The NGRIP decadal table (Erhardt et al. 2019; tests/data) has ages only. Tied by age
+    onto a b2k reference with ties at own age + 50 (the BP-to-b2k offset, exact), every
+    transferred age is its own age + 50 and the uncertainty is pinned at the ties."""
+    ngrip = open_record(ngrip_csv, age_column="Age_BP", age_reference="BP")
+    window = ngrip.isel(sample=slice(0, 300))
+    own = window.age.values
+    reference = exact_reference((own[0] - 20, own[-1] + 100))
+    bounds = window.age_bounds.values
+    knots = [bounds[0, 0], own[100], own[200], bounds[-1, 1]]
+    rows = "".join(f"t{i},{a:.1f},{a + 50:.1f},2\n" for i, a in enumerate(knots))
+    out = transfer(window, read_ties(write(tmp_path, "label,age,ref_age,sd\n" + rows)),
+                   reference)
+    np.testing.assert_allclose(out.age.values, own + 50.0, atol=1e-9)
+    assert out.sizes["sample"] == 300
+    at_inner_ties = out.age_sd.values[[100, 200]]
+    assert np.all(at_inner_ties <= 2.0 + 1e-9) and out.age_sd.values.max() > 2.5
+
+
+def test_a_depth_only_record_cannot_take_age_ties(tmp_path):
+    record = moved_record(np.linspace(0.0, 10.0, 101))
+    ties = read_ties(write(tmp_path, "label,age,ref_age,sd\nA,1,100,1\nB,2,200,1\n"))
+    with pytest.raises(InputError, match="no ages"):
+        transfer(record, ties, exact_reference((0.0, 500.0)))

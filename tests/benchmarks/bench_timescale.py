@@ -32,7 +32,7 @@ def transfer_case(n=1_000_000, n_ties=1000):
                              proxies={"y": (np.zeros(100_000), {})})
     tie_depth = np.linspace(edges[0], edges[-1], n_ties)
     tie_age = np.sort(rng.uniform(1e3, 1.9e5, n_ties))
-    ties = TieTable(labels=tuple(map(str, range(n_ties))), depth=tie_depth, ref=tie_age,
+    ties = TieTable(labels=tuple(map(str, range(n_ties))), position=tie_depth, ref=tie_age,
                     ref_kind="age", sd=np.full(n_ties, 3.0))
     every_depth = np.concatenate([record.depth.values, edges])
 
