@@ -65,6 +65,12 @@ def prepare_window(record, variable, window, reference):
     return record, [young, old]
 
 
+def variable_units(record, variable):
+    """The ``units`` and ``reference_scale`` of a variable, as marker fields."""
+    attrs = record[variable].attrs
+    return {"units": attrs.get("units"), "reference_scale": attrs.get("reference_scale")}
+
+
 def trace_list(values):
     """Floats as a list, None where missing (one vectorised conversion, no Python loop)."""
     values = np.asarray(values, dtype=float)

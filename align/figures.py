@@ -17,8 +17,14 @@ from contextlib import contextmanager
 
 import numpy as np
 
+from align.units import with_units
+
 COLOURS = {"a": "#1f5fa6", "b": "#d9730d", "lag": "#6a3d9a", "ink": "#333333",
            "band": "#bdbdbd", "light": "#e6e6e6"}
+#: One colour per kind of budget item (distinguishable with the common colour-vision
+#: deficiencies; a key names them in every budget figure).
+KIND_COLOURS = {"resolution": "#1f5fa6", "detection": "#d9730d", "timescale": "#6a3d9a",
+                "tie": "#2a9d8f", "bridge": "#8c6d31"}
 STYLE = {"font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
          "axes.titlesize": 10, "axes.titleweight": "bold", "svg.hashsalt": "corealign",
          "svg.fonttype": "path"}
@@ -64,29 +70,39 @@ def interval_span(ax, estimate, colour, label):
 
 def overview_figure(result):
     """Both records on the common timescale: samples as steps over their intervals, each
-    marker with its 95 % interval, and under each record its timescale sd as a band."""
-    with styled((7.5, 6.2), nrows=4, ncols=1, sharex=True,
-                gridspec_kw={"height_ratios": [3, 1, 3, 1]}) as (fig, axes):
-        for row, (side, excerpt, marker) in enumerate(
-                (("a", result.figures.records[0], result.a),
-                 ("b", result.figures.records[1], result.b))):
-            ax, band = axes[2 * row], axes[2 * row + 1]
+    marker with its 95 % interval, and under each record with a timescale error its sd as a
+    band (a record without one gets no empty panel)."""
+    sides = (("a", result.figures.records[0], result.a),
+             ("b", result.figures.records[1], result.b))
+    bands = [any(sd > 0 for sd in excerpt.timescale_sd) for _, excerpt, _ in sides]
+    ratios = [r for band in bands for r in ([3, 1] if band else [3])]
+    with styled((8.5, 1.2 * sum(ratios) / 2 + 1.4), nrows=len(ratios), ncols=1, sharex=True,
+                gridspec_kw={"height_ratios": ratios}) as (fig, axes):
+        panels = iter(axes)
+        for (side, excerpt, marker), band in zip(sides, bands):
+            ax = next(panels)
             colour = COLOURS[side]
             _steps(ax, excerpt.age_top, excerpt.age_bottom, excerpt.value, colour)
             interval_span(ax, marker.age, colour, f"{marker.kind} {side}")
-            unit = f" ({excerpt.units})" if excerpt.units else ""
-            ax.set_ylabel(f"{excerpt.variable}{unit}")
+            ax.set_ylabel(with_units(excerpt.variable, excerpt.units, excerpt.reference_scale))
             ax.set_title(f"{excerpt.label}: {marker.kind} in {excerpt.variable}", loc="left")
-            ax.legend(loc="best", frameon=False, fontsize=8)
-            mids = 0.5 * (np.asarray(excerpt.age_top) + np.asarray(excerpt.age_bottom))
-            band.fill_between(mids, 0, excerpt.timescale_sd, color=COLOURS["band"], lw=0,
-                              step="mid")
-            band.set_ylabel("timescale\nsd (yr)", fontsize=7)
-            band.set_ylim(bottom=0)
+            _legend_beside(ax)
+            if band:
+                sd_ax = next(panels)
+                mids = 0.5 * (np.asarray(excerpt.age_top) + np.asarray(excerpt.age_bottom))
+                sd_ax.fill_between(mids, 0, excerpt.timescale_sd, color=COLOURS["band"], lw=0,
+                                   step="mid")
+                sd_ax.set_ylabel("timescale\nsd (yr)", fontsize=7)
+                sd_ax.set_ylim(bottom=0)
         _age_axis(axes[-1], result.age_reference)
         fig.suptitle("The two records on one timescale", x=0.01, ha="left", fontsize=11,
                      fontweight="bold")
     return fig
+
+
+def _legend_beside(ax, fontsize=7):
+    """A legend to the right of the axes, off the data."""
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=fontsize)
 
 
 def marker_figure(marker, side, ax=None):
@@ -94,15 +110,15 @@ def marker_figure(marker, side, ax=None):
     from align.markers import kind_of
 
     if ax is None:
-        with styled((7.5, 3.0)) as (fig, ax):
+        with styled((8.5, 3.0)) as (fig, ax):
             marker_figure(marker, side, ax)
         return fig
     colour = COLOURS[side]
     trace = marker.trace
     _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour, "samples")
     ax.set_title(kind_of(marker.kind).draw(ax, marker, colour), loc="left")
-    ax.set_ylabel(marker.variable)
-    ax.legend(loc="best", frameon=False, fontsize=7)
+    ax.set_ylabel(with_units(marker.variable, marker.units, marker.reference_scale))
+    _legend_beside(ax)
     _age_axis(ax, marker.age_reference)
     return ax.figure
 
@@ -122,32 +138,50 @@ def lag_figure(result):
         ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
         ax.set_ylabel("Monte Carlo draws")
         ax.set_title("Lag distribution", loc="left")
-        ax.legend(loc="upper right", frameon=False, fontsize=8)
+        _legend_beside(ax)
     return fig
 
 
 def budget_figure(result):
-    """The uncertainty budget as bars (sd of each source) and the what-if 95 % widths."""
+    """The uncertainty budget (sd of each source, coloured by kind, with a key) and, below it,
+    the 95 % width after each named improvement. Labels are wrapped, never cut."""
     items = sorted(result.budget, key=lambda b: b.share)
-    width_now = result.lag.ci95[1] - result.lag.ci95[0]
-    with styled((9.5, 3.4), nrows=1, ncols=2,
-                gridspec_kw={"width_ratios": [1.2, 1]}) as (fig, (left, right)):
-        colours = [COLOURS["a"] if b.kind == "resolution" else
-                   COLOURS["b"] if b.kind == "detection" else COLOURS["lag"] for b in items]
-        left.barh(range(len(items)), [b.sd for b in items], color=colours)
-        left.set_yticks(range(len(items)), [_short(b.component) for b in items], fontsize=7)
+    rows = [("as it is", result.lag.ci95[1] - result.lag.ci95[0])] + [
+        (w.change, w.width) for w in result.what_if]
+    height = 0.42 * (len(items) + len(rows)) + 1.8
+    with styled((8.5, height), nrows=2, ncols=1,
+                gridspec_kw={"height_ratios": [len(items) + 1, len(rows) + 1]}) as (
+            fig, (top, bottom)):
+        top.barh(range(len(items)), [b.sd for b in items],
+                 color=[KIND_COLOURS[b.kind] for b in items])
+        top.set_yticks(range(len(items)), [_wrap(b.component) for b in items], fontsize=7)
         for k, b in enumerate(items):
-            left.text(b.sd, k, f" {b.share:.0%}", va="center", fontsize=7)
-        left.set_xlabel("sd (yr); share of the variance at the bar end")
-        left.set_title("Uncertainty budget", loc="left")
-        rows = [("now", width_now)] + [(w.change, w.width) for w in result.what_if]
-        right.barh(range(len(rows)), [w for _, w in rows],
-                   color=[COLOURS["ink"]] + [COLOURS["band"]] * (len(rows) - 1))
-        right.set_yticks(range(len(rows)), [_short(c, 34) for c, _ in rows], fontsize=7)
-        right.invert_yaxis()
-        right.set_xlabel("width of the 95 % lag interval (yr)")
-        right.set_title("What would narrow it", loc="left")
+            top.text(b.sd, k, f" {b.share:.0%}", va="center", fontsize=7)
+        top.set_xlabel("sd (yr); share of the variance at the bar end")
+        top.set_title("Uncertainty budget", loc="left")
+        kinds = list(dict.fromkeys(b.kind for b in reversed(items)))
+        top.legend(handles=[_patch(KIND_COLOURS[k], k) for k in kinds], title="kind",
+                   loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=7,
+                   title_fontsize=7)
+        bottom.barh(range(len(rows)), [w for _, w in rows],
+                    color=[COLOURS["ink"]] + [COLOURS["band"]] * (len(rows) - 1))
+        bottom.set_yticks(range(len(rows)), [_wrap(c) for c, _ in rows], fontsize=7)
+        bottom.invert_yaxis()
+        bottom.set_xlabel("width of the 95 % lag interval (yr)")
+        bottom.set_title("What would narrow it", loc="left")
     return fig
+
+
+def _patch(colour, label):
+    from matplotlib.patches import Patch
+
+    return Patch(color=colour, label=label)
+
+
+def _wrap(text, width=44):
+    import textwrap
+
+    return "\n".join(textwrap.wrap(text, width)) or text
 
 
 def survey_figure(result):
@@ -171,10 +205,6 @@ def survey_figure(result):
         ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
         ax.set_title("Survey: each pair's lag (95 %) and the combination", loc="left")
     return fig
-
-
-def _short(text, limit=48):
-    return text if len(text) <= limit else text[: limit - 1] + "…"
 
 
 def lag_figures(result):

@@ -373,6 +373,7 @@ def _excerpt(record, marker, label):
     return RecordExcerpt(
         label=f"{label}: {record_name(record)}", variable=marker.variable,
         units=record[marker.variable].attrs.get("units"),
+        reference_scale=record[marker.variable].attrs.get("reference_scale"),
         age_top=record["age_bounds"].values[inside, 0].tolist(),
         age_bottom=record["age_bounds"].values[inside, 1].tolist(),
         value=[None if not np.isfinite(v) else float(v) for v in values],

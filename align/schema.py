@@ -202,6 +202,7 @@ class RecordExcerpt(Model):
     label: str
     variable: str
     units: str | None = None
+    reference_scale: str | None = None
     age_top: list[float]
     age_bottom: list[float]
     value: list[float | None]

@@ -101,6 +101,9 @@ class MarkerBase(Model):
     method: str
     references: list[str] = Field([], description="keys of the method's references "
                                                   "(align.references)")
+    units: str | None = Field(None, description="CF units of the variable")
+    reference_scale: str | None = Field(None, description="the scale a ratio is given against "
+                                                          "(e.g. VSMOW), when the file says")
     sample_interval: float | None = Field(None, description="age interval (yr) of the sample "
                                                             "holding the marker")
     depth: float | None = None

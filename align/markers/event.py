@@ -107,7 +107,7 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
         the threshold (a normal result, not an error).
     """
     from align.anomaly import robust_z, runs_above
-    from align.detect import prepare_window, trace_list, uniform_estimate
+    from align.detect import prepare_window, trace_list, uniform_estimate, variable_units
     from align.provenance import provenance, record_input
     from align.record import age_reference as reference_of
     from align.record import record_name
@@ -147,6 +147,7 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
                   curve=trace_list(baseline[inside]),
                   threshold=trace_list(baseline[inside] + sign * threshold * scale))
     common = dict(record=record_name(record), variable=variable, window=window,
+                  **variable_units(record, variable),
                   age_reference=reference_of(record),
                   method=(f"robust z-score > {threshold:g} (running median over {span:g} yr, "
                           "MAD x 1.4826), first anomalous run in forward time"),

@@ -126,7 +126,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     doi:10.5194/cp-15-811-2019 (keys ``mudelsee2000`` and ``erhardt2019`` of
     :mod:`align.references`).
     """
-    from align.detect import estimate, onset_bootstrap, prepare_window
+    from align.detect import estimate, onset_bootstrap, prepare_window, variable_units
     from align.provenance import provenance, record_input, resolve_seed
     from align.record import age_reference as reference_of
     from align.record import record_name
@@ -170,6 +170,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     depth = record["depth"].values if "depth" in record.coords else None
     result = OnsetResult(
         record=record_name(record), variable=variable, window=window,
+        **variable_units(record, variable),
         age_reference=reference_of(record), method=_method_text(method, noise),
         references=(["mudelsee2000", "mudelsee2002", "efron1993"] if method == "ramp"
                     else ["erhardt2019"]),
@@ -279,14 +280,17 @@ class Onset(MarkerKind):
 
     def text(self, marker):
         from align.text import estimate_line
+        from align.units import unit_label
 
         ref = marker.age_reference
+        unit = unit_label(marker.units, marker.reference_scale)
+        unit = f" {unit}" if unit else ""
         return [f"onset       {estimate_line(marker.onset, ref)}",
                 f"midpoint    {estimate_line(marker.midpoint, ref)}",
                 f"end         {estimate_line(marker.end, ref)}",
                 f"duration    {estimate_line(marker.duration)}",
-                f"amplitude   {marker.amplitude.median:.3g} ({marker.direction}); noise sd "
-                f"{marker.noise.sd:.3g}, AR(1) {marker.noise.ar1:.2f}",
+                f"amplitude   {marker.amplitude.median:.3g}{unit} ({marker.direction}); noise "
+                f"sd {marker.noise.sd:.3g}{unit}, AR(1) {marker.noise.ar1:.2f}",
                 "clear transition" if marker.clear_transition else marker.reason]
 
 
