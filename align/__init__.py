@@ -17,6 +17,7 @@ _PUBLIC = {
     "open_record": "align.io",
     "read_request": "align.requests",
     "read_survey": "align.requests",
+    "record_frame": "align.io",
     "read_ties": "align.ties",
     "resample": "align.resample",
     "save_record": "align.io",

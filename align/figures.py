@@ -109,37 +109,48 @@ def marker_figure(marker, side, ax=None):
     """How a marker was picked (each kind draws its own: :meth:`MarkerKind.draw`)."""
     from align.markers import kind_of
 
-    if ax is None:
-        with styled((8.5, 3.0)) as (fig, ax):
-            marker_figure(marker, side, ax)
-        return fig
-    colour = COLOURS[side]
-    trace = marker.trace
-    _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour, "samples")
-    ax.set_title(kind_of(marker.kind).draw(ax, marker, colour), loc="left")
-    ax.set_ylabel(with_units(marker.variable, marker.units, marker.reference_scale))
-    _legend_beside(ax)
-    _age_axis(ax, marker.age_reference)
-    return ax.figure
+    def draw(ax):
+        colour = COLOURS[side]
+        trace = marker.trace
+        _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour, "samples")
+        ax.set_title(kind_of(marker.kind).draw(ax, marker, colour), loc="left")
+        ax.set_ylabel(with_units(marker.variable, marker.units, marker.reference_scale))
+        _legend_beside(ax)
+        _age_axis(ax, marker.age_reference)
+
+    return on_axes(ax, (8.5, 3.0), draw)
 
 
-def lag_figure(result):
+def on_axes(ax, figsize, draw):
+    """Run ``draw(ax)`` on the given matplotlib ``Axes``, or on a new figure of ``figsize``;
+    return the figure."""
+    if ax is not None:
+        draw(ax)
+        return ax.figure
+    with styled(figsize) as (fig, new):
+        draw(new)
+    return fig
+
+
+def lag_figure(result, ax=None):
     """The lag distribution with its median, 68 % and 95 % intervals and the zero line."""
+    return on_axes(ax, (8.5, 3.0), lambda ax: _draw_lag(result, ax))
+
+
+def _draw_lag(result, ax):
     hist = result.figures.lag_histogram
     edges = np.asarray(hist.edges)
-    with styled((7.5, 3.0)) as (fig, ax):
-        ax.stairs(hist.counts, edges, fill=True, color=COLOURS["lag"], alpha=0.35)
-        ax.stairs(hist.counts, edges, color=COLOURS["lag"])
-        ax.axvspan(*result.lag.ci95, color=COLOURS["light"], zorder=0, label="95 %")
-        ax.axvspan(*result.lag.ci68, color=COLOURS["band"], alpha=0.5, zorder=0, label="68 %")
-        ax.axvline(result.lag.median, color=COLOURS["lag"], lw=1.5,
-                   label=f"median {result.lag.median:.1f} yr")
-        ax.axvline(0.0, color=COLOURS["ink"], lw=1, ls=":", label="no lag")
-        ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
-        ax.set_ylabel("Monte Carlo draws")
-        ax.set_title("Lag distribution", loc="left")
-        _legend_beside(ax)
-    return fig
+    ax.stairs(hist.counts, edges, fill=True, color=COLOURS["lag"], alpha=0.35)
+    ax.stairs(hist.counts, edges, color=COLOURS["lag"])
+    ax.axvspan(*result.lag.ci95, color=COLOURS["light"], zorder=0, label="95 %")
+    ax.axvspan(*result.lag.ci68, color=COLOURS["band"], alpha=0.5, zorder=0, label="68 %")
+    ax.axvline(result.lag.median, color=COLOURS["lag"], lw=1.5,
+               label=f"median {result.lag.median:.1f} yr")
+    ax.axvline(0.0, color=COLOURS["ink"], lw=1, ls=":", label="no lag")
+    ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
+    ax.set_ylabel("Monte Carlo draws")
+    ax.set_title("Lag distribution", loc="left")
+    _legend_beside(ax)
 
 
 def budget_figure(result):
@@ -184,27 +195,30 @@ def _wrap(text, width=44):
     return "\n".join(textwrap.wrap(text, width)) or text
 
 
-def survey_figure(result):
+def survey_figure(result, ax=None):
     """Every pair's lag with its 95 % interval, and the combined estimate."""
+    rows = sum(p.lag is not None for p in result.pairs)
+    return on_axes(ax, (8.5, 0.32 * rows + 1.6), lambda ax: _draw_survey(result, ax))
+
+
+def _draw_survey(result, ax):
     pairs = [p for p in result.pairs if p.lag is not None]
-    with styled((7.5, 0.32 * len(pairs) + 1.6)) as (fig, ax):
-        for k, pair in enumerate(pairs):
-            colour = COLOURS["a"] if pair.clear else COLOURS["band"]
-            ax.plot(pair.lag.ci95, [k, k], color=colour, lw=1.5)
-            ax.plot(pair.lag.median, k, "o", color=colour, ms=4)
-        labels = [p.label + ("" if p.clear else " (not combined)") for p in pairs]
-        if result.combined is not None:
-            k = len(pairs) + 0.6
-            ax.plot(result.combined.ci95, [k, k], color=COLOURS["lag"], lw=3)
-            ax.plot(result.combined.median, k, "D", color=COLOURS["lag"], ms=6)
-            labels.append("combined")
-        ax.set_yticks(list(range(len(pairs))) + ([len(pairs) + 0.6] if result.combined else []),
-                      labels, fontsize=7)
-        ax.axvline(0.0, color=COLOURS["ink"], lw=1, ls=":")
-        ax.invert_yaxis()
-        ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
-        ax.set_title("Survey: each pair's lag (95 %) and the combination", loc="left")
-    return fig
+    for k, pair in enumerate(pairs):
+        colour = COLOURS["a"] if pair.clear else COLOURS["band"]
+        ax.plot(pair.lag.ci95, [k, k], color=colour, lw=1.5)
+        ax.plot(pair.lag.median, k, "o", color=colour, ms=4)
+    labels = [p.label + ("" if p.clear else " (not combined)") for p in pairs]
+    if result.combined is not None:
+        k = len(pairs) + 0.6
+        ax.plot(result.combined.ci95, [k, k], color=COLOURS["lag"], lw=3)
+        ax.plot(result.combined.median, k, "D", color=COLOURS["lag"], ms=6)
+        labels.append("combined")
+    ax.set_yticks(list(range(len(pairs))) + ([len(pairs) + 0.6] if result.combined else []),
+                  labels, fontsize=7)
+    ax.axvline(0.0, color=COLOURS["ink"], lw=1, ls=":")
+    ax.invert_yaxis()
+    ax.set_xlabel("lag = age(a) - age(b) (yr); positive: a happened first")
+    ax.set_title("Survey: each pair's lag (95 %) and the combination", loc="left")
 
 
 def lag_figures(result):

@@ -337,8 +337,10 @@ def read_json(path, what="file"):
         raise InputError(f"not valid JSON ({reason})", source=str(path), status=400) from None
 
 
-def record_to_frame(record):
-    """The record as a flat table: depth/age mid-points and bounds, uncertainty, proxies."""
+def record_frame(record):
+    """The record as a :class:`pandas.DataFrame`, one row per sample (``Dataset.to_dataframe``
+    would repeat each sample for both of its bounds): depth and age mid-points with their
+    bounds as ``*_top``/``*_bottom`` columns, the age uncertainty, and the proxies."""
     columns = {}
     for name in ("depth", "age"):
         if name in record.coords:
@@ -362,5 +364,5 @@ def record_to_csv(record):
         lines.append(f"# {name}: {record[name].attrs.get('long_name', name)} "
                      f"[{record[name].attrs.get('units', '')}]")
     buffer = _io.StringIO()
-    record_to_frame(record).to_csv(buffer, index=False, float_format="%.10g")
+    record_frame(record).to_csv(buffer, index=False, float_format="%.10g")
     return "\n".join(lines) + "\n" + buffer.getvalue()

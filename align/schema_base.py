@@ -29,6 +29,28 @@ class Model(BaseModel):
         """The JSON-ready dictionary (the shape of ``--json`` and of the API)."""
         return self.model_dump(mode="json")
 
+    def to_dataframe(self, table=None):
+        """One of the result's tables as a :class:`pandas.DataFrame`, a row per item.
+
+        Parameters
+        ----------
+        table : str, optional
+            The name of a list field (``"budget"``, ``"what_if"``, ``"pairs"``, ...); default
+            the first list of objects the result holds. Nested fields are flattened
+            (``lag.median``).
+        """
+        import pandas as pd
+
+        tables = [name for name, value in self if isinstance(value, list) and value
+                  and all(isinstance(v, BaseModel) for v in value)]
+        name = table or (tables[0] if tables else None)
+        if name not in tables:
+            from align.errors import InputError
+
+            raise InputError(f"no table {name!r} in this result (tables: "
+                             f"{', '.join(tables) or 'none'})", field="table")
+        return pd.json_normalize([row.to_dict() for row in getattr(self, name)])
+
 
 class InputRef(Model):
     """One input of a result: its role, where it came from, and its checksum."""
