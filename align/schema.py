@@ -553,6 +553,8 @@ class SynchronyResult(Model):
     verdict: str
     cautions: list[str]
     assumptions: list[str]
+    references: list[str] = Field([], description="keys of the methods' references "
+                                                  "(align.references)")
     age_reference: AgeRef
     provenance: Provenance
 

@@ -745,6 +745,7 @@ def _result(request, sites, joint, rng, notes, prov):
         verdict=_verdict(request, sites, main, combined, prob_of, top, what_if),
         cautions=list(CAUTIONS),
         assumptions=_assumptions(sites, main, notes, request.outlier_prior),
+        references=["ward1978", "dersimonian1986", "viechtbauer2007", "christen1994"],
         age_reference=request.age_reference, provenance=prov)
     result._combined_draws = main.combined
     return result
