@@ -22,6 +22,9 @@ from align.schema import SynchronyRequest
 CSV_COLUMNS = ("label", "age", "sd", "lower", "upper", "age_reference", "chronology",
                "shared_sd", "independent")
 MARKER_FIELDS = ("kind", "record", "variable", "window")
+#: Largest age magnitude accepted (yr), and the smallest and largest sd: no chronology is
+#: finer than a thousandth of a year or coarser than the age of the universe.
+MAX_AGE, MIN_SD, MAX_SD = 1e10, 1e-3, 1e10
 _TRUE = {"true", "yes", "1", "y", "t"}
 _FALSE = {"false", "no", "0", "n", "f"}
 
@@ -130,10 +133,11 @@ def check_draws(values, label, k, *, source=None):
     if values.size == 0:
         raise InputError(f"site {label!r}: no draws (the draws are empty)", source=source,
                          field=field)
-    bad = np.flatnonzero(~np.isfinite(values))
+    bad = np.flatnonzero(~(np.abs(values) <= MAX_AGE))
     if bad.size:
-        raise InputError(f"site {label!r}: draw {bad[0] + 1} is not a number", source=source,
-                         field=field, row=int(bad[0]) + 1)
+        raise InputError(f"site {label!r}: draw {bad[0] + 1} is not an age (not a number, or "
+                         f"beyond {MAX_AGE:g} yr)", source=source, field=field,
+                         row=int(bad[0]) + 1)
     if values.size < 2 or np.ptp(values) == 0:
         raise InputError(f"site {label!r}: the draws have no spread (need at least two "
                          "different values)", source=source, field=field)
@@ -202,6 +206,14 @@ def check_site(site, k, *, source=None):
             canonical_reference(site.age_reference)
         except InputError as exc:
             fail(exc.message, "age_reference")
+    for name in ("age", "lower", "upper"):
+        value = getattr(site, name)
+        if value is not None and not abs(value) <= MAX_AGE:
+            fail(f"{name} {value:g} is beyond {MAX_AGE:g} yr", name)
+    for name in ("sd", "shared_sd"):
+        value = getattr(site, name)
+        if value is not None and value > MAX_SD:
+            fail(f"{name} {value:g} is beyond {MAX_SD:g} yr", name)
     marker = [f for f in MARKER_FIELDS if getattr(site, f) is not None]
     tabulated = [f for f in ("age", "sd", "lower", "upper", "draws")
                  if getattr(site, f) is not None]
@@ -228,6 +240,8 @@ def check_site(site, k, *, source=None):
             fail("give sd or a 95 % interval (lower, upper), not both", "sd")
         if not site.sd > 0:
             fail(f"sd must be greater than 0 (got {site.sd:g})", "sd")
+        if site.sd < MIN_SD:
+            fail(f"sd {site.sd:g} is below {MIN_SD:g} yr", "sd")
         if site.shared_sd is not None and site.shared_sd > site.sd:
             fail(f"shared_sd ({site.shared_sd:g}) exceeds the site's sd ({site.sd:g})",
                  "shared_sd")
@@ -237,6 +251,8 @@ def check_site(site, k, *, source=None):
              "lower" if site.lower is None else "upper")
     if not site.lower < site.upper:
         fail(f"lower ({site.lower:g}) must be smaller than upper ({site.upper:g})", "lower")
+    if site.upper - site.lower < 2 * MIN_SD:
+        fail(f"the interval is narrower than {2 * MIN_SD:g} yr", "lower")
     if not site.lower <= site.age <= site.upper:
         fail(f"age {site.age:g} lies outside its interval [{site.lower:g}, {site.upper:g}]",
              "age")

@@ -460,6 +460,21 @@ def default_shared(sites):
     return notes
 
 
+def _check_separable(sites):
+    """Two sites whose whole error is their chronology's could never differ: refused."""
+    whole = {}
+    for k, site in enumerate(sites):
+        if site.own_var <= 1e-9 * (site.own_var + site.shared_sd ** 2):
+            whole.setdefault(site.key, []).append((k, site.label))
+    for key, members in whole.items():
+        if len(members) > 1:
+            k, label = members[1]
+            raise InputError(f"site {label!r}: it and {members[0][1]!r} carry only the error "
+                             f"of chronology {key!r} (shared_sd equal to sd), so their dates "
+                             "could never differ; give each its own error",
+                             field=f"sites.{k}.shared_sd")
+
+
 def covariance(sites):
     """The sites' covariance (yr^2): own variances on the diagonal plus the shared errors
     (``shared_i * shared_j`` for sites on one chronology)."""
@@ -645,6 +660,7 @@ def test_synchrony(sites, *, age_reference="b2k", draws=20000, seed=None, outlie
                         np.random.default_rng(streams[k]), sources)
              for k, spec in enumerate(request.sites)]
     notes = default_shared(built)
+    _check_separable(built)
     joint = joint_draws(built, np.random.default_rng(streams[-2]))
     inputs = [{"role": "sites", "source": str(sites) if isinstance(sites, (str, Path))
                else "inline", "sha256": _checksum(sites), "timescale": ""}]

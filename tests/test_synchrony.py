@@ -357,3 +357,10 @@ def test_calibration_q_profile_covers_the_true_spread():
         lo, hi = q_profile(x[i], cov[i])
         hits += lo <= tau**2 <= hi
     assert 0.90 <= hits / trials <= 0.99
+
+
+def test_sites_that_share_all_their_error_are_refused():
+    with pytest.raises(InputError, match="'B'.*could never differ") as info:
+        run([{"label": "A", "age": 1, "sd": 2, "chronology": "K", "shared_sd": 2},
+             {"label": "B", "age": 1, "sd": 2, "chronology": "K", "shared_sd": 2}])
+    assert info.value.field == "sites.1.shared_sd"
