@@ -364,3 +364,26 @@ def test_sites_that_share_all_their_error_are_refused():
         run([{"label": "A", "age": 1, "sd": 2, "chronology": "K", "shared_sd": 2},
              {"label": "B", "age": 1, "sd": 2, "chronology": "K", "shared_sd": 2}])
     assert info.value.field == "sites.1.shared_sd"
+
+
+def test_demo_gives_the_documented_verdict(tmp_path):
+    """records/README.md: the reworked site is the most probable outlier, the tuned site is
+    not counted, and without the outlier the others agree on an age whose 95 % interval holds
+    the true 12,260 b2k."""
+    from align.demo import demo_sites_truth
+
+    truth = demo_sites_truth()
+    done = run_cli("demo", "synchrony", "--json", "-o", tmp_path / "report")
+    assert done.returncode == 0, done.stderr
+    result = json.loads(done.stdout)["result"]
+    assert result["top_outlier"] == truth["displaced"]
+    tuned = next(s for s in result["sites"] if s["label"] == truth["not_independent"])
+    assert not tuned["independent"] and tuned["outlier_probability"] is None
+    assert not result["test"]["consistent"] and not result["combined"]["supported"]
+    row = next(w for w in result["what_if"] if w["key"] == "without_top_outlier")
+    assert row["consistent"]
+    assert row["combined"]["ci95"][0] <= truth["true_age"] <= row["combined"]["ci95"][1]
+    assert (tmp_path / "report" / "report.html").exists()
+    shared = [s["chronology"] for s in result["sites"] if s["label"] in
+              truth["shared_chronology"]]
+    assert shared[0] == shared[1] is not None
