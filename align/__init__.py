@@ -9,6 +9,7 @@ from align.errors import InputError
 
 #: Public name -> the module that defines it.
 _PUBLIC = {
+    "combined_age_draws": "align.synchrony",
     "convert_age": "align.ages",
     "cross_correlate": "align.xcorr",
     "detect_event": "align.markers.event",
@@ -21,6 +22,7 @@ _PUBLIC = {
     "resample": "align.resample",
     "save_record": "align.io",
     "survey": "align.survey",
+    "test_synchrony": "align.synchrony",
     "transfer": "align.ties",
     "write_report": "align.report",
 }
