@@ -18,9 +18,11 @@ from pydantic import ConfigDict, Field, PrivateAttr, create_model
 from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD,
                            DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
                            DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_TIMESCALE_MODEL,
-                           MAX_LAG_DRAWS, MIN_LAG_DRAWS, BudgetKind, CorrelationMethod,
-                           GridAxis, SurrogateKind, TimescaleModel, WhatIfKey)
-from align.markers import KINDS, Marker, MarkerSpec, MarkerTemplate
+                           DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MIN_LAG_DRAWS, AgeConvention,
+                           BudgetKind, CorrelationMethod, EventPick, GridAxis, OnsetDirection,
+                           OnsetMethod, SurrogateKind, SynchronyWhatIfKey, TimescaleModel,
+                           WhatIfKey)
+from align.markers import KINDS, Marker, MarkerKindName, MarkerSpec, MarkerTemplate
 from align.markers.event import EventCandidate, EventResult, MarkerSample
 from align.markers.onset import Levels, NoiseModel, OnsetResult
 from align.schema_base import (AgeRef, Estimate, InputRef, MarkerBase, MarkerDraws, Model, Pair,
@@ -415,23 +417,23 @@ class GridSummary(Model):
 
 class SiteSpec(Model):
     """One site where a horizon was found and dated: a marker on a record (``kind``,
-    ``record``, ``variable``, ``window``) or a tabulated date (``age`` with ``sd``, ``age`` with
-    a 95 % interval ``lower``/``upper``, or ``draws``: a one-column file of age draws, or the
-    draws themselves)."""
+    ``record``, ``variable``, ``window`` and the kind's options) or a tabulated date (``age``
+    with ``sd``, ``age`` with a 95 % interval ``lower``/``upper``, or ``draws``: a one-column
+    file of age draws, or the draws themselves)."""
 
     label: str = Field(min_length=1)
-    kind: Literal["event", "onset"] | None = None
+    kind: MarkerKindName | None = None
     record: str | None = Field(None, description="a path (CLI, library) or a stored record's "
                                                  "id (HTTP API)")
     variable: str | None = None
     window: Pair | None = Field(None, description="where to look for the marker, in the "
                                                   "site's age reference")
     mapping: dict[str, Any] | None = Field(None, description="how to read a CSV record")
-    threshold: float | None = Field(None, gt=0)
-    baseline_years: float | None = Field(None, gt=0)
-    pick: Literal["first", "peak"] | None = None
-    direction: Literal["auto", "up", "down"] | None = None
-    method: Literal["ramp", "bayes"] | None = None
+    threshold: float | None = Field(None, gt=0, description="events: robust z threshold")
+    baseline_years: float | None = Field(None, gt=0, description="events: baseline span (yr)")
+    pick: EventPick | None = None
+    direction: OnsetDirection | None = None
+    method: OnsetMethod | None = None
     age: float | None = None
     sd: float | None = None
     lower: float | None = None
@@ -439,8 +441,9 @@ class SiteSpec(Model):
     draws: str | list[float] | None = Field(None, description="a file of age draws (one "
                                                                "column; CLI and library) or "
                                                                "the draws themselves")
-    age_reference: str | None = Field(None, description="reference of this site's ages "
-                                                        "(default: the request's)")
+    age_reference: AgeConvention | None = Field(None, description="reference of this site's "
+                                                                  "ages (default: the "
+                                                                  "request's)")
     chronology: str | None = Field(None, description="sites on one chronology share its "
                                                      "error")
     shared_sd: float | None = Field(None, ge=0, description="sd (yr) of the chronology's "
@@ -455,10 +458,10 @@ class SynchronyRequest(Model):
     /synchrony``)."""
 
     sites: list[SiteSpec] = Field(min_length=1)
-    age_reference: AgeRef = "b2k"
-    draws: int = Field(20_000, ge=1000, le=1_000_000)
+    age_reference: AgeRef = DEFAULT_AGE_REFERENCE
+    draws: int = Field(DEFAULT_LAG_DRAWS, ge=MIN_LAG_DRAWS, le=MAX_LAG_DRAWS)
     seed: int | None = Field(None, ge=0)
-    outlier_prior: float = Field(0.05, gt=0, lt=1)
+    outlier_prior: float = Field(DEFAULT_OUTLIER_PRIOR, gt=0, lt=1)
 
 
 class SiteResult(Model):
@@ -525,8 +528,7 @@ class SynchronyWhatIf(Model):
     """The analysis over another choice of sites; ``key`` is for code, ``change`` for
     people."""
 
-    key: Literal["without_top_outlier", "independent_chronologies_only",
-                 "each_chronology_once"]
+    key: SynchronyWhatIfKey
     change: str
     applicable: bool
     sites: list[str]

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from align.ages import RECORD_REFERENCES, canonical_reference
+from align.choices import RecordReference, options
 from align.errors import InputError
 from align.schema import SynchronyRequest
 
@@ -201,11 +201,6 @@ def check_site(site, k, *, source=None):
         raise InputError(f"site {site.label!r}: {message}", source=source,
                          field=f"sites.{k}.{field}")
 
-    if site.age_reference is not None:
-        try:
-            canonical_reference(site.age_reference)
-        except InputError as exc:
-            fail(exc.message, "age_reference")
     for name in ("age", "lower", "upper"):
         value = getattr(site, name)
         if value is not None and not abs(value) <= MAX_AGE:
@@ -224,8 +219,8 @@ def check_site(site, k, *, source=None):
         missing = [f for f in MARKER_FIELDS if getattr(site, f) is None]
         if missing:
             fail(f"a marker site needs {', '.join(MARKER_FIELDS)}", missing[0])
-        if site.age_reference is not None and (canonical_reference(site.age_reference)
-                                               not in RECORD_REFERENCES):
+        if site.age_reference is not None and (site.age_reference
+                                               not in options(RecordReference)):
             fail("a marker's window is in b2k or BP", "age_reference")
         return
     if site.draws is not None:

@@ -39,6 +39,7 @@ from pathlib import Path
 import numpy as np
 
 from align.ages import convert_age
+from align.choices import DEFAULT_AGE_REFERENCE, DEFAULT_LAG_DRAWS, DEFAULT_OUTLIER_PRIOR
 from align.errors import InputError
 from align.sites import check_draws, read_draws, read_sites, sites_request
 
@@ -401,37 +402,34 @@ def split_normal_moments(mode, sd_lo, sd_hi):
 
 
 def _marker_site(spec, k, site_ref, reference, n, rng, sources):
+    """A site on a record: the marker kind's own uncertainty (its ``parts``) around its
+    ``center``, plus the record's absolute timescale sd there as the chronology's error."""
     from align.detect import detect_marker
-    from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
+    from align.markers import kind_of
+    from align.record import age_sigma, uncertainty_kind, with_age_reference
 
+    kind = kind_of(spec.kind)
+    fields = set(kind.options.model_fields) | {"kind", "variable", "window"}
+    options = {f: v for f, v in spec.model_dump().items() if f in fields and v is not None}
     try:
         record = with_age_reference(sources.record(spec), site_ref)
-        marker = detect_marker(record, spec.model_dump(include={
-            "kind", "variable", "window", "threshold", "baseline_years", "pick", "direction",
-            "method"}), seed=int(rng.integers(2**63)))
+        marker = detect_marker(record, options, seed=int(rng.integers(2**63)))
+        kind.usable(marker, f"sites.{k}")
     except InputError as exc:
-        raise _located_error(exc, spec.label, k, exc.field or "record") from None
-    a, b = _affine(site_ref, reference)
-    if marker.kind == "event":
-        if not marker.found:
-            raise InputError(f"site {spec.label!r}: {marker.message}",
-                             field=f"sites.{k}.window")
-        lo, hi = marker.sample.age_interval
-        centre, own = 0.5 * (lo + hi), rng.uniform(-(hi - lo) / 2, (hi - lo) / 2, n)
-        how = f"event in {record_name(record)} {spec.variable}: uniform over its sample"
-    else:
-        pool = np.asarray(marker._draws, dtype=float)
-        centre = float(pool.mean())
-        own = pool[rng.integers(0, pool.size, n)] - centre
-        how = f"onset in {record_name(record)} {spec.variable}: ramp-fit draws"
+        raise _located_error(exc, spec.label, k, (exc.field or "record").split(".")[-1]) \
+            from None
+    centre = kind.center(marker)
+    own = sum(part.draws for part in kind.parts(marker, spec.label, 1.0, n, rng))
     sigma = age_sigma(record)
     shared = 0.0 if sigma is None else float(np.interp(centre, record["age"].values, sigma))
-    kind = uncertainty_kind(record)
-    how += (", plus its timescale's absolute error (" + kind + ")" if kind != "none"
+    how = kind.describe(marker)
+    errors = uncertainty_kind(record)
+    how += (f", plus its timescale's absolute error ({errors})" if errors != "none"
             else "; its record carries no timescale error")
-    chronology = spec.chronology or record.attrs.get("timescale") or None
+    a, b = _affine(site_ref, reference)
     return Site(label=spec.label, source="record", distribution=how,
-                independent=spec.independent, chronology=chronology, mean=a * centre + b,
+                independent=spec.independent, chronology=spec.chronology
+                or record.attrs.get("timescale") or None, mean=a * centre + b,
                 own=a * own, own_var=float(np.var(own)), shared_sd=shared)
 
 
@@ -599,8 +597,8 @@ def synchrony_request(sites, **options):
     return sites_request(body, source=source), base
 
 
-def test_synchrony(sites, *, age_reference="b2k", draws=20000, seed=None, outlier_prior=0.05,
-                   sources=None):
+def test_synchrony(sites, *, age_reference=DEFAULT_AGE_REFERENCE, draws=DEFAULT_LAG_DRAWS,
+                   seed=None, outlier_prior=DEFAULT_OUTLIER_PRIOR, sources=None):
     """Is one horizon the same age at many sites?
 
     Parameters

@@ -129,7 +129,7 @@ def synchrony(result):
                   f"{test.p_value:.3g} ({test.calibration}); "
                   + ("consistent with one common age" if test.consistent else
                      "NOT consistent with one common age"),
-              f"combined    {_estimate(comb.age, ref)}; {comb.label}",
+              f"combined    {estimate_line(comb.age, ref)}; {comb.label}",
               f"spread      between-site sd {spread.tau:.1f} yr (95 %: {spread.ci95[0]:.1f} to "
               f"{spread.ci95[1]:.1f}); {spread.statement}"]
     decisive = [r for r in result.leave_one_out if r.decisive]
@@ -140,7 +140,7 @@ def synchrony(result):
     for row in result.what_if:
         if row.applicable:
             lines.append(f"  {row.change}: p = {row.p_value:.3g}, combined "
-                         f"{_estimate(row.combined, ref)}")
+                         f"{estimate_line(row.combined, ref)}")
         else:
             lines.append(f"  {row.change}: {row.note}")
     lines.append("cautions:")
