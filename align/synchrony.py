@@ -191,7 +191,7 @@ def q_profile(x, cov, level=0.95):
         high = scale
         while q(high) > target:
             high *= 4.0
-        bounds.append(brentq(lambda t: q(t) - target, 0.0, high, xtol=1e-10 * scale,
+        bounds.append(brentq(lambda t, target=target: q(t) - target, 0.0, high, xtol=1e-10 * scale,
                              rtol=1e-12))
     return bounds[0], bounds[1]
 
