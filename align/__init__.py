@@ -17,6 +17,7 @@ _PUBLIC = {
     "estimate_lag": "align.lag",
     "open_record": "align.io",
     "read_request": "align.requests",
+    "read_sites": "align.sites",
     "read_survey": "align.requests",
     "read_ties": "align.ties",
     "resample": "align.resample",

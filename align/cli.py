@@ -721,10 +721,12 @@ def _survey(args):
 
 def _synchrony(args):
     from align import text
+    from align.sites import read_sites
     from align.synchrony import test_synchrony
 
+    request = read_sites(args.sites)
     with progress_note("testing synchrony"):
-        result = test_synchrony(args.sites, seed=args.seed, age_reference=args.to)
+        result = test_synchrony(request, seed=args.seed, age_reference=args.to)
     _finish(result, args, text.synchrony)
 
 
@@ -767,10 +769,11 @@ def _demo_synchrony(args):
     from align import text
     from align.demo import demo_sites_path, demo_sites_truth
     from align.report import write_report
+    from align.sites import read_sites
     from align.synchrony import test_synchrony
 
     with progress_note("testing synchrony (invented sites, synthetic dates)"):
-        result = test_synchrony(demo_sites_path())
+        result = test_synchrony(read_sites(demo_sites_path()))
     folder = write_report(result, args.output, overwrite=True)
     truth = demo_sites_truth()
     if args.json:

@@ -30,7 +30,10 @@ _FALSE = {"false", "no", "0", "n", "f"}
 
 
 def read_sites(path):
-    """Read a site file (JSON or CSV) as a request body (a dict, not yet checked).
+    """Read a site file (JSON request or CSV table) as a checked request.
+
+    Relative ``record`` and ``draws`` paths name files beside the site file when such a file
+    exists there (else they stay relative to the working folder), as for lag requests.
 
     Parameters
     ----------
@@ -39,8 +42,7 @@ def read_sites(path):
 
     Returns
     -------
-    dict
-        ``{"sites": [...], ...}``.
+    SynchronyRequest
     """
     from align.io import read_json
 
@@ -50,8 +52,15 @@ def read_sites(path):
         if not isinstance(body, dict) or not isinstance(body.get("sites"), list):
             raise InputError("a site file holds a JSON object with a list 'sites'",
                              source=str(path), field="sites")
-        return body
-    return {"sites": read_site_table(path)}
+    else:
+        body = {"sites": read_site_table(path)}
+    for site in body["sites"]:
+        for key in ("record", "draws"):
+            if isinstance(site, dict) and isinstance(site.get(key), str):
+                candidate = path.parent / site[key]
+                if not Path(site[key]).is_absolute() and candidate.exists():
+                    site[key] = str(candidate)
+    return sites_request(body, source=str(path))
 
 
 def read_site_table(path):

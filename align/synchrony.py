@@ -41,7 +41,7 @@ import numpy as np
 from align.ages import convert_age
 from align.choices import DEFAULT_AGE_REFERENCE, DEFAULT_LAG_DRAWS, DEFAULT_OUTLIER_PRIOR
 from align.errors import InputError
-from align.sites import check_draws, read_draws, read_sites, sites_request
+from align.sites import check_draws, read_draws, sites_request
 
 #: Level of the consistency test.
 LEVEL = 0.05
@@ -557,33 +557,41 @@ def _subset(sites, x, cov, joint, gaussian, keep):
 
 
 class Sources:
-    """Records and draws files a site list names (paths resolve beside the site file)."""
+    """The records and draws files a site list names (paths as given: a site file's are
+    resolved by :func:`align.sites.read_sites`). ``records`` finds records (the HTTP service
+    passes its store's)."""
 
-    def __init__(self, base=None, records=None):
+    def __init__(self, records=None):
         from align.lag import Sources as RecordSources
 
-        self.records = records or RecordSources(base)
-        self.base = self.records.base
+        self.records = records or RecordSources()
+        self.inputs = []
 
     def record(self, spec):
-        return self.records.record(spec)
+        from align.provenance import record_input
+
+        record = self.records.record(spec)
+        self.inputs.append(record_input(record, f"site {spec.label}"))
+        return record
 
     def draws(self, name, label, k):
-        return read_draws(self.records.path(name), label, k)
+        from align.provenance import sha256_file
+
+        values = read_draws(self.records.path(name), label, k)
+        self.inputs.append({"role": f"site {label}", "source": str(name),
+                            "sha256": sha256_file(self.records.path(name)), "timescale": ""})
+        return values
 
 
 def synchrony_request(sites, **options):
-    """A checked :class:`SynchronyRequest` and the folder its paths resolve against.
-
-    ``sites`` is a path (JSON or CSV), a request dict or object, or a list of site dicts.
-    The request's own values come first; ``options`` fill what it leaves out.
-    """
+    """A checked :class:`SynchronyRequest` from a request (object or dict) or a list of site
+    dicts. The request's own values come first; ``options`` fill what it leaves out."""
     from align.schema import SynchronyRequest
 
-    base, source = None, None
     if isinstance(sites, (str, Path)):
-        base, source = Path(sites).parent, str(sites)
-        sites = read_sites(sites)
+        raise InputError("test_synchrony takes a request or a list of sites, not a file; read "
+                         "the file with align.sites.read_sites", source=str(sites),
+                         field="sites")
     if isinstance(sites, SynchronyRequest):
         sites = sites.model_dump(exclude_unset=True)
     elif isinstance(sites, (list, tuple)):
@@ -594,7 +602,7 @@ def synchrony_request(sites, **options):
     for key, value in options.items():
         if value is not None:
             body.setdefault(key, value)
-    return sites_request(body, source=source), base
+    return sites_request(body)
 
 
 def test_synchrony(sites, *, age_reference=DEFAULT_AGE_REFERENCE, draws=DEFAULT_LAG_DRAWS,
@@ -603,8 +611,8 @@ def test_synchrony(sites, *, age_reference=DEFAULT_AGE_REFERENCE, draws=DEFAULT_
 
     Parameters
     ----------
-    sites : str, path, dict, SynchronyRequest or list of site dicts
-        A site file (JSON request or CSV table; see :mod:`align.sites`), a request, or the
+    sites : SynchronyRequest, dict or list of site dicts
+        A request (read a JSON or CSV site file with :func:`align.sites.read_sites`), or the
         sites themselves. A site is a marker on a record (``kind``, ``record``, ``variable``,
         ``window``), or a tabulated date: ``age`` and ``sd`` (Gaussian), ``age`` with a 95 %
         interval ``lower``/``upper`` (split normal, see Notes), or ``draws`` (a one-column
@@ -648,9 +656,9 @@ def test_synchrony(sites, *, age_reference=DEFAULT_AGE_REFERENCE, draws=DEFAULT_
     """
     from align.provenance import provenance, resolve_seed
 
-    request, base = synchrony_request(sites, age_reference=age_reference, draws=draws,
-                                      seed=seed, outlier_prior=outlier_prior)
-    sources = sources or Sources(base)
+    request = synchrony_request(sites, age_reference=age_reference, draws=draws, seed=seed,
+                                outlier_prior=outlier_prior)
+    sources = sources or Sources()
     seed = resolve_seed(request.seed)
     request = request.model_copy(update={"seed": seed})
     streams = np.random.SeedSequence(seed).spawn(len(request.sites) + 2)
@@ -660,20 +668,12 @@ def test_synchrony(sites, *, age_reference=DEFAULT_AGE_REFERENCE, draws=DEFAULT_
     notes = default_shared(built)
     _check_separable(built)
     joint = joint_draws(built, np.random.default_rng(streams[-2]))
-    inputs = [{"role": "sites", "source": str(sites) if isinstance(sites, (str, Path))
-               else "inline", "sha256": _checksum(sites), "timescale": ""}]
-    prov = provenance(inputs=inputs, parameters=request.model_dump(exclude={"seed"}),
+    prov = provenance(inputs=sources.inputs, parameters=request.model_dump(exclude={"seed"}),
                       seed=seed)
     return _result(request, built, joint, np.random.default_rng(streams[-1]), notes, prov)
 
 
 test_synchrony.__test__ = False  # not a pytest test, despite its name
-
-
-def _checksum(sites):
-    from align.provenance import sha256_file
-
-    return sha256_file(sites) if isinstance(sites, (str, Path)) else ""
 
 
 def combined_age_draws(sites, *, allow_inconsistent=False, **options):

@@ -101,7 +101,7 @@ def synchrony(body, paths):
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return _json(test_synchrony(body, sources=SiteSources(records=StoreSources(paths))))
+        return _json(test_synchrony(body, sources=SiteSources(StoreSources(paths))))
 
 
 def render_report(result_path, folder):

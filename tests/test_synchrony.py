@@ -10,6 +10,7 @@ from scipy.stats import chi2, norm
 
 from align import synchrony
 from align.errors import InputError
+from align.sites import read_sites
 from align.synchrony import (chi2_statistic, dl_tau2, gls, outlier_probabilities, q_profile,
                              split_normal_moments)
 from conftest import RECORDS, run_cli
@@ -268,16 +269,19 @@ def test_csv_site_table_and_draws_file(tmp_path):
     (tmp_path / "sites.json").write_text(json.dumps({"sites": [
         {"label": "M", "draws": "m.csv"}, {"label": "A", "age": 1000, "sd": 10}],
         "seed": 3}))
-    result = synchrony.test_synchrony(tmp_path / "sites.json", draws=4000)
+    result = synchrony.test_synchrony(read_sites(tmp_path / "sites.json"), draws=4000)
+    assert result.provenance.inputs[0].role == "site M"
     assert result.sites[0].mean == pytest.approx(1010, abs=1)
     (tmp_path / "t.csv").write_text("label,age,sd,lower,upper,chronology,independent\n"
                                     "A,1000,10,,,G,true\nB,1010,,990,1030,,yes\n"
                                     "C,995,8,,,G,no\n")
-    table = synchrony.test_synchrony(tmp_path / "t.csv", seed=1, draws=4000)
+    table = synchrony.test_synchrony(read_sites(tmp_path / "t.csv"), seed=1, draws=4000)
     assert [s.independent for s in table.sites] == [True, True, False]
     (tmp_path / "bad.csv").write_text("label,age,sd,independent\nA,1,2,maybe\nB,1,2,true\n")
     with pytest.raises(InputError, match="'A'.*independent"):
-        synchrony.test_synchrony(tmp_path / "bad.csv")
+        read_sites(tmp_path / "bad.csv")
+    with pytest.raises(InputError, match="read_sites"):
+        synchrony.test_synchrony(tmp_path / "t.csv")
 
 
 # --------------------------------------------------------------------------------------------
