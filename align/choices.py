@@ -72,6 +72,8 @@ DEFAULT_SURROGATE_KIND: SurrogateKind = "phase"
 DEFAULT_BOOTSTRAP = 1000
 DEFAULT_SUGGEST_THRESHOLD = 4.0
 DEFAULT_DEPTH_UNITS: DepthUnits = "m"
+#: Most sites in one synchrony request (the outlier sampler's cost grows as their square).
+MAX_SITES = 200
 #: Prior probability that a site of a synchrony test is shifted (outlier model).
 DEFAULT_OUTLIER_PRIOR = 0.05
 

@@ -18,8 +18,9 @@ from pydantic import ConfigDict, Field, PrivateAttr, create_model
 from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD,
                            DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
                            DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_TIMESCALE_MODEL,
-                           DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MIN_LAG_DRAWS, AgeConvention,
-                           BudgetKind, CorrelationMethod, EventPick, GridAxis, OnsetDirection,
+                           DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MAX_SITES, MIN_LAG_DRAWS,
+                           AgeConvention, BudgetKind, CorrelationMethod, EventPick, GridAxis,
+                           OnsetDirection,
                            OnsetMethod, SurrogateKind, SynchronyWhatIfKey, TimescaleModel,
                            WhatIfKey)
 from align.markers import KINDS, Marker, MarkerKindName, MarkerSpec, MarkerTemplate
@@ -457,7 +458,7 @@ class SynchronyRequest(Model):
     """Sites of one horizon (``test_synchrony``; ``corealign synchrony``; ``POST
     /synchrony``)."""
 
-    sites: list[SiteSpec] = Field(min_length=1)
+    sites: list[SiteSpec] = Field(min_length=1, max_length=MAX_SITES)
     age_reference: AgeRef = DEFAULT_AGE_REFERENCE
     draws: int = Field(DEFAULT_LAG_DRAWS, ge=MIN_LAG_DRAWS, le=MAX_LAG_DRAWS)
     seed: int | None = Field(None, ge=0)

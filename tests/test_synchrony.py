@@ -244,6 +244,14 @@ def test_bad_sites_are_refused_by_label_and_field(name, sites, label, field):
     assert f"'{label}'" in str(info.value) and info.value.field == field
 
 
+def test_too_many_sites_are_refused():
+    from align.choices import MAX_SITES
+
+    with pytest.raises(InputError) as info:
+        run([{"label": f"S{i}", "age": 1, "sd": 1} for i in range(MAX_SITES + 1)])
+    assert info.value.field == "sites"
+
+
 def test_fewer_than_two_independent_sites_is_refused():
     with pytest.raises(InputError, match="fewer than two independent sites.*T") as info:
         run([{"label": "A", "age": 1, "sd": 2},
