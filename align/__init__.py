@@ -9,6 +9,7 @@ from align.errors import InputError
 
 #: Public name -> the module that defines it.
 _PUBLIC = {
+    "combined_age_draws": "align.synchrony",
     "convert_age": "align.ages",
     "cross_correlate": "align.xcorr",
     "detect_event": "align.markers.event",
@@ -16,12 +17,14 @@ _PUBLIC = {
     "estimate_lag": "align.lag",
     "open_record": "align.io",
     "read_request": "align.requests",
+    "read_sites": "align.sites",
     "read_survey": "align.requests",
     "record_frame": "align.io",
     "read_ties": "align.ties",
     "resample": "align.resample",
     "save_record": "align.io",
     "survey": "align.survey",
+    "test_synchrony": "align.synchrony",
     "transfer": "align.ties",
     "write_report": "align.report",
 }

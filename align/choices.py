@@ -47,6 +47,9 @@ BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge"]
 #: Machine keys of the what-if rows (the sentences shown to people are in ``align.lag``).
 WhatIfKey = Literal["halve_resolution_a", "halve_resolution_b", "halve_ties", "double_ties",
                     "no_timescale"]
+#: Machine keys of a synchrony result's what-if rows (the sentences are in ``align.synchrony``).
+SynchronyWhatIfKey = Literal["without_top_outlier", "independent_chronologies_only",
+                             "each_chronology_once"]
 #: Formats of a report folder.
 ReportFormat = Literal["html", "md", "json"]
 
@@ -69,6 +72,10 @@ DEFAULT_SURROGATE_KIND: SurrogateKind = "phase"
 DEFAULT_BOOTSTRAP = 1000
 DEFAULT_SUGGEST_THRESHOLD = 4.0
 DEFAULT_DEPTH_UNITS: DepthUnits = "m"
+#: Most sites in one synchrony request (the outlier sampler's cost grows as their square).
+MAX_SITES = 200
+#: Prior probability that a site of a synchrony test is shifted (outlier model).
+DEFAULT_OUTLIER_PRIOR = 0.05
 
 #: Bounds on counts (also the schema's ``ge``/``le``).
 MIN_ONSET_DRAWS, MAX_ONSET_DRAWS = 100, 100_000

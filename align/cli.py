@@ -101,7 +101,7 @@ def build_parser():
     commands = parser.add_subparsers(title="commands", metavar="COMMAND", parser_class=_Parser)
     for add in (_info_parser, _convert_parser, _age_parser, _tie_parser, _suggest_parser,
                 _resample_parser, _align_parser, _detect_parser, _lag_parser, _xcorr_parser,
-                _survey_parser, _report_parser, _serve_parser, _demo_parser):
+                _survey_parser, _synchrony_parser, _report_parser, _serve_parser, _demo_parser):
         add(commands)
     return parser
 
@@ -356,6 +356,24 @@ def _survey_parser(commands):
     survey.set_defaults(run=_survey)
 
 
+def _synchrony_parser(commands):
+    from align.schema import SynchronyRequest
+
+    synchrony = commands.add_parser("synchrony", help="is one horizon the same age at many "
+                                    "sites? test, combined age, spread, outliers")
+    synchrony.add_argument("sites", metavar="SITES", help="site file: a JSON request or a CSV "
+                           "table label,age,sd[,lower,upper,age_reference,chronology,"
+                           "shared_sd,independent]")
+    from_field(synchrony, SynchronyRequest, "seed", default=None,
+               help="random seed (used when the site file gives none)")
+    _to_option(synchrony, C.DEFAULT_AGE_REFERENCE)
+    _output_option(synchrony, "write a report folder", required=False)
+    synchrony.add_argument("--overwrite", action="store_true",
+                           help="replace a report already in the output folder")
+    _json_option(synchrony)
+    synchrony.set_defaults(run=_synchrony)
+
+
 def _report_parser(commands):
     report = commands.add_parser("report", help="render a report again from a saved result")
     report.add_argument("result", metavar="RESULT.json", help="report.json or --json output")
@@ -381,6 +399,9 @@ def _serve_parser(commands):
 
 def _demo_parser(commands):
     demo = commands.add_parser("demo", help="run the main job on the bundled synthetic records")
+    demo.add_argument("mode", nargs="?", default="lag", choices=("lag", "synchrony"),
+                      help="lag (default): the lag job; synchrony: the eruption dated at "
+                           "several invented sites")
     demo.add_argument("-o", "--output", metavar="DIR", default="corealign-demo-report",
                       help="report folder")
     _json_option(demo)
@@ -698,6 +719,17 @@ def _survey(args):
     _finish(result, args, text.survey)
 
 
+def _synchrony(args):
+    from align import text
+    from align.sites import read_sites
+    from align.synchrony import test_synchrony
+
+    request = read_sites(args.sites)
+    with progress_note("testing synchrony"):
+        result = test_synchrony(request, seed=args.seed, age_reference=args.to)
+    _finish(result, args, text.synchrony)
+
+
 def _report(args):
     from align.report import load_result, write_report
 
@@ -712,6 +744,8 @@ def _serve(args):
 
 
 def _demo(args):
+    if args.mode == "synchrony":
+        return _demo_synchrony(args)
     from align.demo import demo_request_path, demo_truth
     from align.lag import estimate_lag
     from align.report import summary, write_report
@@ -728,4 +762,23 @@ def _demo(args):
     print(f"\nknown truth of this synthetic scenario (records/README.md): the event precedes "
           f"the onset by {truth['lag']:g} years ({truth['lag_on_ice_timescale']:g} on the ice "
           f"core's own timescale).")
+    print(f"report: {folder / 'report.html'}")
+
+
+def _demo_synchrony(args):
+    from align import text
+    from align.demo import demo_sites_path, demo_sites_truth
+    from align.report import write_report
+    from align.sites import read_sites
+    from align.synchrony import test_synchrony
+
+    with progress_note("testing synchrony (invented sites, synthetic dates)"):
+        result = test_synchrony(read_sites(demo_sites_path()))
+    folder = write_report(result, args.output, overwrite=True)
+    truth = demo_sites_truth()
+    if args.json:
+        _print_json({"truth": truth, "result": result.to_dict()})
+        return
+    print(text.synchrony(result))
+    print(f"\nknown truth of this invented scenario (records/README.md): {truth['summary']}")
     print(f"report: {folder / 'report.html'}")

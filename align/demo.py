@@ -25,6 +25,16 @@ def demo_truth():
     return json.loads((demo_records_dir() / "truth.json").read_text())
 
 
+def demo_sites_path():
+    """Path of the synchrony demo's site file (one invented eruption at eight sites)."""
+    return demo_records_dir() / "demo_sites.json"
+
+
+def demo_sites_truth():
+    """The synchrony demo's truth as documented in ``records/README.md``."""
+    return json.loads((demo_records_dir() / "demo_sites_truth.json").read_text())
+
+
 def demo_request_path():
     """Path of the demo lag request."""
     return demo_records_dir() / _REQUEST

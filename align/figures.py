@@ -226,3 +226,40 @@ def lag_figures(result):
     return {"overview": overview_figure(result), "marker_a": marker_figure(result.a, "a"),
             "marker_b": marker_figure(result.b, "b"), "lag": lag_figure(result),
             "budget": budget_figure(result)}
+
+
+def synchrony_figure(result):
+    """Each site's age (68 % and 95 %) with its outlier probability, and the combined age's
+    95 % band (hatched when the dates do not support one common age). Drawn on a
+    :class:`matplotlib.figure.Figure` (no pyplot state)."""
+    sites = result.sites
+    with styled((7.5, 0.42 * len(sites) + 1.9)) as (fig, ax):
+        comb = result.combined
+        if comb.supported:
+            ax.axvspan(*comb.age.ci95, color=COLOURS["lag"], alpha=0.15, lw=0,
+                       label="combined 95 %")
+        else:
+            ax.axvspan(*comb.age.ci95, facecolor="none", edgecolor=COLOURS["lag"], lw=0,
+                       hatch="//", alpha=0.5, label="combined 95 % (NOT supported)")
+        ax.axvline(comb.age.median, color=COLOURS["lag"], lw=1, ls="--")
+        for k, site in enumerate(sites):
+            counted = site.independent
+            flagged = counted and (site.outlier_probability or 0.0) > 0.5
+            colour = (COLOURS["b"] if flagged else COLOURS["a"]) if counted else COLOURS["band"]
+            ax.plot(site.age.ci95, [k, k], color=colour, lw=1.2)
+            ax.plot(site.age.ci68, [k, k], color=colour, lw=3.5, solid_capstyle="butt")
+            ax.plot(site.age.median, k, "o" if counted else "s", color=colour, ms=4.5,
+                    mfc="white" if not counted else colour)
+        labels = [s.label + ("" if s.independent else " (not counted)") for s in sites]
+        ax.set_yticks(range(len(sites)), labels, fontsize=8)
+        ax.set_ylim(len(sites) - 0.4, -0.8)
+        right = ax.secondary_yaxis("right")
+        right.set_yticks(range(len(sites)), ["-" if s.outlier_probability is None else
+                                             f"{s.outlier_probability:.2f}" for s in sites],
+                         fontsize=8)
+        right.set_ylabel("P(outlier)")
+        ax.legend(loc="upper left", frameon=False, fontsize=8)
+        ax.set_title(f"Sites of one horizon: p = {result.test.p_value:.3g} for one common age",
+                     loc="left")
+        _age_axis(ax, result.age_reference)
+    return fig

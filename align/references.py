@@ -27,6 +27,13 @@ REFERENCES = {
     "Chapman & Hall. doi:10.1201/9780429246593",
     "dersimonian1986": "DerSimonian, R. and Laird, N. (1986): Meta-analysis in clinical "
     "trials. Controlled Clinical Trials 7, 177-188. doi:10.1016/0197-2456(86)90046-2",
+    "ward1978": "Ward, G. K. and Wilson, S. R. (1978): Procedures for comparing and combining "
+    "radiocarbon age determinations: a critique. Archaeometry 20, 19-31. "
+    "doi:10.1111/j.1475-4754.1978.tb00208.x",
+    "viechtbauer2007": "Viechtbauer, W. (2007): Confidence intervals for the amount of "
+    "heterogeneity in meta-analysis. Statistics in Medicine 26, 37-52. doi:10.1002/sim.2514",
+    "christen1994": "Christen, J. A. (1994): Summarizing a set of radiocarbon determinations: "
+    "a robust approach. Applied Statistics 43, 489-503. doi:10.2307/2986273",
     "cochran1954": "Cochran, W. G. (1954): The combination of estimates from different "
     "experiments. Biometrics 10, 101-129. doi:10.2307/3001666",
 }

@@ -16,11 +16,11 @@ from pathlib import Path
 
 from align.choices import ReportFormat, options
 from align.errors import InputError
-from align.figures import AGE_NOTE, STYLE, lag_figures, survey_figure
+from align.figures import AGE_NOTE, STYLE, lag_figures, survey_figure, synchrony_figure
 from align.io import atomic_write, read_json
 from align.lag import what_if_for
 from align.references import cite
-from align.schema import LagResult, SurveyResult, validate_as
+from align.schema import LagResult, SurveyResult, SynchronyResult, validate_as
 
 FORMATS = options(ReportFormat)
 CAPTIONS = {
@@ -34,6 +34,10 @@ CAPTIONS = {
               "95 % width after each named improvement.",
     "survey": "Each pair's lag with its 95 % interval (grey: not combined) and the combined "
               "estimate.",
+    "synchrony": "Each site's age: thin line 95 %, thick line 68 %, dot median (orange: "
+                 "outlier probability above 0.5; grey squares: not independent, not "
+                 "counted); the purple band is the combined age's 95 % interval, hatched "
+                 "when a combined age is not supported; right: outlier probability.",
 }
 
 
@@ -41,9 +45,10 @@ def load_result(path):
     """Read a saved result (``report.json`` or ``--json`` output) as a result object."""
     data = read_json(path, "result file")
     if not isinstance(data, dict):
-        raise InputError("not a lag or survey result (expected a JSON object)",
+        raise InputError("not a lag, survey or synchrony result (expected a JSON object)",
                          source=str(path))
-    model = SurveyResult if "pairs" in data else LagResult
+    model = (SynchronyResult if "leave_one_out" in data else
+             SurveyResult if "pairs" in data else LagResult)
     try:
         return validate_as(model, data, source=str(path))
     except InputError as exc:
@@ -52,11 +57,11 @@ def load_result(path):
 
 
 def write_report(result, directory, formats=FORMATS, *, overwrite=False):
-    """Write a report folder for a lag or survey result.
+    """Write a report folder for a lag, survey or synchrony result.
 
     Parameters
     ----------
-    result : LagResult or SurveyResult
+    result : LagResult, SurveyResult or SynchronyResult
     directory : str or os.PathLike
         Created if missing; files in it are replaced atomically.
     formats : sequence of {"html", "md", "json"}
@@ -82,7 +87,8 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
         raise InputError("this folder already holds a report; choose another or overwrite "
                          "it", source=str(folder), field="output")
     folder.mkdir(parents=True, exist_ok=True)
-    figures = (lag_figures(result) if isinstance(result, LagResult)
+    figures = (lag_figures(result) if isinstance(result, LagResult) else
+               {"synchrony": synchrony_figure(result)} if isinstance(result, SynchronyResult)
                else {"survey": survey_figure(result)})
     svgs = {}
     for name, fig in figures.items():
@@ -92,7 +98,9 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
         atomic_write(folder / f"{name}.png", lambda tmp, f=fig: f.savefig(
             tmp, format="png", dpi=150))
         svgs[name] = (folder / f"{name}.svg").read_text()
-    blocks = lag_blocks(result) if isinstance(result, LagResult) else survey_blocks(result)
+    blocks = (lag_blocks(result) if isinstance(result, LagResult) else
+              synchrony_blocks(result) if isinstance(result, SynchronyResult) else
+              survey_blocks(result))
     if "json" in formats:
         atomic_write(folder / "report.json", lambda tmp: Path(tmp).write_text(
             json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n"))
@@ -214,6 +222,51 @@ def survey_blocks(result):
     return [("h1", "Survey report"), ("p", result.systematic + ". " + result.assumptions[-1]),
             ("h2", "Combined"), *table, ("figure", "survey"),
             ("h2", "Pairs"), ("table", ["pair", "lag (yr)", "95 % interval (yr)", "use"], rows),
+            ("h2", "Assumptions"), ("list", result.assumptions),
+            ("h2", "References"),
+            ("list", [cite(k) for k in result.references]),
+            *_provenance_blocks(result.provenance)]
+
+
+def synchrony_blocks(result):
+    """The blocks of a synchrony report."""
+    ref = result.age_reference
+    test, comb, spread = result.test, result.combined, result.spread
+    sites = [[s.label, f"{_fmt(s.age.median)}", _interval(s.age.ci95), s.distribution,
+              "-" if s.outlier_probability is None else _fmt(s.outlier_probability, 2),
+              "yes" if s.independent else "no: " + (s.note or ""), s.chronology or "-"]
+             for s in result.sites]
+    loo = [[r.label, _fmt(r.p_value, 3), "yes" if r.consistent else "no",
+            f"{_fmt(r.combined.median)} ({_interval(r.combined.ci95)})", _fmt(r.shift),
+            r.reason or "-"] for r in result.leave_one_out]
+    what_if = [[w.change, ", ".join(w.sites)] + (
+        [_fmt(w.p_value, 3), f"{_fmt(w.combined.median)} ({_interval(w.combined.ci95)})",
+         _fmt(w.could_differ_by, 0)] if w.applicable else [w.note or "", "-", "-"])
+        for w in result.what_if]
+    return [("h1", "Synchrony report"), ("p", result.verdict),
+            ("list", result.cautions),
+            ("h2", "Result"),
+            ("table", ["quantity", "value"], [
+                ["independent sites", str(result.n_independent)],
+                ["test of one common age", f"T = {_fmt(test.statistic, 2)} on {test.dof} dof, "
+                                           f"p = {test.p_value:.3g} ({test.calibration})"],
+                [f"combined age (yr {ref})", f"{_fmt(comb.age.median)} (68 %: "
+                                             f"{_interval(comb.age.ci68)}; 95 %: "
+                                             f"{_interval(comb.age.ci95)})"],
+                ["combined age is", comb.label],
+                ["between-site sd (yr)", f"{_fmt(spread.tau)} (95 %: "
+                                         f"{_interval(spread.ci95)})"],
+                ["spread in words", spread.statement]]),
+            ("figure", "synchrony"),
+            ("h2", "Sites"),
+            ("table", ["site", f"median (yr {ref})", "95 % interval", "distribution",
+                       "P(outlier)", "counted", "chronology"], sites),
+            ("h2", "Leave one out"),
+            ("table", ["without", "p", "consistent", "combined (95 %)", "shift (yr)",
+                       "decisive"], loo),
+            ("h2", "What if"),
+            ("table", ["change", "sites", "p", "combined (95 %)", "could differ by (yr)"],
+             what_if),
             ("h2", "Assumptions"), ("list", result.assumptions),
             ("h2", "References"),
             ("list", [cite(k) for k in result.references]),

@@ -18,9 +18,12 @@ from pydantic import ConfigDict, Field, PrivateAttr, create_model
 from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD,
                            DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
                            DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_TIMESCALE_MODEL,
-                           MAX_LAG_DRAWS, MIN_LAG_DRAWS, BudgetKind, CorrelationMethod,
-                           GridAxis, SurrogateKind, TimescaleModel, WhatIfKey)
-from align.markers import KINDS, Marker, MarkerSpec, MarkerTemplate
+                           DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MAX_SITES, MIN_LAG_DRAWS,
+                           AgeConvention, BudgetKind, CorrelationMethod, EventPick, GridAxis,
+                           OnsetDirection,
+                           OnsetMethod, SurrogateKind, SynchronyWhatIfKey, TimescaleModel,
+                           WhatIfKey)
+from align.markers import KINDS, Marker, MarkerKindName, MarkerSpec, MarkerTemplate
 from align.markers.event import EventCandidate, EventResult, MarkerSample
 from align.markers.onset import Levels, NoiseModel, OnsetResult
 from align.schema_base import (AgeRef, Estimate, InputRef, MarkerBase, MarkerDraws, Model, Pair,
@@ -409,6 +412,158 @@ class GridSummary(Model):
     fine_cells: str
 
 
+# --------------------------------------------------------------------------------------------
+# synchrony: one horizon dated at many sites
+
+
+class SiteSpec(Model):
+    """One site where a horizon was found and dated: a marker on a record (``kind``,
+    ``record``, ``variable``, ``window`` and the kind's options) or a tabulated date (``age``
+    with ``sd``, ``age`` with a 95 % interval ``lower``/``upper``, or ``draws``: a one-column
+    file of age draws, or the draws themselves)."""
+
+    label: str = Field(min_length=1)
+    kind: MarkerKindName | None = None
+    record: str | None = Field(None, description="a path (CLI, library) or a stored record's "
+                                                 "id (HTTP API)")
+    variable: str | None = None
+    window: Pair | None = Field(None, description="where to look for the marker, in the "
+                                                  "site's age reference")
+    mapping: dict[str, Any] | None = Field(None, description="how to read a CSV record")
+    threshold: float | None = Field(None, gt=0, description="events: robust z threshold")
+    baseline_years: float | None = Field(None, gt=0, description="events: baseline span (yr)")
+    pick: EventPick | None = None
+    direction: OnsetDirection | None = None
+    method: OnsetMethod | None = None
+    age: float | None = None
+    sd: float | None = None
+    lower: float | None = None
+    upper: float | None = None
+    draws: str | list[float] | None = Field(None, description="a file of age draws (one "
+                                                               "column; CLI and library) or "
+                                                               "the draws themselves")
+    age_reference: AgeConvention | None = Field(None, description="reference of this site's "
+                                                                  "ages (default: the "
+                                                                  "request's)")
+    chronology: str | None = Field(None, description="sites on one chronology share its "
+                                                     "error")
+    shared_sd: float | None = Field(None, ge=0, description="sd (yr) of the chronology's "
+                                                            "error at this site, part of its "
+                                                            "total uncertainty")
+    independent: bool = Field(True, description="false when the site's chronology was tied "
+                                                "to or tuned on this event")
+
+
+class SynchronyRequest(Model):
+    """Sites of one horizon (``test_synchrony``; ``corealign synchrony``; ``POST
+    /synchrony``)."""
+
+    sites: list[SiteSpec] = Field(min_length=1, max_length=MAX_SITES)
+    age_reference: AgeRef = DEFAULT_AGE_REFERENCE
+    draws: int = Field(DEFAULT_LAG_DRAWS, ge=MIN_LAG_DRAWS, le=MAX_LAG_DRAWS)
+    seed: int | None = Field(None, ge=0)
+    outlier_prior: float = Field(DEFAULT_OUTLIER_PRIOR, gt=0, lt=1)
+
+
+class SiteResult(Model):
+    """One site's age on the common reference, how it was modelled and how it fits."""
+
+    label: str
+    source: Literal["record", "tabulated"]
+    distribution: str
+    age: Estimate
+    mean: float
+    shared_sd: float = Field(description="sd (yr) of the error shared with its chronology")
+    near_gaussian: bool
+    chronology: str | None = None
+    independent: bool
+    outlier_probability: float | None = Field(None, description="posterior probability that "
+                                                                "the site is shifted "
+                                                                "(independent sites only)")
+    note: str | None = None
+
+
+class ConsistencyTest(Model):
+    """The generalised chi-square of one common age over the independent sites."""
+
+    statistic: float
+    dof: int
+    p_value: float
+    level: float
+    consistent: bool
+    calibration: Literal["chi-square", "Monte Carlo"]
+
+
+class CombinedAge(Model):
+    """The common age (GLS over the independent sites); meaningful only when ``supported``."""
+
+    age: Estimate
+    supported: bool
+    label: str
+
+
+class SiteSpread(Model):
+    """Between-site sd of the true ages (yr): DerSimonian-Laird with its Q-profile 95 %
+    interval, and how far two sites' true ages could differ (95 %)."""
+
+    tau: float
+    tau2: float
+    ci95: Pair
+    could_differ_by: float
+    statement: str
+
+
+class LeaveOneOut(Model):
+    """The test and the combined age without one site."""
+
+    label: str
+    p_value: float
+    consistent: bool
+    combined: Estimate
+    shift: float = Field(description="combined median without the site minus with it (yr)")
+    decisive: bool
+    reason: str | None = None
+
+
+class SynchronyWhatIf(Model):
+    """The analysis over another choice of sites; ``key`` is for code, ``change`` for
+    people."""
+
+    key: SynchronyWhatIfKey
+    change: str
+    applicable: bool
+    sites: list[str]
+    p_value: float | None = None
+    consistent: bool | None = None
+    combined: Estimate | None = None
+    could_differ_by: float | None = None
+    note: str | None = None
+
+
+class SynchronyResult(Model):
+    """Is one horizon the same age at many sites? (test, combined age, spread, outliers,
+    influence, what-if, verdict)."""
+
+    request: SynchronyRequest
+    sites: list[SiteResult]
+    n_independent: int
+    test: ConsistencyTest
+    combined: CombinedAge
+    spread: SiteSpread
+    top_outlier: str | None = None
+    leave_one_out: list[LeaveOneOut]
+    what_if: list[SynchronyWhatIf]
+    verdict: str
+    cautions: list[str]
+    assumptions: list[str]
+    references: list[str] = Field([], description="keys of the methods' references "
+                                                  "(align.references)")
+    age_reference: AgeRef
+    provenance: Provenance
+
+    _combined_draws: Any = PrivateAttr(default=None)
+
+
 #: Every name of the schema, including those defined in :mod:`align.schema_base` and the marker
 #: kinds (re-exported here so that the schema has one import path).
 __all__ = [
@@ -420,5 +575,7 @@ __all__ = [
     "NoiseModel", "OnsetRequest", "OnsetResult", "Pair", "PairSpec", "PeakLag",
     "Provenance", "RecordExcerpt", "RecordInfo", "ResampleRequest", "SeriesRef", "Spread",
     "StepCommon", "SurrogateInfo", "SurveyPair", "SurveyResult", "SurveySpec", "Trace",
-    "VariableInfo", "WhatIf", "XcorrRequest", "XcorrResult", "json_schemas", "validate_as"
+    "VariableInfo", "WhatIf", "XcorrRequest", "XcorrResult", "json_schemas", "validate_as",
+    "SiteSpec", "SynchronyRequest", "SiteResult", "ConsistencyTest", "CombinedAge", "SiteSpread",
+    "LeaveOneOut", "SynchronyWhatIf", "SynchronyResult"
 ]

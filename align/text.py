@@ -111,3 +111,38 @@ def survey(result):
         lines.append(f"heterogeneity: Q = {h.q:.1f} on {h.dof} dof (p = {h.p_value:.3g}), "
                      f"between-pair sd {h.tau2 ** 0.5:.1f} yr")
     return "\n".join(lines)
+
+
+def synchrony(result):
+    """A synchrony result: the verdict, one line per site, the test, combined age, spread,
+    influence and what-if rows, then the cautions."""
+    ref = result.age_reference
+    lines = [result.verdict, "", f"{'site':<10} {'median':>9} {'95 % interval':>19}  "
+             f"{'P(outlier)':>10}  counted  chronology"]
+    for site in result.sites:
+        prob = "-" if site.outlier_probability is None else f"{site.outlier_probability:.2f}"
+        lines.append(f"{site.label:<10} {site.age.median:9.1f} {site.age.ci95[0]:9.1f} to "
+                     f"{site.age.ci95[1]:7.1f}  {prob:>10}  "
+                     f"{'yes' if site.independent else 'NO ':<7}  {site.chronology or '-'}")
+    test, comb, spread = result.test, result.combined, result.spread
+    lines += ["", f"test        T = {test.statistic:.2f} on {test.dof} dof, p = "
+                  f"{test.p_value:.3g} ({test.calibration}); "
+                  + ("consistent with one common age" if test.consistent else
+                     "NOT consistent with one common age"),
+              f"combined    {estimate_line(comb.age, ref)}; {comb.label}",
+              f"spread      between-site sd {spread.tau:.1f} yr (95 %: {spread.ci95[0]:.1f} to "
+              f"{spread.ci95[1]:.1f}); {spread.statement}"]
+    decisive = [r for r in result.leave_one_out if r.decisive]
+    for row in decisive:
+        lines.append(f"decisive    {row.label}: {row.reason} (without it p = "
+                     f"{row.p_value:.3g}, combined {row.combined.median:.1f})")
+    lines.append("what if:")
+    for row in result.what_if:
+        if row.applicable:
+            lines.append(f"  {row.change}: p = {row.p_value:.3g}, combined "
+                         f"{estimate_line(row.combined, ref)}")
+        else:
+            lines.append(f"  {row.change}: {row.note}")
+    lines.append("cautions:")
+    lines += [f"  - {c}" for c in result.cautions]
+    return "\n".join(lines)

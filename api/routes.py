@@ -11,8 +11,8 @@ from flask import Blueprint, current_app, jsonify, request, send_file
 from align.errors import InputError
 from align.provenance import sha256_bytes, version
 from align.schema import (DETECT_REQUESTS, KINDS, GridSummary, LagRequest, LagResult,
-                          RecordInfo, ResampleRequest, SurveyResult, SurveySpec, XcorrRequest,
-                          XcorrResult)
+                          RecordInfo, ResampleRequest, SurveyResult, SurveySpec, SynchronyRequest,
+                          SynchronyResult, XcorrRequest, XcorrResult)
 from api.bodies import Health, RecordList, StoredRecord, StoredTies
 from align.ties import read_ties
 from api import tasks
@@ -37,6 +37,13 @@ UPLOAD_SCHEMA = {"type": "object", "required": ["file"], "properties": {
              "description": "NetCDF, or CSV/TSV with a mapping"},
     "mapping": {"type": "string", "description": "JSON object of open_record keywords "
                                                   "(age_column, age_reference, ...)"}}}
+SITES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
+    "file": {"type": "string", "format": "binary",
+             "description": "CSV site table: label,age,sd[,lower,upper,age_reference,"
+                            "chronology,shared_sd,independent]"},
+    "options": {"type": "string", "description": "JSON object: age_reference, draws, seed, "
+                                                 "outlier_prior"}}}
+RESULT_KINDS = ("lag", "survey", "synchrony")
 TIES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
     "file": {"type": "string", "format": "binary",
              "description": "label,depth,ref_depth|ref_age,sd"}}}
@@ -318,6 +325,58 @@ def survey(body):
     return answer(text, location=f"/reports/{report_id}")
 
 
+@endpoint(analysis, "/synchrony", "POST", summary="Is one horizon the same age at many sites? "
+          "(sites tabulated or on stored records)", body=SynchronyRequest,
+          response=SynchronyResult, computes=True)
+def synchrony(body):
+    return _synchrony(body.model_dump(exclude_unset=True), body)
+
+
+@endpoint(analysis, "/synchrony/table", "POST", summary="Synchrony of the sites in an uploaded "
+          "CSV site table", multipart=SITES_SCHEMA, response=SynchronyResult, computes=True)
+def synchrony_table():
+    from align.sites import read_site_table
+
+    raw, name = _upload()
+    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
+                                     delete=False) as handle:
+        handle.write(raw)
+    try:
+        sites = read_site_table(handle.name)
+    except InputError as exc:
+        raise exc.with_source(name) from None
+    finally:
+        Path(handle.name).unlink(missing_ok=True)
+    options = _json_form("options")
+    data = {**options, "sites": sites}
+    return _synchrony(data, SynchronyRequest.model_validate(data))
+
+
+def _json_form(field):
+    text = request.form.get(field)
+    try:
+        value = json.loads(text) if text else {}
+    except json.JSONDecodeError:
+        raise Problem(422, f"{field} is not valid JSON", pointer=f"/{field}") from None
+    if not isinstance(value, dict):
+        raise Problem(422, f"{field} must be a JSON object", pointer=f"/{field}")
+    return value
+
+
+def _synchrony(data, body):
+    limit(body.draws, "MAX_DRAWS", "/draws")
+    paths = {}
+    for k, site in enumerate(body.sites):
+        if isinstance(site.draws, str):
+            raise Problem(422, f"site {site.label!r}: the service takes draws as a list of "
+                               "numbers, not a file name", pointer=f"/sites/{k}/draws")
+        if site.record is not None:
+            paths[site.record] = record_path(site.record, f"/sites/{k}/record")
+    text = compute(tasks.synchrony, data, paths)
+    report_id = store().add_result("synchrony", text)
+    return answer(text, location=f"/reports/{report_id}")
+
+
 def _ties_path(ties_id, pointer):
     if not store().has("ties", ties_id):
         raise Problem(422, f"no stored tie table with id {ties_id!r}", pointer=pointer)
@@ -329,8 +388,8 @@ def _ties_path(ties_id, pointer):
 
 
 def _report_folder(report_id):
-    if store().result_kind(report_id) not in ("lag", "survey"):
-        raise Problem(404, f"no lag or survey result with id {report_id!r}")
+    if store().result_kind(report_id) not in RESULT_KINDS:
+        raise Problem(404, f"no stored result with id {report_id!r}")
     folder = store().report_folder(report_id)
     if not (folder / "report.html").exists():
         compute(tasks.render_report, str(store().path("results", report_id)), str(folder))
@@ -340,8 +399,8 @@ def _report_folder(report_id):
 @endpoint(reports, "/reports/<report_id>", "GET", summary="A stored result (report.json)",
           produces=("application/json",))
 def report_json(report_id):
-    if store().result_kind(report_id) not in ("lag", "survey"):
-        raise Problem(404, f"no lag or survey result with id {report_id!r}")
+    if store().result_kind(report_id) not in RESULT_KINDS:
+        raise Problem(404, f"no stored result with id {report_id!r}")
     return send_file(store().path("results", report_id), mimetype="application/json")
 
 

@@ -95,6 +95,15 @@ def survey(spec, paths):
     return _json(run(spec, sources=StoreSources(paths)))
 
 
+def synchrony(body, paths):
+    from align.synchrony import Sources as SiteSources
+    from align.synchrony import test_synchrony
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return _json(test_synchrony(body, sources=SiteSources(StoreSources(paths))))
+
+
 def render_report(result_path, folder):
     """Render a stored result's report into ``folder`` (a new folder, renamed into place)."""
     import shutil
