@@ -5,6 +5,9 @@ the architecture. Importing :mod:`align` is cheap: each public name loads its mo
 module's dependencies) the first time it is used.
 """
 
+import sys as _sys
+import types as _types
+
 from align.errors import InputError
 
 #: Public name -> the module that defines it.
@@ -32,11 +35,27 @@ _PUBLIC = {
 __all__ = ["InputError", *sorted(_PUBLIC)]
 
 
+def _public(name):
+    from importlib import import_module
+
+    return getattr(import_module(_PUBLIC[name]), name)
+
+
+class _Package(_types.ModuleType):
+    """The package's module type: ``align.survey`` and ``align.resample`` are the functions,
+    even after their modules (of the same names) are imported, which would otherwise replace
+    them with the modules (the modules stay in ``sys.modules``)."""
+
+
+for _name in ("resample", "survey"):
+    setattr(_Package, _name, property(lambda self, _n=_name: _public(_n),
+                                      lambda self, value: None))
+_sys.modules[__name__].__class__ = _Package
+
+
 def __getattr__(name):
     if name in _PUBLIC:
-        from importlib import import_module
-
-        value = getattr(import_module(_PUBLIC[name]), name)
+        value = _public(name)
         globals()[name] = value
         return value
     if name == "__version__":

@@ -43,7 +43,7 @@ CorrelationMethod = Literal["pearson", "kernel"]
 #: Surrogates behind a cross-correlation's p-value.
 SurrogateKind = Literal["phase", "ar1"]
 #: Kinds of lag-budget items.
-BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge"]
+BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge", "combination"]
 #: Machine keys of the what-if rows (the sentences shown to people are in ``align.lag``).
 WhatIfKey = Literal["halve_resolution_a", "halve_resolution_b", "halve_ties", "double_ties",
                     "no_timescale"]

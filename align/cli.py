@@ -276,11 +276,11 @@ def _align_parser(commands):
 
 
 def _detect_parser(commands):
-    from align.markers import KINDS
+    from align.markers import RECORD_KINDS
 
-    detect = commands.add_parser("detect", help="find a marker: " + ", ".join(KINDS))
+    detect = commands.add_parser("detect", help="find a marker: " + ", ".join(RECORD_KINDS))
     kinds = detect.add_subparsers(title="markers", metavar="KIND", parser_class=_Parser)
-    for name, kind in KINDS.items():
+    for name, kind in RECORD_KINDS.items():
         sub = kinds.add_parser(name, help=kind.summary)
         sub.add_argument("target", metavar="RECORD:VARIABLE", help="record and variable")
         sub.add_argument("--window", metavar="YOUNG,OLD", required=kind.window_required,
@@ -299,13 +299,14 @@ def _detect_parser(commands):
 
 
 def _lag_parser(commands):
-    from align.markers import KINDS
+    from align.markers import RECORD_KINDS
     from align.schema import LagRequest
 
     lag = commands.add_parser("lag", help="the lag between two markers, with its budget")
     for side in ("a", "b"):
         lag.add_argument(f"--{side}", metavar="KIND:RECORD:VARIABLE",
-                         help=f"marker {side}: kind ({', '.join(KINDS)}), record, variable")
+                         help=f"marker {side}: kind ({', '.join(RECORD_KINDS)}), record, "
+                              "variable (a sites marker is given in a --request file)")
         lag.add_argument(f"--{side}-window", metavar="YOUNG,OLD", help=f"window of marker {side}")
         lag.add_argument(f"--{side}-transform", choices=C.options(C.Transform),
                          help=f"transform of marker {side}'s variable")
@@ -475,13 +476,13 @@ def record_and_variable(text_):
 
 def marker_flag(text_, window, side):
     """``KIND:RECORD:VARIABLE`` and ``YOUNG,OLD`` as a marker spec dict."""
-    from align.markers import KINDS
+    from align.markers import RECORD_KINDS
 
     kind, sep, rest = (text_ or "").partition(":")
     path, sep2, variable = rest.rpartition(":")
-    if not (sep and sep2 and path and variable) or kind not in KINDS:
+    if not (sep and sep2 and path and variable) or kind not in RECORD_KINDS:
         raise InputError(f"--{side} takes KIND:RECORD:VARIABLE with KIND one of "
-                         f"{', '.join(KINDS)}, got {text_!r}", field=side)
+                         f"{', '.join(RECORD_KINDS)}, got {text_!r}", field=side)
     if window is None:
         raise InputError(f"--{side}-window YOUNG,OLD is needed", field=f"{side}-window")
     return {"kind": kind, "record": path, "variable": variable, "window": parse_window(window)}

@@ -172,6 +172,8 @@ def detect_marker(record, spec, *, seed=None, age_reference=None):
     if wrong:
         raise InputError(f"{wrong[0]!r} is not an option of an {kind.name} marker "
                          f"(options: {', '.join(sorted(known))})", field=wrong[0])
+    if not kind.on_record:
+        return kind.detect(None, None, None, options, seed=seed, age_reference=age_reference)
     record, variable = marker_variable(record, data["variable"], data.get("transform"))
     return kind.detect(record, variable, data.get("window"), options, seed=seed,
                        age_reference=age_reference)

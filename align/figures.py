@@ -24,7 +24,7 @@ COLOURS = {"a": "#1f5fa6", "b": "#d9730d", "lag": "#6a3d9a", "ink": "#333333",
 #: One colour per kind of budget item (distinguishable with the common colour-vision
 #: deficiencies; a key names them in every budget figure).
 KIND_COLOURS = {"resolution": "#1f5fa6", "detection": "#d9730d", "timescale": "#6a3d9a",
-                "tie": "#2a9d8f", "bridge": "#8c6d31"}
+                "tie": "#2a9d8f", "bridge": "#8c6d31", "combination": "#c2185b"}
 STYLE = {"font.size": 9, "axes.spines.top": False, "axes.spines.right": False,
          "axes.titlesize": 10, "axes.titleweight": "bold", "svg.hashsalt": "corealign",
          "svg.fonttype": "path"}
@@ -39,7 +39,9 @@ def _age_axis(ax, reference):
 
 def _steps(ax, top, bottom, values, colour, label=None):
     """Samples drawn as a staircase over their age intervals; gaps and missing values break
-    it (no line across them)."""
+    it (no line across them). A marker that is not on a record has none: nothing is drawn."""
+    if not top:
+        return
     edges, heights = [top[0]], []
     for k, (t, b, v) in enumerate(zip(top, bottom, values)):
         if k and t > edges[-1]:  # a gap between samples

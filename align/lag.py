@@ -137,15 +137,18 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     seed_a, seed_b, seed_mc = (int(s.generate_state(1)[0])
                                for s in np.random.SeedSequence(seed).spawn(3))
     ref = request.age_reference
-    rec_a = with_age_reference(sources.record(request.a), ref)
-    rec_b = sources.record(request.b)
+    rec_a = _on_reference(_record(sources, request.a), ref)
+    rec_b = _record(sources, request.b)
     tie_table = sources.ties(request.ties) if request.ties else None
+    if tie_table is not None and rec_b is None:
+        raise InputError("ties move marker b's record onto a's; marker b has no record",
+                         field="ties")
     if tie_table is not None:
         rec_b = sources.transfer(rec_b, tie_table, rec_a, bridge_rate=request.bridge_rate)
-    rec_b = with_age_reference(rec_b, ref)
+    rec_b = _on_reference(rec_b, ref)
     relation = _relation(rec_a, rec_b)
-    marker_a = _located(detect_marker(rec_a, request.a, seed=seed_a), "a")
-    marker_b = _located(detect_marker(rec_b, request.b, seed=seed_b), "b")
+    marker_a = _detected(rec_a, request.a, seed_a, ref, "a")
+    marker_b = _detected(rec_b, request.b, seed_b, ref, "b")
     kind_a, kind_b = kind_of(marker_a.kind), kind_of(marker_b.kind)
     rng = np.random.default_rng(seed_mc)
     n = request.draws
@@ -161,9 +164,26 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     return result
 
 
-def _located(marker, label):
+def _detected(record, spec, seed, reference, label):
+    """Marker ``label`` found and usable; a problem with it names the field under ``label``."""
+    try:
+        marker = detect_marker(record, spec, seed=seed, age_reference=reference)
+    except InputError as exc:
+        field = exc.field or ""
+        field = field if field.startswith(f"{label}.") else f"{label}.{field}".rstrip(".")
+        raise InputError(exc.message, source=exc.source, field=field, row=exc.row,
+                         row_kind=exc.row_kind, status=exc.status) from None
     kind_of(marker.kind).usable(marker, label)
     return marker
+
+
+def _record(sources, spec):
+    """The record a marker is found on, or None for a kind that is not on a record."""
+    return sources.record(spec) if kind_of(spec.kind).on_record else None
+
+
+def _on_reference(record, reference):
+    return None if record is None else with_age_reference(record, reference)
 
 
 # --------------------------------------------------------------------------------------------
@@ -171,7 +191,10 @@ def _located(marker, label):
 
 
 def _relation(rec_a, rec_b):
-    """``same record``, ``same timescale``, ``tied``, ``shared timescale`` or ``independent``."""
+    """``same record``, ``same timescale``, ``tied``, ``shared timescale`` or ``independent``
+    (a marker that is not on a record carries its own absolute error: independent)."""
+    if rec_a is None or rec_b is None:
+        return "independent"
     attrs_a, attrs_b = rec_a.attrs, rec_b.attrs
     if (attrs_b.get("timescale_kind") == "transferred"
             and attrs_b.get("reference_checksum") == attrs_a.get("source_checksum")):
@@ -201,7 +224,9 @@ def _timescale_parts(relation, rec_a, rec_b, age_a, age_b, model, n, rng):
         e = _bivariate(cov, n, rng)
         return [Part(f"shared timescale ({rec_a.attrs.get('timescale')}): error between the "
                      "markers", "timescale", None, e[:, 0] - e[:, 1])]
-    return [_absolute(rec_a, age_a, "a", +1.0, n, rng), _absolute(rec_b, age_b, "b", -1.0, n, rng)]
+    return [_absolute(rec, age, label, sign, n, rng)
+            for rec, age, label, sign in ((rec_a, age_a, "a", +1.0), (rec_b, age_b, "b", -1.0))
+            if rec is not None]
 
 
 def _sigma_at(record, age):
@@ -296,10 +321,11 @@ def what_if_for(kind, owner):
 
 
 def _what_ifs(center, parts):
-    kinds = {p.kind for p in parts}
+    present = {(p.kind, p.owner) for p in parts} | {(p.kind, None) for p in parts}
     out = []
     for key, (change, scale) in WHAT_IFS.items():
-        if WHAT_IF_KIND[key] not in kinds and WHAT_IF_KIND[key] != "resolution":
+        owner = key[-1] if WHAT_IF_KIND[key] == "resolution" else None
+        if (WHAT_IF_KIND[key], owner) not in present:
             continue
         lag = center + sum(scale(p) * p.draws for p in parts)
         lo, hi = np.percentile(lag, [2.5, 97.5])
@@ -323,7 +349,7 @@ def verdict(summary, marker_a, marker_b):
 
 def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
     out = []
-    kinds = {uncertainty_kind(rec_a), uncertainty_kind(rec_b)}
+    kinds = {uncertainty_kind(r) for r in (rec_a, rec_b) if r is not None}
     if "mce" in kinds:
         out.append("The maximum counting error of a layer-counted timescale is taken as 2 sigma "
                    "(Andersen et al. 2006; common practice).")
@@ -356,7 +382,7 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
 def _references(relation, rec_a, rec_b, marker_a, marker_b):
     """Keys (:mod:`align.references`) of the methods this lag used, each once."""
     keys = []
-    if "mce" in {uncertainty_kind(rec_a), uncertainty_kind(rec_b)}:
+    if "mce" in {uncertainty_kind(r) for r in (rec_a, rec_b) if r is not None}:
         keys.append("andersen2006")
     keys += marker_a.references + marker_b.references
     if relation == "tied":
@@ -365,6 +391,9 @@ def _references(relation, rec_a, rec_b, marker_a, marker_b):
 
 
 def _excerpt(record, marker, label):
+    if record is None:  # not on a record: nothing to draw but its interval
+        return RecordExcerpt(label=f"{label}: {marker.record}", variable=marker.variable,
+                             age_top=[], age_bottom=[], value=[], timescale_sd=[])
     record, _ = marker_variable(record, marker.variable)
     age = record["age"].values
     inside = (age >= marker.window[0]) & (age <= marker.window[1])
@@ -394,7 +423,9 @@ def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, re
     text += f"; the smallest lag resolvable at 95 % with this budget is {resolvable:.0f} years"
     lo, hi = np.percentile(lag, [0.1, 99.9])
     counts, edges = np.histogram(lag, bins=60, range=(lo, hi))
-    inputs = [record_input(rec_a, "a"), record_input(rec_b, "b")]
+    inputs = [item for rec, marker, label in ((rec_a, marker_a, "a"), (rec_b, marker_b, "b"))
+              for item in ([record_input(rec, label)] if rec is not None
+                           else kind_of(marker.kind).inputs(marker, label))]
     if ties is not None:
         inputs.append({"role": "ties", "source": ties.source, "sha256": ties.checksum,
                        "timescale": ""})

@@ -30,6 +30,7 @@ def read_request(path):
     base = Path(path).parent
     for side in ("a", "b"):
         _resolve_record(body.get(side), base)
+        _read_sites(body.get(side), base)
     _resolve_key(body, "ties", base)
     return validate_as(LagRequest, body, source=str(path))
 
@@ -66,6 +67,17 @@ def _object(path, what):
 
 def _resolve_record(spec, base):
     _resolve_key(spec, "record", base)
+
+
+def _read_sites(spec, base):
+    """A ``sites`` marker that names a site file (JSON or CSV) gets the file's sites."""
+    if isinstance(spec, dict) and spec.get("kind") == "sites" and isinstance(spec.get("sites"),
+                                                                               str):
+        from align.sites import read_sites
+
+        _resolve_key(spec, "sites", base)
+        spec["sites"] = [site.model_dump(exclude_unset=True)
+                         for site in read_sites(spec["sites"]).sites]
 
 
 def _resolve_key(mapping, key, base):

@@ -23,7 +23,7 @@ from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_COR
                            OnsetDirection,
                            OnsetMethod, SurrogateKind, SynchronyWhatIfKey, TimescaleModel,
                            WhatIfKey)
-from align.markers import KINDS, Marker, MarkerKindName, MarkerSpec, MarkerTemplate
+from align.markers import KINDS, RECORD_KINDS, Marker, MarkerSpec, MarkerTemplate, RecordKindName
 from align.markers.event import EventCandidate, EventResult, MarkerSample
 from align.markers.onset import Levels, NoiseModel, OnsetResult
 from align.schema_base import (AgeRef, Estimate, InputRef, MarkerBase, MarkerDraws, Model, Pair,
@@ -348,7 +348,7 @@ def _step_request(kind):
 
 
 #: One single-step request class per marker kind (``POST /detect/{kind}``).
-DETECT_REQUESTS = {name: _step_request(kind) for name, kind in KINDS.items()}
+DETECT_REQUESTS = {name: _step_request(kind) for name, kind in RECORD_KINDS.items()}
 EventRequest = DETECT_REQUESTS["event"]
 OnsetRequest = DETECT_REQUESTS["onset"]
 
@@ -423,7 +423,7 @@ class SiteSpec(Model):
     file of age draws, or the draws themselves)."""
 
     label: str = Field(min_length=1)
-    kind: MarkerKindName | None = None
+    kind: RecordKindName | None = None
     record: str | None = Field(None, description="a path (CLI, library) or a stored record's "
                                                  "id (HTTP API)")
     variable: str | None = None

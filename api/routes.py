@@ -10,7 +10,7 @@ from flask import Blueprint, current_app, jsonify, request, send_file
 
 from align.errors import InputError
 from align.provenance import sha256_bytes, version
-from align.schema import (DETECT_REQUESTS, KINDS, GridSummary, LagRequest, LagResult,
+from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest, LagResult,
                           RecordInfo, ResampleRequest, SurveyResult, SurveySpec, SynchronyRequest,
                           SynchronyResult, XcorrRequest, XcorrResult)
 from api.bodies import Health, RecordList, StoredRecord, StoredTies
@@ -226,6 +226,17 @@ def upload_ties():
 # analyses
 
 
+def _tabulated_sites_only(spec, pointer):
+    """A sites marker in a lag takes tabulated dates (draws given as numbers); sites on stored
+    records are combined by POST /synchrony."""
+    for k, site in enumerate(spec.sites):
+        for key in ("record", "draws"):
+            if isinstance(site.get(key), str):
+                raise Problem(422, f"in a lag, a site gives its date (age with sd or an "
+                                   f"interval, or draws as numbers); {key} by name is taken by "
+                                   "POST /synchrony", pointer=f"{pointer}/sites/{k}/{key}")
+
+
 def marker_limits(spec, pointer):
     """The limits on a marker spec's own sizes (kinds that draw)."""
     if getattr(spec, "draws", None) is not None:
@@ -242,7 +253,7 @@ def _detect_view(name):
     return view
 
 
-for _name, _kind in KINDS.items():  # one route per marker kind: POST /detect/{kind}
+for _name, _kind in RECORD_KINDS.items():  # one route per marker kind: POST /detect/{kind}
     endpoint(analysis, f"/detect/{_name}", "POST", summary=f"Find {_kind.summary}",
              body=DETECT_REQUESTS[_name], response=_kind.result, computes=True)(
         _detect_view(_name))
@@ -296,6 +307,9 @@ def lag(body):
     for side in ("a", "b"):
         spec = getattr(body, side)
         marker_limits(spec, f"/{side}")
+        if RECORD_KINDS.get(spec.kind) is None:
+            _tabulated_sites_only(spec, f"/{side}")
+            continue
         paths[spec.record] = record_path(spec.record, f"/{side}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")

@@ -38,9 +38,11 @@ def test_converted_ngrip_table_passes(tmp_path, ngrip_csv):
 
 def test_checker_does_flag_a_broken_file(tmp_path):
     # the check can fail: a coordinate with an invalid unit is a CF error
+    record = open_record(RECORDS / "hvd1_ice.nc")
+    save_record(record, tmp_path / "good.nc")
+    assert cf_problems(tmp_path / "good.nc") == []  # the same file before it is broken
     path = tmp_path / "bad.nc"
-    save_record(open_record(RECORDS / "hvd1_ice.nc"), path)
-    assert cf_problems(path) == []  # the same file before it is broken
+    save_record(record, path)
     import netCDF4
 
     with netCDF4.Dataset(path, "a") as nc:

@@ -13,14 +13,17 @@ from typing import Annotated, Literal, Union
 
 from pydantic import Field
 
-from align.markers import event, onset
+from align.markers import event, onset, sites
 from align.markers.base import MarkerKind, Part
 
 #: Every marker kind, by its ``kind`` tag.
-KINDS: dict[str, MarkerKind] = {k.name: k for k in (event.KIND, onset.KIND)}
+KINDS: dict[str, MarkerKind] = {k.name: k for k in (event.KIND, onset.KIND, sites.KIND)}
 
 #: The kind tags, as a ``Literal``.
 MarkerKindName = Literal[tuple(KINDS)]
+#: The kinds found on a record (``corealign detect KIND``, ``POST /detect/{kind}``, sites).
+RECORD_KINDS = {name: kind for name, kind in KINDS.items() if kind.on_record}
+RecordKindName = Literal[tuple(RECORD_KINDS)]
 
 
 def _tagged(classes):
@@ -45,5 +48,6 @@ def kind_of(name):
     return KINDS[name]
 
 
-__all__ = ["KINDS", "Marker", "MarkerKind", "MarkerKindName", "MarkerSpec", "MarkerTemplate",
+__all__ = ["KINDS", "RECORD_KINDS", "Marker", "MarkerKind", "MarkerKindName", "MarkerSpec",
+           "MarkerTemplate", "RecordKindName",
            "Part", "kind_of"]

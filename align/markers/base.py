@@ -50,13 +50,18 @@ class MarkerKind:
     result: type
     #: Whether a window must be given (a kind that can search a whole record sets False).
     window_required = True
+    #: Whether the marker is found on a record (a kind that combines other dates sets False:
+    #: it has no record, variable or window, and no ``corealign detect`` command).
+    on_record = True
 
     def __init__(self):
         doc = f"A{'n' if self.name[0] in 'aeiou' else ''} {self.name} marker: {self.summary}"
-        self.spec = create_model(f"{self.name.title()}Spec", __base__=(self.options, SpecCommon),
-                                 __doc__=doc)
+        spec_base = (SpecCommon,) if self.on_record else ()
+        template_base = (TemplateCommon,) if self.on_record else ()
+        self.spec = create_model(f"{self.name.title()}Spec",
+                                 __base__=(self.options, *spec_base), __doc__=doc)
         self.template = create_model(f"{self.name.title()}Template",
-                                     __base__=(self.options, TemplateCommon),
+                                     __base__=(self.options, *template_base),
                                      __doc__=doc + " (window from the event table)")
 
     # detection ---------------------------------------------------------------------------
@@ -67,6 +72,11 @@ class MarkerKind:
 
     def usable(self, marker, label):
         """Raise :class:`~align.errors.InputError` when ``marker`` cannot enter a lag."""
+
+    def inputs(self, marker, label):
+        """Provenance inputs of a marker that is not on a record (its own files)."""
+        return [{**i.model_dump(), "role": f"{label}: {i.role}"}
+                for i in marker.provenance.inputs]
 
     # the lag's Monte Carlo ---------------------------------------------------------------
 
