@@ -74,6 +74,8 @@ def overview_figure(result):
     """Both records on the common timescale: samples as steps over their intervals, each
     marker with its 95 % interval, and under each record with a timescale error its sd as a
     band (a record without one gets no empty panel)."""
+    from align.markers import kind_of
+
     sides = (("a", result.figures.records[0], result.a),
              ("b", result.figures.records[1], result.b))
     bands = [any(sd > 0 for sd in excerpt.timescale_sd) for _, excerpt, _ in sides]
@@ -84,10 +86,16 @@ def overview_figure(result):
         for (side, excerpt, marker), band in zip(sides, bands):
             ax = next(panels)
             colour = COLOURS[side]
-            _steps(ax, excerpt.age_top, excerpt.age_bottom, excerpt.value, colour)
-            interval_span(ax, marker.age, colour, f"{marker.kind} {side}")
-            ax.set_ylabel(with_units(excerpt.variable, excerpt.units, excerpt.reference_scale))
-            ax.set_title(f"{excerpt.label}: {marker.kind} in {excerpt.variable}", loc="left")
+            if excerpt.age_top:
+                _steps(ax, excerpt.age_top, excerpt.age_bottom, excerpt.value, colour)
+                interval_span(ax, marker.age, colour, f"{marker.kind} {side}")
+                ax.set_ylabel(with_units(excerpt.variable, excerpt.units,
+                                         excerpt.reference_scale))
+            else:  # a marker that is not on a record draws itself
+                kind_of(marker.kind).draw(ax, marker, colour)
+            what = (f"{marker.kind} in {excerpt.variable}" if excerpt.age_top
+                    else excerpt.variable)
+            ax.set_title(f"{excerpt.label}: {what}", loc="left")
             _legend_beside(ax)
             if band:
                 sd_ax = next(panels)
@@ -115,8 +123,8 @@ def marker_figure(marker, side, ax=None):
         colour = COLOURS[side]
         trace = marker.trace
         _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour, "samples")
-        ax.set_title(kind_of(marker.kind).draw(ax, marker, colour), loc="left")
         ax.set_ylabel(with_units(marker.variable, marker.units, marker.reference_scale))
+        ax.set_title(kind_of(marker.kind).draw(ax, marker, colour), loc="left")
         _legend_beside(ax)
         _age_axis(ax, marker.age_reference)
 

@@ -35,6 +35,14 @@ class SitesOptions(Model):
                        description="Monte Carlo draws of the sites' dates")
 
 
+class SiteAge(Model):
+    """One site's age as the sites marker shows it."""
+
+    label: str
+    age: Estimate
+    independent: bool
+
+
 class SitesResult(MarkerBase):
     """The combined age of a horizon dated at several sites."""
 
@@ -45,6 +53,7 @@ class SitesResult(MarkerBase):
     n_sites: int = Field(description="independent sites combined")
     allow_inconsistent: bool
     synchrony_verdict: str
+    sites: list[SiteAge]
 
     @property
     def age(self):
@@ -84,7 +93,9 @@ class Sites(MarkerKind):
             provenance=found.provenance, combined=combined, consistent=found.test.consistent,
             p_value=found.test.p_value, n_sites=len(used),
             allow_inconsistent=bool(options.get("allow_inconsistent", False)),
-            synchrony_verdict=found.verdict)
+            synchrony_verdict=found.verdict,
+            sites=[SiteAge(label=s.label, age=s.age, independent=s.independent)
+                   for s in found.sites])
         return marker.with_draws(MarkerDraws(age=np.asarray(draws, dtype=float)))
 
     def center(self, marker):
@@ -114,10 +125,20 @@ class Sites(MarkerKind):
         return out
 
     def draw(self, ax, marker, colour):
-        from align.figures import interval_span
+        from align.figures import COLOURS, interval_span
 
+        for k, site in enumerate(marker.sites):
+            shade = colour if site.independent else COLOURS["band"]
+            ax.plot(site.age.ci95, [k, k], color=shade, lw=1.5)
+            ax.plot(site.age.median, k, "o", color=shade, ms=4)
+        ax.set_yticks(range(len(marker.sites)),
+                      [s.label + ("" if s.independent else " (not counted)")
+                       for s in marker.sites], fontsize=7)
+        ax.set_ylim(len(marker.sites) - 0.5, -0.5)
+        ax.set_ylabel("site")
         interval_span(ax, marker.combined, colour, "combined age")
-        return f"Combined age of {marker.record}"
+        return (f"Combined age of {marker.record}"
+                + ("" if marker.consistent else " (NOT consistent: used as allowed)"))
 
     def text(self, marker):
         from align.text import estimate_line
