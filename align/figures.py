@@ -231,6 +231,33 @@ def _draw_survey(result, ax):
     ax.set_title("Survey: each pair's lag (95 %) and the combination", loc="left")
 
 
+def xcorr_figure(result, ax=None):
+    """Correlation against lag with the surrogates' pointwise 95 % band, the peak lag and its
+    95 % interval."""
+    return on_axes(ax, (8.5, 3.2), lambda ax: _draw_xcorr(result, ax))
+
+
+def _draw_xcorr(result, ax):
+    curve = result.curve
+    values = [np.nan if v is None else v for v in curve.r]
+    if curve.surrogate_low:
+        ax.fill_between(curve.lags, [np.nan if v is None else v for v in curve.surrogate_low],
+                        [np.nan if v is None else v for v in curve.surrogate_high],
+                        color=COLOURS["band"], alpha=0.6, lw=0,
+                        label=f"{result.surrogates.kind} surrogates, 95 %")
+    ax.plot(curve.lags, values, color=COLOURS["ink"], lw=1.3, label="r")
+    ax.axvspan(*result.peak_lag.ci95, color=COLOURS["lag"], alpha=0.2, lw=0,
+               label="peak lag 95 %")
+    ax.axvline(result.peak_lag.median, color=COLOURS["lag"], lw=1.5,
+               label=f"peak lag {result.peak_lag.median:.1f} yr")
+    ax.axvline(0.0, color=COLOURS["ink"], lw=1, ls=":")
+    ax.axhline(0.0, color=COLOURS["light"], lw=1)
+    ax.set_xlabel("lag (yr); positive: the pattern is older in a")
+    ax.set_ylabel("correlation r")
+    ax.set_title(f"Cross-correlation of {result.a} with {result.b}", loc="left")
+    _legend_beside(ax)
+
+
 def lag_figures(result):
     """All figures of a lag report, by name."""
     return {"overview": overview_figure(result), "marker_a": marker_figure(result.a, "a"),

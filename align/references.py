@@ -34,6 +34,13 @@ REFERENCES = {
     "heterogeneity in meta-analysis. Statistics in Medicine 26, 37-52. doi:10.1002/sim.2514",
     "christen1994": "Christen, J. A. (1994): Summarizing a set of radiocarbon determinations: "
     "a robust approach. Applied Statistics 43, 489-503. doi:10.2307/2986273",
+    "ebisuzaki1997": "Ebisuzaki, W. (1997): A method to estimate the statistical significance "
+    "of a correlation when the data are serially correlated. J. Climate 10, 2147-2153.",
+    "bretherton1999": "Bretherton, C. S. et al. (1999): The effective number of spatial degrees "
+    "of freedom of a time-varying field. J. Climate 12, 1990-2009 (from memory).",
+    "rehfeld2011": "Rehfeld, K., Marwan, N., Heitzig, J. and Kurths, J. (2011): Comparison of "
+    "correlation analysis techniques for irregularly sampled time series. Nonlin. Processes "
+    "Geophys. 18, 389-404. doi:10.5194/npg-18-389-2011",
     "cochran1954": "Cochran, W. G. (1954): The combination of estimates from different "
     "experiments. Biometrics 10, 101-129. doi:10.2307/3001666",
 }

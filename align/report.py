@@ -16,11 +16,13 @@ from pathlib import Path
 
 from align.choices import ReportFormat, options
 from align.errors import InputError
-from align.figures import AGE_NOTE, STYLE, lag_figures, survey_figure, synchrony_figure
+from align.figures import (AGE_NOTE, STYLE, lag_figures, marker_figure, survey_figure,
+                           synchrony_figure, xcorr_figure)
 from align.io import atomic_write, read_json
 from align.lag import what_if_for
 from align.references import cite
-from align.schema import LagResult, SurveyResult, SynchronyResult, validate_as
+from align.schema import (LagResult, MarkerBase, SurveyResult, SynchronyResult, XcorrResult,
+                          validate_as)
 
 FORMATS = options(ReportFormat)
 CAPTIONS = {
@@ -34,6 +36,10 @@ CAPTIONS = {
               "95 % width after each named improvement.",
     "survey": "Each pair's lag with its 95 % interval (grey: not combined) and the combined "
               "estimate.",
+    "xcorr": "Correlation against lag (positive: the pattern is older in a); grey band: the "
+             "surrogates' central 95 % at each lag; purple: the peak lag with its 95 % "
+             "interval.",
+    "marker": "How the marker was picked.",
     "synchrony": "Each site's age: thin line 95 %, thick line 68 %, dot median (orange: "
                  "outlier probability above 0.5; grey squares: not independent, not "
                  "counted); the purple band is the combined age's 95 % interval, hatched "
@@ -41,14 +47,28 @@ CAPTIONS = {
 }
 
 
+def result_model(data):
+    """The result class of a saved result's JSON (lag, survey, synchrony, cross-correlation,
+    or a marker of any kind)."""
+    from align.markers import KINDS
+
+    if "leave_one_out" in data:
+        return SynchronyResult
+    if "pairs" in data:
+        return SurveyResult
+    if "peak_lag" in data:
+        return XcorrResult
+    if data.get("kind") in KINDS and "budget" not in data:
+        return KINDS[data["kind"]].result
+    return LagResult
+
+
 def load_result(path):
     """Read a saved result (``report.json`` or ``--json`` output) as a result object."""
     data = read_json(path, "result file")
     if not isinstance(data, dict):
-        raise InputError("not a lag, survey or synchrony result (expected a JSON object)",
-                         source=str(path))
-    model = (SynchronyResult if "leave_one_out" in data else
-             SurveyResult if "pairs" in data else LagResult)
+        raise InputError("not a corealign result (expected a JSON object)", source=str(path))
+    model = result_model(data)
     try:
         return validate_as(model, data, source=str(path))
     except InputError as exc:
@@ -87,9 +107,7 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
         raise InputError("this folder already holds a report; choose another or overwrite "
                          "it", source=str(folder), field="output")
     folder.mkdir(parents=True, exist_ok=True)
-    figures = (lag_figures(result) if isinstance(result, LagResult) else
-               {"synchrony": synchrony_figure(result)} if isinstance(result, SynchronyResult)
-               else {"survey": survey_figure(result)})
+    figures, blocks = _contents(result)
     svgs = {}
     for name, fig in figures.items():
         with matplotlib.rc_context(STYLE):  # fixed SVG ids: a redrawn report is byte-identical
@@ -98,9 +116,6 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
         atomic_write(folder / f"{name}.png", lambda tmp, f=fig: f.savefig(
             tmp, format="png", dpi=150))
         svgs[name] = (folder / f"{name}.svg").read_text()
-    blocks = (lag_blocks(result) if isinstance(result, LagResult) else
-              synchrony_blocks(result) if isinstance(result, SynchronyResult) else
-              survey_blocks(result))
     if "json" in formats:
         atomic_write(folder / "report.json", lambda tmp: Path(tmp).write_text(
             json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n"))
@@ -110,6 +125,21 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
         atomic_write(folder / "report.html",
                      lambda tmp: Path(tmp).write_text(page(blocks, svgs)))
     return folder
+
+
+def _contents(result):
+    """The figures (by name) and the blocks of a result's report."""
+    if isinstance(result, LagResult):
+        return lag_figures(result), lag_blocks(result)
+    if isinstance(result, SurveyResult):
+        return {"survey": survey_figure(result)}, survey_blocks(result)
+    if isinstance(result, SynchronyResult):
+        return {"synchrony": synchrony_figure(result)}, synchrony_blocks(result)
+    if isinstance(result, XcorrResult):
+        return {"xcorr": xcorr_figure(result)}, xcorr_blocks(result)
+    if isinstance(result, MarkerBase):
+        return {"marker": marker_figure(result, "a")}, marker_blocks(result)
+    raise InputError(f"no report for a {type(result).__name__}", field="result")
 
 
 # --------------------------------------------------------------------------------------------
@@ -271,6 +301,62 @@ def synchrony_blocks(result):
             ("h2", "References"),
             ("list", [cite(k) for k in result.references]),
             *_provenance_blocks(result.provenance)]
+
+
+def xcorr_blocks(result):
+    """The blocks of a cross-correlation report."""
+    ref = result.age_reference
+    p = ("not tested" if result.p_value is None else
+         f"< {1 / (result.surrogates.count + 1):.2g} (no surrogate reached the peak)"
+         if result.p_value <= 1 / (result.surrogates.count + 1) + 1e-12
+         else f"{result.p_value:.3g}")
+    peak = result.peak_lag
+    order = ("older in a" if peak.ci95[0] > 0 else "younger in a" if peak.ci95[1] < 0
+             else "neither older nor younger in a within its 95 % interval")
+    verdict = ("" if result.p_value is None else
+               " (significant at 5 %)" if result.p_value < 0.05 else " (not significant at 5 %)")
+    lead = (f"The best match of {result.a} with {result.b} is at a lag of {_fmt(peak.median)} "
+            f"yr (95 %: {_interval(peak.ci95)}): the pattern is {order}. Peak r = "
+            f"{_fmt(result.peak_correlation, 2)}, p = {p}{verdict}; effective sample size "
+            f"{_fmt(result.n_eff)}. A correlation shows a shared pattern, not a cause.")
+    return [("h1", "Cross-correlation report"), ("p", lead),
+            ("h2", "Result"),
+            ("table", ["quantity", "value"], [
+                ["records", f"a: {result.a}; b: {result.b}"],
+                ["window", f"{_interval(result.window, 0)} yr {ref}"],
+                ["peak lag (median)", f"{_fmt(result.peak_lag.median)} yr (positive: the "
+                                      "pattern is older in a)"],
+                ["95 % interval of the peak lag", f"{_interval(result.peak_lag.ci95)} yr "
+                                                  f"({result.peak_lag.source})"],
+                ["peak correlation", _fmt(result.peak_correlation, 3)],
+                [f"p against {result.surrogates.count} {result.surrogates.kind} surrogates", p],
+                ["effective sample size", _fmt(result.n_eff)],
+                ["grid step", f"{result.grid_step:g} yr"]]),
+            ("figure", "xcorr"),
+            ("h2", "Assumptions"),
+            ("list", ["The surrogates keep each record's autocorrelation (phase randomisation "
+                      "or AR(1)); the p-value is that of the largest |r| over the whole lag "
+                      "range, so it accounts for having searched all lags.",
+                      "A correlation shows a shared pattern, not a cause; a lag within its "
+                      "interval of zero shows no order."]),
+            ("h2", "References"),
+            ("list", [cite(k) for k in ("ebisuzaki1997", "bretherton1999", "rehfeld2011")]),
+            *_provenance_blocks(result.provenance)]
+
+
+def marker_blocks(marker):
+    """The blocks of a single marker's report (an event, an onset, combined sites)."""
+    from align.markers import kind_of
+
+    ref = marker.age_reference
+    return [("h1", f"Marker report: {marker.kind}"),
+            ("p", f"{kind_of(marker.kind).describe(marker)}: {_fmt(marker.age.median)} yr {ref} "
+                  f"(95 %: {_interval(marker.age.ci95)})."),
+            ("h2", "Result"), ("pre", "\n".join(kind_of(marker.kind).text(marker))),
+            ("figure", "marker"),
+            ("h2", "Method"), ("p", marker.method),
+            ("h2", "References"), ("list", [cite(k) for k in marker.references]),
+            *_provenance_blocks(marker.provenance)]
 
 
 def _provenance_blocks(prov):

@@ -109,10 +109,12 @@ class PeakLag(Model):
 
 
 class Curve(Model):
-    """Correlation against lag (yr)."""
+    """Correlation against lag (yr), with the surrogates' central 95 % at each lag."""
 
     lags: list[float]
     r: list[float | None]
+    surrogate_low: list[float | None] = []
+    surrogate_high: list[float | None] = []
 
 
 class SurrogateInfo(Model):

@@ -372,20 +372,21 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
         raise InputError("max_lag is shorter than one grid step", field="max_lag")
     lags = np.arange(-k, k + 1) * step
     if method == "pearson":
-        r, n_eff, p_value, ci, source = _pearson(rec_a, var_a, rec_b, var_b, window, step, k,
-                                                 lags, surrogates, surrogate_kind, bootstrap,
-                                                 rng)
+        r, n_eff, test, ci, source = _pearson(rec_a, var_a, rec_b, var_b, window, step, k,
+                                              lags, surrogates, surrogate_kind, bootstrap, rng)
     else:
-        r, n_eff, p_value, ci, source = _kernel(rec_a, var_a, rec_b, var_b, window, step, lags,
-                                                surrogates, bootstrap, rng)
+        r, n_eff, test, ci, source = _kernel(rec_a, var_a, rec_b, var_b, window, step, lags,
+                                             surrogates, bootstrap, rng)
+    p_value, band = test
     peak, peak_r = refine_peak(lags, r)
     return XcorrResult(
         a=f"{record_name(rec_a)} {var_a}", b=f"{record_name(rec_b)} {var_b}", window=window,
         method=method, peak_lag=PeakLag(median=peak, ci95=ci, source=source),
         peak_correlation=peak_r, p_value=p_value, n_eff=float(n_eff),
         surrogates=SurrogateInfo(kind=surrogate_kind, count=int(surrogates)),
-        curve=Curve(lags=lags.tolist(), r=[None if not np.isfinite(v) else float(v)
-                                           for v in r]),
+        curve=Curve(lags=lags.tolist(), r=_finite(r),
+                    surrogate_low=[] if band is None else _finite(band[0]),
+                    surrogate_high=[] if band is None else _finite(band[1])),
         grid_step=step, age_reference=ref,
         provenance=provenance(inputs=[record_input(rec_a, "a"), record_input(rec_b, "b")],
                               parameters={"variables": [var_a, var_b], "max_lag": max_lag,
@@ -394,6 +395,33 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
                                           "surrogate_kind": surrogate_kind, "window": window,
                                           "bootstrap": bootstrap},
                               seed=seed))
+
+
+def _finite(values):
+    return [None if not np.isfinite(v) else float(v) for v in values]
+
+
+def surrogate_test(r, r_s):
+    """The p-value of the correlation peak against surrogates and their pointwise band.
+
+    Parameters
+    ----------
+    r : numpy.ndarray (lags,)
+        The correlation curve.
+    r_s : numpy.ndarray (surrogates, lags)
+        The curves of the surrogates.
+
+    Returns
+    -------
+    p_value : float
+        ``(1 + #{max |r_s| >= max |r|}) / (1 + surrogates)``, the usual Monte Carlo p-value
+        (never below ``1 / (surrogates + 1)``; common practice).
+    band : numpy.ndarray (2, lags)
+        The surrogates' central 95 % of r at each lag.
+    """
+    peak = np.nanmax(np.abs(r))
+    p_value = float((np.sum(np.nanmax(np.abs(r_s), axis=1) >= peak) + 1) / (r_s.shape[0] + 1))
+    return p_value, np.nanpercentile(r_s, [2.5, 97.5], axis=0)
 
 
 def _overlap(rec_a, rec_b, window):
@@ -418,13 +446,10 @@ def _pearson(rec_a, var_a, rec_b, var_b, window, step, k, lags, surrogates, kind
     valid = np.isfinite(xa) & np.isfinite(xb)
     n_eff = effective_sample_size(int(valid.sum()), lag1_autocorrelation(xa[valid]),
                                   lag1_autocorrelation(xb[valid]))
-    p_value = None
+    test = (None, None)
     if surrogates:
         make = phase_surrogates if kind == "phase" else ar1_surrogates
-        r_s, _ = ccf(xa[None, :], make(xb, surrogates, rng), k)
-        peak_r = np.nanmax(np.abs(r))
-        p_value = float((np.sum(np.nanmax(np.abs(r_s), axis=1) >= peak_r) + 1)
-                        / (surrogates + 1))
+        test = surrogate_test(r, ccf(xa[None, :], make(xb, surrogates, rng), k)[0])
     ensembles = [v for v in ("_a_ensemble", "_b_ensemble") if v in grid]
     if ensembles:
         count = min(grid[v].sizes["member"] for v in ensembles)
@@ -439,7 +464,7 @@ def _pearson(rec_a, var_a, rec_b, var_b, window, step, k, lags, surrogates, kind
         peaks = block_bootstrap_peaks(numerator, denominator, lags,
                                       valid.sum() / max(n_eff, 1.0), bootstrap, rng)
         source = "moving-block bootstrap (blocks of n / n_eff grid points)"
-    return r, n_eff, p_value, [float(v) for v in np.percentile(peaks, [2.5, 97.5])], source
+    return r, n_eff, test, [float(v) for v in np.percentile(peaks, [2.5, 97.5])], source
 
 
 def _kernel(rec_a, var_a, rec_b, var_b, window, step, lags, surrogates, bootstrap, rng):
@@ -458,13 +483,11 @@ def _kernel(rec_a, var_a, rec_b, var_b, window, step, lags, surrogates, bootstra
     r1 = ar1_persistence(ta, xa - xa.mean())
     r2 = ar1_persistence(tb, xb - xb.mean())
     n_eff = effective_sample_size(min(ta.size, tb.size), r1, r2)
-    p_value = None
+    test = (None, None)
     if surrogates:
         sims = simulate_ar1(tb, persistence_time(tb, r2), xb.std(), surrogates, rng)
-        r_s = kernel_ccf(ta, xa, tb, sims, lags, width)[0]
-        p_value = float((np.sum(np.nanmax(np.abs(r_s), axis=1) >= np.nanmax(np.abs(r))) + 1)
-                        / (surrogates + 1))
+        test = surrogate_test(r, kernel_ccf(ta, xa, tb, sims, lags, width)[0])
     boot = block_bootstrap_peaks(numerator, denominator, lags, ta.size / max(n_eff, 1.0),
                                  bootstrap, rng)
-    return (r, n_eff, p_value, [float(v) for v in np.percentile(boot, [2.5, 97.5])],
+    return (r, n_eff, test, [float(v) for v in np.percentile(boot, [2.5, 97.5])],
             "moving-block bootstrap over the samples of a")

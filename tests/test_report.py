@@ -98,3 +98,26 @@ def test_survey_report(tmp_path):
     assert f"{result.heterogeneity.q:.2f} ({result.heterogeneity.dof}," in md
     for pair in result.pairs:
         assert pair.label in md
+
+
+@pytest.mark.parametrize("command, title", [
+    (("xcorr", f"{RECORDS / 'hvd1_ice.nc'}:d18O", f"{RECORDS / 'trv3_lake.nc'}:d18O",
+      "--max-lag", "300", "--surrogates", "100", "--bootstrap", "100", "--seed", "1"),
+     "Cross-correlation report"),
+    (("detect", "onset", f"{RECORDS / 'trv3_lake.nc'}:d18O", "--window", "11900,12500",
+      "--draws", "300", "--seed", "1"), "Marker report: onset"),
+    (("detect", "event", f"{RECORDS / 'hvd1_ice.nc'}:sulfate", "--window", "12150,12350"),
+     "Marker report: event"),
+])
+def test_report_on_any_saved_result(tmp_path, command, title):
+    """``corealign report`` renders every result type the CLI saves with --json."""
+    done = run_cli(*command, "--json")
+    assert done.returncode == 0, done.stderr
+    saved = tmp_path / "result.json"
+    saved.write_text(done.stdout)
+    again = run_cli("report", saved, "-o", tmp_path / "report")
+    assert again.returncode == 0, again.stderr
+    page = (tmp_path / "report" / "report.html").read_text()
+    assert f"<h1>{title}</h1>" in page and page.count("<svg") == 1
+    assert json.loads((tmp_path / "report" / "report.json").read_text()) == json.loads(
+        done.stdout)
