@@ -403,8 +403,9 @@ def _demo_parser(commands):
     demo.add_argument("mode", nargs="?", default="lag", choices=("lag", "synchrony"),
                       help="lag (default): the lag job; synchrony: the eruption dated at "
                            "several invented sites")
-    demo.add_argument("-o", "--output", metavar="DIR", default="corealign-demo-report",
-                      help="report folder")
+    demo.add_argument("-o", "--output", metavar="DIR",
+                      help="report folder (default: ./corealign-demo-report, or "
+                           "./corealign-demo-synchrony for the synchrony demo)")
     _json_option(demo)
     demo.set_defaults(run=_demo)
 
@@ -754,7 +755,7 @@ def _demo(args):
 
     with progress_note("running the demo (synthetic records, invented scenario)"):
         result = estimate_lag(read_request(demo_request_path()))
-    folder = write_report(result, args.output, overwrite=True)
+    folder = write_report(result, args.output or "corealign-demo-report", overwrite=True)
     truth = demo_truth()
     if args.json:
         _print_json({"truth": truth, "result": result.to_dict()})
@@ -775,7 +776,7 @@ def _demo_synchrony(args):
 
     with progress_note("testing synchrony (invented sites, synthetic dates)"):
         result = test_synchrony(read_sites(demo_sites_path()))
-    folder = write_report(result, args.output, overwrite=True)
+    folder = write_report(result, args.output or "corealign-demo-synchrony", overwrite=True)
     truth = demo_sites_truth()
     if args.json:
         _print_json({"truth": truth, "result": result.to_dict()})
