@@ -79,6 +79,50 @@ def trace_list(values):
     return out.tolist()
 
 
+#: Samples a stored trace keeps at most (a figure is a few hundred to a few thousand pixels
+#: wide, common practice for line plots of long series).
+TRACE_POINTS = 4000
+
+
+def trace_points(values, limit=TRACE_POINTS):
+    """Positions of the samples a figure of ``values`` needs: all of them up to ``limit``,
+    else the first, the last and each bucket's smallest and largest value.
+
+    Parameters
+    ----------
+    values : numpy.ndarray (n,)
+        Sample values in plotting order; NaN is missing.
+    limit : int
+        Most positions returned (at least 4).
+
+    Returns
+    -------
+    numpy.ndarray of int
+        Increasing positions into ``values``.
+
+    Notes
+    -----
+    Min/max decimation: the ``n`` samples are cut into ``limit // 2 - 1`` runs of equal
+    length and each run keeps the positions of its extremes, so a one-sample spike survives
+    and a line through the kept points has the envelope of the full series. A run with only
+    missing values keeps its first position (a gap stays a gap).
+    """
+    values = np.asarray(values, dtype=float)
+    n = values.size
+    if n <= limit:
+        return np.arange(n)
+    runs = max(limit // 2 - 1, 1)
+    size = -(-n // runs)
+    padded = np.full(runs * size, np.nan)
+    padded[:n] = values
+    rows = padded.reshape(runs, size)
+    starts = np.arange(runs) * size
+    low = starts + np.argmin(np.where(np.isnan(rows), np.inf, rows), axis=1)
+    high = starts + np.argmax(np.where(np.isnan(rows), -np.inf, rows), axis=1)
+    kept = np.unique(np.concatenate([[0, n - 1], low, high]))
+    return kept[kept < n]
+
+
 def onset_bootstrap(t, x, w, sign, draws, rng):
     fit = fit_ramp(t, x, w, sign)
     fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
