@@ -21,6 +21,10 @@ from align.transforms import marker_variable
 #: Pilot replicates that estimate the bias of the noise parameters.
 PILOT = 100
 
+#: Values of bootstrap replicates held at once (8 MB): long series are simulated and fitted
+#: in chunks of rows, in the order one (draws, n) array would be drawn.
+CHUNK_VALUES = 1_000_000
+
 
 def estimate(draws):
     """Median, 68 % and 95 % central intervals and sd of a sample of draws."""
@@ -124,6 +128,12 @@ def trace_points(values, limit=TRACE_POINTS):
 
 
 def onset_bootstrap(t, x, w, sign, draws, rng):
+    """Ramp fit and AR(1) parametric bootstrap of its corners and levels.
+
+    Returns the (finite) bootstrap rows ``t1, t2, x1, x2``, the fit and its noise model.
+    Replicates are simulated and refitted ``CHUNK_VALUES // n`` rows at a time, so memory
+    does not grow as ``draws x n``; the draws are the same as in one block.
+    """
     fit = fit_ramp(t, x, w, sign)
     fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
     resid = x - fitted
@@ -131,8 +141,10 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     sd = residual_sd(resid, w, a)
     a, sd, a_draws, sd_draws = noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
     tau_draws = persistence_time(t, a_draws)
-    samples = bootstrap_ramps(t, w, fitted, simulate_ar1(t, tau_draws, sd_draws, draws, rng),
-                              sign)
+    rows = max(1, CHUNK_VALUES // t.size)  # replicates simulated and fitted at a time
+    samples = np.vstack([bootstrap_ramps(t, w, fitted, simulate_ar1(
+        t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign)
+        for s in range(0, draws, rows)])
     samples = samples[np.all(np.isfinite(samples), axis=1)]
     return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
 
