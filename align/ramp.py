@@ -121,9 +121,9 @@ def fit_ramp(t, x, w, sign=0):
     Up to ``EXHAUSTIVE`` samples every pair of sample corners is tried (``O(n^2)`` pairs);
     beyond, the pairs on every ``s = n // EXHAUSTIVE``-th sample, then every pair within
     ``s`` samples of the best coarse pairs (:func:`align._kernels.ramp_search` with
-    ``full``), so the search costs ``O(n)``. The refinement minimises the SSR profiled over the levels (closed
-    form) with respect to continuous ``t1 < t2`` (Nelder-Mead), starting from the best pair
-    of samples.
+    ``full``), so the search costs ``O(n)``. The refinement minimises the SSR profiled over
+    the levels (closed form) with respect to continuous ``t1 < t2`` (Nelder-Mead), starting
+    from the best pair of samples.
     """
     from align._kernels import ramp_levels, ramp_search
 
