@@ -240,7 +240,7 @@ STARTS = 4
 
 
 @njit(cache=True, nogil=True)
-def ramp_search(t, w, X, sign, step, min_plateau):
+def ramp_search(t, w, X, sign, step, min_plateau, full=False):
     """Least-squares ramp fits (Mudelsee 2000) of many series on one irregular time axis.
 
     Parameters
@@ -260,6 +260,10 @@ def ramp_search(t, w, X, sign, step, min_plateau):
         within one sample; the best result wins (``step = 1``: exhaustive).
     min_plateau : int
         Samples required on each plateau (at or before the onset, at or after the end).
+    full : bool
+        Before that refinement, search every pair with both corners within ``step`` of each
+        coarse pair's (``(2 step + 1)^2`` pairs per start): then the optimum is found
+        whenever the coarse pair nearest it ranks among the ``STARTS`` best.
 
     Returns
     -------
@@ -322,6 +326,13 @@ def ramp_search(t, w, X, sign, step, min_plateau):
             if top_i[start] < 0:
                 break
             ci, cj, cq = top_i[start], top_j[start], top_q[start]
+            if full:
+                i0, i1, j0, j1 = ci - step, ci + step, cj - step, cj + step
+                for i in range(max(lo_i, i0), min(hi_j - 1, i1) + 1):
+                    for j in range(max(j0, i + 1, lo_i + 1), min(hi_j, j1) + 1):
+                        b, a, q = _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+                        if q > cq and (sign == 0 or b * sign > 0):
+                            cq, ci, cj = q, i, j
             moved = True
             rounds = 0
             while moved and rounds < 8:  # each corner in turn, then both within one sample

@@ -21,6 +21,10 @@ from align.transforms import marker_variable
 #: Pilot replicates that estimate the bias of the noise parameters.
 PILOT = 100
 
+#: Values of bootstrap replicates held at once (8 MB): long series are simulated and fitted
+#: in chunks of rows, in the order one (draws, n) array would be drawn.
+CHUNK_VALUES = 1_000_000
+
 
 def estimate(draws):
     """Median, 68 % and 95 % central intervals and sd of a sample of draws."""
@@ -79,7 +83,57 @@ def trace_list(values):
     return out.tolist()
 
 
+#: Samples a stored trace keeps at most (a figure is a few hundred to a few thousand pixels
+#: wide, common practice for line plots of long series).
+TRACE_POINTS = 4000
+
+
+def trace_points(values, limit=TRACE_POINTS):
+    """Positions of the samples a figure of ``values`` needs: all of them up to ``limit``,
+    else the first, the last and each bucket's smallest and largest value.
+
+    Parameters
+    ----------
+    values : numpy.ndarray (n,)
+        Sample values in plotting order; NaN is missing.
+    limit : int
+        Most positions returned (at least 4).
+
+    Returns
+    -------
+    numpy.ndarray of int
+        Increasing positions into ``values``.
+
+    Notes
+    -----
+    Min/max decimation: the ``n`` samples are cut into ``limit // 2 - 1`` runs of equal
+    length and each run keeps the positions of its extremes, so a one-sample spike survives
+    and a line through the kept points has the envelope of the full series. A run with only
+    missing values keeps its first position (a gap stays a gap).
+    """
+    values = np.asarray(values, dtype=float)
+    n = values.size
+    if n <= limit:
+        return np.arange(n)
+    runs = max(limit // 2 - 1, 1)
+    size = -(-n // runs)
+    padded = np.full(runs * size, np.nan)
+    padded[:n] = values
+    rows = padded.reshape(runs, size)
+    starts = np.arange(runs) * size
+    low = starts + np.argmin(np.where(np.isnan(rows), np.inf, rows), axis=1)
+    high = starts + np.argmax(np.where(np.isnan(rows), -np.inf, rows), axis=1)
+    kept = np.unique(np.concatenate([[0, n - 1], low, high]))
+    return kept[kept < n]
+
+
 def onset_bootstrap(t, x, w, sign, draws, rng):
+    """Ramp fit and AR(1) parametric bootstrap of its corners and levels.
+
+    Returns the (finite) bootstrap rows ``t1, t2, x1, x2``, the fit and its noise model.
+    Replicates are simulated and refitted ``CHUNK_VALUES // n`` rows at a time, so memory
+    does not grow as ``draws x n``; the draws are the same as in one block.
+    """
     fit = fit_ramp(t, x, w, sign)
     fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
     resid = x - fitted
@@ -87,8 +141,10 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     sd = residual_sd(resid, w, a)
     a, sd, a_draws, sd_draws = noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
     tau_draws = persistence_time(t, a_draws)
-    samples = bootstrap_ramps(t, w, fitted, simulate_ar1(t, tau_draws, sd_draws, draws, rng),
-                              sign)
+    rows = max(1, CHUNK_VALUES // t.size)  # replicates simulated and fitted at a time
+    samples = np.vstack([bootstrap_ramps(t, w, fitted, simulate_ar1(
+        t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign)
+        for s in range(0, draws, rows)])
     samples = samples[np.all(np.isfinite(samples), axis=1)]
     return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
 

@@ -22,6 +22,10 @@ from scipy.optimize import minimize
 #: Samples required on each plateau of a fitted ramp.
 MIN_PLATEAU = 2
 
+#: Samples up to which the main fit searches every pair of corners; longer series are
+#: searched coarse-to-fine on about this many candidate corners, so the cost grows as n.
+EXHAUSTIVE = 1000
+
 
 def ramp(t, t1, t2, x1, x2):
     """The ramp function.
@@ -93,7 +97,7 @@ class RampFit:
 
 
 def fit_ramp(t, x, w, sign=0):
-    """Best ramp: exhaustive search over sample corners, then continuous refinement.
+    """Best ramp: search over sample corners, then continuous refinement.
 
     Parameters
     ----------
@@ -114,12 +118,17 @@ def fit_ramp(t, x, w, sign=0):
 
     Notes
     -----
-    The refinement minimises the SSR profiled over the levels (closed form) with respect to
-    continuous ``t1 < t2`` (Nelder-Mead), starting from the best pair of samples.
+    Up to ``EXHAUSTIVE`` samples every pair of sample corners is tried (``O(n^2)`` pairs);
+    beyond, the pairs on every ``s = n // EXHAUSTIVE``-th sample, then every pair within
+    ``s`` samples of the best coarse pairs (:func:`align._kernels.ramp_search` with
+    ``full``), so the search costs ``O(n)``. The refinement minimises the SSR profiled over
+    the levels (closed form) with respect to continuous ``t1 < t2`` (Nelder-Mead), starting
+    from the best pair of samples.
     """
     from align._kernels import ramp_levels, ramp_search
 
-    best = ramp_search(t, w, x[None, :], int(sign), 1, MIN_PLATEAU)[0]
+    step = max(1, t.size // EXHAUSTIVE)
+    best = ramp_search(t, w, x[None, :], int(sign), step, MIN_PLATEAU, True)[0]
     i, j = int(best[5]), int(best[6])
     edge = i <= MIN_PLATEAU - 1 or j >= t.size - MIN_PLATEAU
 

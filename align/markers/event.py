@@ -107,7 +107,8 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
         the threshold (a normal result, not an error).
     """
     from align.anomaly import robust_z, runs_above
-    from align.detect import prepare_window, trace_list, uniform_estimate, variable_units
+    from align.detect import (prepare_window, trace_list, trace_points, uniform_estimate,
+                              variable_units)
     from align.provenance import provenance, record_input
     from align.record import age_reference as reference_of
     from align.record import record_name
@@ -142,6 +143,7 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
         age_span=[float(bounds[a:b + 1, 0].min()), float(bounds[a:b + 1, 1].max())],
         depth_span=None if depth is None else [float(depth[a]), float(depth[b])],
         peak_z=float(np.nanmax(z[a:b + 1])), n_samples=int(b - a + 1)) for a, b in runs]
+    inside = inside[trace_points(values[inside])]  # what a figure needs, spikes kept
     trace = Trace(age_top=bounds[inside, 0].tolist(), age_bottom=bounds[inside, 1].tolist(),
                   value=trace_list(values[inside]), curve_age=age[inside].tolist(),
                   curve=trace_list(baseline[inside]),
