@@ -61,7 +61,10 @@ def main(argv=None):
         return 2
     warnings.showwarning = _one_line_warning
     try:
-        code = args.run(args) or 0
+        from align.progress import reporting
+
+        with reporting():
+            code = args.run(args) or 0
         sys.stdout.flush()  # a closed pipe shows here, not at exit
         return code
     except InputError as exc:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from align.errors import InputError
+from align.progress import steps
 from align.markers.onset import NoiseModel
 from align.noise import ar1_persistence, persistence_time, simulate_ar1
 from align.ramp import bootstrap_ramps, fit_ramp, ramp, ramps
@@ -142,9 +143,14 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     a, sd, a_draws, sd_draws = noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
     tau_draws = persistence_time(t, a_draws)
     rows = max(1, CHUNK_VALUES // t.size)  # replicates simulated and fitted at a time
-    samples = np.vstack([bootstrap_ramps(t, w, fitted, simulate_ar1(
-        t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign)
-        for s in range(0, draws, rows)])
+    progress = steps("onset bootstrap", draws, "replicates") if draws > rows else None
+    chunks = []
+    for s in range(0, draws, rows):
+        chunks.append(bootstrap_ramps(t, w, fitted, simulate_ar1(
+            t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign))
+        if progress is not None:
+            progress.step(len(chunks[-1]))
+    samples = np.vstack(chunks)
     samples = samples[np.all(np.isfinite(samples), axis=1)]
     return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
 

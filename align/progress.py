@@ -10,6 +10,32 @@ from __future__ import annotations
 import sys
 import threading
 import time
+from contextlib import contextmanager
+from contextvars import ContextVar
+
+#: Settings of the progress reporting in force (None: long steps report nothing).
+_ACTIVE = ContextVar("corealign_progress", default=None)
+
+
+@contextmanager
+def reporting(stream=None, every=5.0):
+    """Within this block, long steps of the library report their progress (the CLI turns it
+    on; a library caller may too). Outside it they are silent."""
+    token = _ACTIVE.set({"stream": stream, "every": every})
+    try:
+        yield
+    finally:
+        _ACTIVE.reset(token)
+
+
+def steps(what, total, unit="steps"):
+    """A started :class:`Progress` of ``total`` steps when reporting is on, else None."""
+    settings = _ACTIVE.get()
+    if settings is None:
+        return None
+    progress = Progress(what, unit=unit, **settings)
+    progress.begin(total)
+    return progress
 
 
 class Progress:

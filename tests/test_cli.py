@@ -73,3 +73,23 @@ def test_a_report_is_not_overwritten_by_accident(tmp_path):
     assert again.returncode == 2 and "already holds a report" in again.stderr
     forced = run_cli("report", tmp_path / "report.json", "-o", tmp_path, "--overwrite")
     assert forced.returncode == 0, forced.stderr
+
+
+def test_onset_bootstrap_reports_counts_and_time_left(tmp_path):
+    """A bootstrap larger than one chunk reports replicates done, one line at a time."""
+    import numpy as np
+
+    from align.io import save_record
+    from align.record import build_record
+
+    rng = np.random.default_rng(1)
+    age = np.arange(1000.0, 21000.0, 1.0) + 0.5
+    values = np.where(age < 11000, 1.0, 0.0) + rng.normal(0, 0.2, age.size)
+    save_record(build_record(age=age, age_reference="b2k", proxies={"x": (values, {})}),
+                tmp_path / "long.nc")
+    done = run_cli("detect", "onset", f"{tmp_path / 'long.nc'}:x", "--window", "8000,14000",
+                   "--draws", "300", "--seed", "1")
+    assert done.returncode == 0, done.stderr
+    lines = [line for line in done.stderr.splitlines() if "onset bootstrap" in line]
+    assert "300 replicates to do" in lines[0]
+    assert lines[-1].startswith("corealign: onset bootstrap: 300/300 replicates")
