@@ -80,6 +80,18 @@ class MarkerKind:
 
     # the lag's Monte Carlo ---------------------------------------------------------------
 
+    #: What gets a marker's draws back when it was read from JSON (which keeps none).
+    redo = "detect it again"
+
+    def draws_of(self, marker):
+        """The marker's :class:`~align.schema_base.MarkerDraws`, or a clear refusal."""
+        if marker.draws is None:
+            from align.errors import InputError
+
+            raise InputError(f"this {self.name} marker carries no draws (read back from JSON); "
+                             f"{self.redo} to use it in a lag", field="draws")
+        return marker.draws
+
     def center(self, marker):
         """The marker's central age (yr): where the timescale errors are evaluated."""
         raise NotImplementedError

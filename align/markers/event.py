@@ -17,7 +17,7 @@ from align.choices import (DEFAULT_EVENT_DIRECTION, DEFAULT_EVENT_PICK, DEFAULT_
                            EventDirection, EventPick, check_choice)
 from align.errors import InputError
 from align.markers.base import MarkerKind, Part
-from align.schema_base import Estimate, MarkerBase, MarkerDraws, Model, Pair
+from align.schema_base import Estimate, MarkerBase, Model, Pair
 
 #: Default running-median span of the event baseline, in median sample intervals.
 BASELINE_SAMPLES = 25
@@ -184,10 +184,8 @@ class Event(MarkerKind):
     window_required = False
 
     def detect(self, record, variable, window, options, *, seed, age_reference):
-        marker = detect_event(record, variable, window, age_reference=age_reference, **options)
-        if marker.found:
-            marker.with_draws(MarkerDraws(age=np.asarray(marker.sample.age_interval)))
-        return marker
+        # no draws to keep: the age is uniform over the sample, which the result holds
+        return detect_event(record, variable, window, age_reference=age_reference, **options)
 
     def usable(self, marker, label):
         if not marker.found:

@@ -238,10 +238,10 @@ class Onset(MarkerKind):
                             **options)
 
     def center(self, marker):
-        return float(np.median(self._draws(marker).fit))
+        return float(np.median(self.draws_of(marker).fit))
 
     def parts(self, marker, label, sign, n, rng):
-        draws = self._draws(marker)
+        draws = self.draws_of(marker)
         pick = rng.integers(0, draws.age.size, n)
         fit = draws.fit[pick]
         jitter = draws.age[pick] - fit
@@ -250,13 +250,6 @@ class Onset(MarkerKind):
                      sign * (fit - np.median(draws.fit))),
                 Part(f"{name}: sample interval at the onset ({marker.sample_interval:.3g} yr)",
                      "resolution", label, sign * jitter)]
-
-    @staticmethod
-    def _draws(marker):
-        if marker.draws is None:
-            raise InputError("this onset carries no draws (a result read back from JSON); "
-                             "detect it again to use it in a lag", field="draws")
-        return marker.draws
 
     def assumptions(self, marker, label):
         out = [f"Marker {label}: ramp fit with AR(1) noise (sd {marker.noise.sd:.3g}, "

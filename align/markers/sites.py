@@ -70,6 +70,7 @@ class Sites(MarkerKind):
     result = SitesResult
     window_required = False
     on_record = False
+    redo = "combine the sites again"
 
     def detect(self, record, variable, window, options, *, seed, age_reference):
         from align.schema_base import Trace
@@ -99,22 +100,13 @@ class Sites(MarkerKind):
         return marker.with_draws(MarkerDraws(age=np.asarray(draws, dtype=float)))
 
     def center(self, marker):
-        return float(np.median(self._draws(marker).age))
+        return float(np.median(self.draws_of(marker).age))
 
     def parts(self, marker, label, sign, n, rng):
-        draws = self._draws(marker).age
+        draws = self.draws_of(marker).age
         pick = draws[rng.integers(0, draws.size, n)]
         return [Part(f"{label}: combined age of {marker.record} (site dates and chronologies)",
                      "combination", label, sign * (pick - np.median(draws)))]
-
-    @staticmethod
-    def _draws(marker):
-        from align.errors import InputError
-
-        if marker.draws is None:
-            raise InputError("this sites marker carries no draws (read back from JSON); "
-                             "combine the sites again", field="sites")
-        return marker.draws
 
     def assumptions(self, marker, label):
         out = [f"Marker {label}: the combined age of {marker.record}; {marker.synchrony_verdict}"]
