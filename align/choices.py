@@ -43,10 +43,11 @@ CorrelationMethod = Literal["pearson", "kernel"]
 #: Surrogates behind a cross-correlation's p-value.
 SurrogateKind = Literal["phase", "ar1"]
 #: Kinds of lag-budget items.
-BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge", "combination"]
+BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge", "combination",
+                     "sync"]
 #: Machine keys of the what-if rows (the sentences shown to people are in ``align.lag``).
 WhatIfKey = Literal["halve_resolution_a", "halve_resolution_b", "halve_ties", "double_ties",
-                    "no_timescale"]
+                    "no_timescale", "halve_sync"]
 #: Machine keys of a synchrony result's what-if rows (the sentences are in ``align.synchrony``).
 SynchronyWhatIfKey = Literal["without_top_outlier", "independent_chronologies_only",
                              "each_chronology_once"]
@@ -63,6 +64,10 @@ DEFAULT_ONSET_METHOD: OnsetMethod = "ramp"
 DEFAULT_ONSET_DRAWS = 2000
 DEFAULT_LAG_DRAWS = 20_000
 DEFAULT_TIMESCALE_MODEL: TimescaleModel = "correlated"
+#: Synchronisation error (1 sd, yr) between two cores on one shared timescale when the request
+#: gives none: a rule of thumb for cores matched at volcanic horizons a few centuries apart
+#: (common practice); the lag states it as an assumption.
+DEFAULT_SYNC_SD = 5.0
 DEFAULT_TIE_INTERPOLATION: TieInterpolation = "linear"
 DEFAULT_GRID_AXIS: GridAxis = "age"
 DEFAULT_MIN_COVERAGE = 0.5

@@ -5,18 +5,21 @@ their correlations, every source of uncertainty: where an event sits inside its 
 an onset sits under autocorrelated noise (and inside its sample), and how the two timescales
 relate -- within one core or timescale only the error between the two positions counts; records
 joined by tie points share the reference timescale and add the tie and between-tie (bridge)
-errors; independent timescales add both absolute errors; age ensembles are drawn member by
-member. Each source is kept as its own column of draws, so the budget, the resolution floor
-and the what-if intervals come from the same draws.
+errors; two cores on one shared (layer-counted or synchronised) timescale share its error and
+add their synchronisation error; independent timescales add both absolute errors; age
+ensembles are drawn member by member. Each source is kept as its own column of draws, so the
+budget, the resolution floor and the what-if intervals come from the same draws.
 """
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 
 import numpy as np
 
 from align.detect import detect_marker
+from align.choices import DEFAULT_SYNC_SD
 from align.errors import InputError
 from align.io import open_record
 from align.transforms import marker_variable
@@ -97,7 +100,7 @@ def lag_request(a, b=None, **options):
 
 
 def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=None,
-                 timescale_model=None, bridge_rate=None, sources=None):
+                 timescale_model=None, bridge_rate=None, sync_sd=None, sources=None):
     """Estimate the lag between two markers with a full uncertainty budget.
 
     Parameters
@@ -118,6 +121,9 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
         Layer-counting error model (see :mod:`align.timescale`).
     bridge_rate : float, optional
         Between-tie variance rate (yr^2 per yr); default from the ties.
+    sync_sd : float, optional
+        Synchronisation error (1 sd, yr) between two cores on one shared timescale (default
+        :data:`align.choices.DEFAULT_SYNC_SD`, stated in the assumptions).
     sources : Sources, optional
         Where records and ties come from (the HTTP service passes its store).
 
@@ -130,7 +136,7 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     """
     request, found = lag_request(a, b, ties=ties, draws=draws, seed=seed,
                                  age_reference=age_reference, timescale_model=timescale_model,
-                                 bridge_rate=bridge_rate)
+                                 bridge_rate=bridge_rate, sync_sd=sync_sd)
     sources = sources or found
     seed = resolve_seed(request.seed)
     request = request.model_copy(update={"seed": seed})
@@ -147,6 +153,7 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
         rec_b = sources.transfer(rec_b, tie_table, rec_a, bridge_rate=request.bridge_rate)
     rec_b = _on_reference(rec_b, ref)
     relation = _relation(rec_a, rec_b)
+    _warn_uncounted(rec_a, rec_b)
     marker_a = _detected(rec_a, request.a, seed_a, ref, "a")
     marker_b = _detected(rec_b, request.b, seed_b, ref, "b")
     kind_a, kind_b = kind_of(marker_a.kind), kind_of(marker_b.kind)
@@ -155,8 +162,7 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     age_a, age_b = kind_a.center(marker_a), kind_b.center(marker_b)
     center = age_a - age_b
     parts = (kind_a.parts(marker_a, "a", +1.0, n, rng) + kind_b.parts(marker_b, "b", -1.0, n, rng)
-             + _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request.timescale_model,
-                                n, rng))
+             + _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng))
     lag = center + sum(p.draws for p in parts)
     result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
                      tie_table, seed)
@@ -191,8 +197,13 @@ def _on_reference(record, reference):
 
 
 def _relation(rec_a, rec_b):
-    """``same record``, ``same timescale``, ``tied``, ``shared timescale`` or ``independent``
-    (a marker that is not on a record carries its own absolute error: independent)."""
+    """``same record``, ``same timescale``, ``tied``, ``shared timescale`` or ``independent``.
+
+    Equal ``timescale`` names mean a shared timescale only when it is real: a layer-counted
+    timescale (``timescale_kind`` or an ``age_mce``) or a record synchronised onto it
+    (``transferred``). Two modelled age models that happen to carry one name are independent
+    (see :func:`_name_only`). A marker that is not on a record carries its own absolute
+    error: independent."""
     if rec_a is None or rec_b is None:
         return "independent"
     attrs_a, attrs_b = rec_a.attrs, rec_b.attrs
@@ -206,11 +217,43 @@ def _relation(rec_a, rec_b):
         "timescale")
     if same_scale and attrs_a.get("core") and attrs_a.get("core") == attrs_b.get("core"):
         return "same timescale"
-    return "shared timescale" if same_scale else "independent"
+    if same_scale and any(_counted(r) or r.attrs.get("timescale_kind") == "transferred"
+                          for r in (rec_a, rec_b)):
+        return "shared timescale"
+    return "independent"
 
 
-def _timescale_parts(relation, rec_a, rec_b, age_a, age_b, model, n, rng):
-    """Timescale, tie and bridge errors at the markers' central ages ``age_a``, ``age_b``."""
+def _counted(record):
+    return record is not None and (record.attrs.get("timescale_kind") == "layer-counted"
+                                   or "age_mce" in record)
+
+
+def _name_only(relation, rec_a, rec_b):
+    """True when the records name one timescale that is not taken as shared."""
+    if rec_a is None or rec_b is None:
+        return False
+    name = rec_a.attrs.get("timescale")
+    return relation == "independent" and bool(name) and name == rec_b.attrs.get("timescale")
+
+
+def _warn_uncounted(*records):
+    """Warn about a layer-counted record that states no age uncertainty."""
+    for record in records:
+        if _counted(record) and uncertainty_kind(record) == "none":
+            warnings.warn(f"{record_name(record)} is on a layer-counted timescale but states no "
+                          "age uncertainty (no age_mce, age_sd or age_ensemble): its counting "
+                          "error is missing from the lag", UserWarning, stacklevel=3)
+
+
+def _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng):
+    """Timescale, tie, bridge and synchronisation errors at the markers' central ages
+    ``age_a``, ``age_b``; parts that are zero in every draw are left out."""
+    parts = _error_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng)
+    return [p for p in parts if np.any(p.draws != 0)]
+
+
+def _error_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng):
+    model = request.timescale_model
     if relation in ("same record", "same timescale"):
         return _within_one(rec_a, age_a, age_b, model, n, rng,
                            "timescale: error between the two markers")
@@ -219,14 +262,25 @@ def _timescale_parts(relation, rec_a, rec_b, age_a, age_b, model, n, rng):
                             f"timescale of {record_name(rec_a)}: error between the markers")
                 + _tie_parts(rec_b, age_b, n, rng))
     if relation == "shared timescale":
-        sig = [_sigma_at(rec_a, age_a), _sigma_at(rec_b, age_b)]
-        cov = mce_covariance(2.0 * np.array(sig), model)
-        e = _bivariate(cov, n, rng)
-        return [Part(f"shared timescale ({rec_a.attrs.get('timescale')}): error between the "
-                     "markers", "timescale", None, e[:, 0] - e[:, 1])]
+        return _shared_parts(rec_a, rec_b, age_a, age_b, request, n, rng)
     return [_absolute(rec, age, label, sign, n, rng)
             for rec, age, label, sign in ((rec_a, age_a, "a", +1.0), (rec_b, age_b, "b", -1.0))
             if rec is not None]
+
+
+def _shared_parts(rec_a, rec_b, age_a, age_b, request, n, rng):
+    """One shared timescale: its error at the two markers (the profile of whichever record
+    carries it serves both when only one does) and the cores' synchronisation error."""
+    carries = [uncertainty_kind(r) != "none" for r in (rec_a, rec_b)]
+    profile_a = rec_a if carries[0] or not carries[1] else rec_b
+    profile_b = rec_b if carries[1] else profile_a
+    sig = [_sigma_at(profile_a, age_a), _sigma_at(profile_b, age_b)]
+    e = _bivariate(mce_covariance(2.0 * np.array(sig), request.timescale_model), n, rng)
+    return [Part(f"shared timescale ({rec_a.attrs.get('timescale')}): error between the "
+                 "markers", "timescale", None, e[:, 0] - e[:, 1]),
+            Part(f"synchronisation of {record_name(rec_a)} and {record_name(rec_b)} "
+                 f"(sd {request.sync_sd:g} yr)", "sync", None,
+                 rng.normal(0.0, request.sync_sd, n))]
 
 
 def _sigma_at(record, age):
@@ -307,10 +361,13 @@ WHAT_IFS = {
                     lambda p: np.sqrt(0.5) if p.kind == "bridge" else 1.0),
     "no_timescale": ("remove the timescale error",
                      lambda p: 0.0 if p.kind == "timescale" else 1.0),
+    "halve_sync": ("halve the synchronisation error between the cores",
+                   lambda p: 0.5 if p.kind == "sync" else 1.0),
 }
 #: The budget kind each what-if row acts on (rows for kinds absent from a lag are left out).
 WHAT_IF_KIND = {"halve_resolution_a": "resolution", "halve_resolution_b": "resolution",
-                "halve_ties": "tie", "double_ties": "bridge", "no_timescale": "timescale"}
+                "halve_ties": "tie", "double_ties": "bridge", "no_timescale": "timescale",
+                "halve_sync": "sync"}
 
 
 def what_if_for(kind, owner):
@@ -347,7 +404,8 @@ def verdict(summary, marker_a, marker_b):
             f"{summary.median:.0f} years {interval}")
 
 
-def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
+def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, request):
+    model = request.timescale_model
     out = []
     kinds = {uncertainty_kind(r) for r in (rec_a, rec_b) if r is not None}
     if "mce" in kinds:
@@ -363,9 +421,15 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
                    f"{float(rec_b.attrs['bridge_rate']):.3g} yr^2/yr "
                    f"({rec_b.attrs.get('bridge_rate_choice', '')}).")
     if relation == "shared timescale":
-        out.append(f"Both records are on the {rec_a.attrs.get('timescale')} timescale; the "
-                   "synchronisation error between the two cores is not included (give tie "
-                   "points to include it).")
+        out += _shared_assumptions(rec_a, rec_b, request)
+    if _name_only(relation, rec_a, rec_b):
+        out.append(f"Both records name the timescale {rec_a.attrs.get('timescale')!r}, but it "
+                   "is neither layer-counted nor one they were synchronised onto "
+                   "(timescale_kind), so their age models are taken as independent.")
+    for record in (rec_a, rec_b):
+        if _counted(record) and uncertainty_kind(record) == "none":
+            out.append(f"{record_name(record)} is layer-counted but states no age uncertainty; "
+                       "its counting error is not included.")
     if relation == "independent":
         out.append("The two timescales are independent: both absolute timescale errors count.")
     if "sd" in kinds and relation in ("same record", "same timescale"):
@@ -376,6 +440,21 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, model):
     out.append("What-if rows scale only the named term (halving a sample interval halves the "
                "resolution terms; the fit noise is kept).")
     out.append(CAUTION)
+    return out
+
+
+def _shared_assumptions(rec_a, rec_b, request):
+    scale = rec_a.attrs.get("timescale")
+    out = [f"Both records are on the {scale} timescale: its error at the two markers is "
+           "shared, so only the error between them counts."]
+    silent = [record_name(r) for r in (rec_a, rec_b) if uncertainty_kind(r) == "none"]
+    if len(silent) == 1:
+        out.append(f"{silent[0]} states no uncertainty of its own: the {scale} error profile "
+                   "of the other record serves both.")
+    default = ("default; set sync_sd" if request.sync_sd == DEFAULT_SYNC_SD
+               and "sync_sd" not in request.model_fields_set else "as requested")
+    out.append(f"The synchronisation error between the two cores does not cancel: normal, sd "
+               f"{request.sync_sd:g} yr ({default}).")
     return out
 
 
@@ -433,8 +512,7 @@ def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, re
         request=request, lag=summary, a=marker_a, b=marker_b, relation=relation, budget=budget,
         budget_total_sd=float(np.sqrt(total)), resolution_floor=floor,
         what_if=_what_ifs(center, parts), verdict=text, resolvable_lag=resolvable,
-        assumptions=_assumptions(relation, rec_a, rec_b, marker_a, marker_b,
-                                 request.timescale_model),
+        assumptions=_assumptions(relation, rec_a, rec_b, marker_a, marker_b, request),
         references=_references(relation, rec_a, rec_b, marker_a, marker_b),
         age_reference=request.age_reference,
         figures=LagFigures(lag_histogram=Histogram(edges=edges.tolist(),

@@ -17,7 +17,8 @@ from pydantic import ConfigDict, Field, PrivateAttr, create_model
 
 from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD,
                            DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
-                           DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_TIMESCALE_MODEL,
+                           DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_SYNC_SD,
+                           DEFAULT_TIMESCALE_MODEL,
                            DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MAX_SITES, MIN_LAG_DRAWS,
                            AgeConvention, BudgetKind, CorrelationMethod, EventPick, GridAxis,
                            OnsetDirection,
@@ -161,6 +162,9 @@ class LagRequest(Model):
     seed: int | None = Field(None, ge=0)
     timescale_model: TimescaleModel = DEFAULT_TIMESCALE_MODEL
     bridge_rate: float | None = Field(None, ge=0)
+    sync_sd: float = Field(DEFAULT_SYNC_SD, ge=0, description="synchronisation error (1 sd, "
+                           "yr) between two cores on one shared timescale; the shared "
+                           "timescale's error cancels, this one does not")
 
 
 class LagSummary(Model):

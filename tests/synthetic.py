@@ -38,3 +38,32 @@ def exact_reference(span=(9_000.0, 13_000.0)):
     age = np.arange(span[0], span[1], 1.0) + 0.5
     return build_record(age=age, age_reference="b2k", proxies={"x": (np.zeros(age.size), {})},
                         attrs={"core": "truth"})
+
+
+def spike_core(rng, event, age_error, *, name, timescale, kind=None, mce=None, sd=None,
+               step=2.0, span=(10_000.0, 11_000.0)):
+    """A core of ``step``-yr samples (true ages) holding a spike (40 noise sd, 3 samples) that
+    begins in the sample whose true age interval holds ``event``.
+
+    Its stated ages are the truth plus ``age_error(true_age)`` (the timescale's real error).
+    ``mce`` (a function of true age) or ``sd`` (a number) is the uncertainty the record
+    states; ``kind`` its ``timescale_kind``. Returns the record.
+    """
+    edges = np.arange(span[0], span[1] + step / 2, step)
+    mid = 0.5 * (edges[1:] + edges[:-1])
+    values = 10.0 + rng.normal(0.0, 1.0, mid.size)
+    holding = np.searchsorted(edges, event) - 1
+    values[holding:holding + 3] += 40.0
+    stated = edges + age_error(edges)
+    uncertainty = {}
+    if mce is not None:
+        uncertainty["age_mce"] = mce(mid)
+    if sd is not None:
+        uncertainty["age_sd"] = np.full(mid.size, float(sd))
+    attrs = {"core": name, "timescale": timescale}
+    if kind:
+        attrs["timescale_kind"] = kind
+    return build_record(age=0.5 * (stated[1:] + stated[:-1]),
+                        age_bounds=np.column_stack([stated[:-1], stated[1:]]),
+                        age_reference="b2k", proxies={"s": (values, {"units": "1"})},
+                        attrs=attrs, **uncertainty)
