@@ -14,6 +14,7 @@ budget, the resolution floor and the what-if intervals come from the same draws.
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -167,7 +168,20 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
                      tie_table, seed)
     result._draws = lag
+    result._shared = [term for p in parts if isinstance(p, JointPart) for term in p.terms]
     return result
+
+
+@dataclass
+class JointPart(Part):
+    """A part made of standard normals that other lags may share: ``draws = sum(scale * z)``
+    over ``terms`` of ``(key, scale, z)``; a survey draws one ``z`` per key for all pairs."""
+
+    terms: list = field(default_factory=list)
+
+
+def joint_part(component, kind, owner, terms):
+    return JointPart(component, kind, owner, sum(scale * z for _, scale, z in terms), terms)
 
 
 def _detected(record, spec, seed, reference, label):
@@ -263,7 +277,7 @@ def _error_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng):
                 + _tie_parts(rec_b, age_b, n, rng))
     if relation == "shared timescale":
         return _shared_parts(rec_a, rec_b, age_a, age_b, request, n, rng)
-    return [_absolute(rec, age, label, sign, n, rng)
+    return [_absolute(rec, age, label, sign, n, rng, model)
             for rec, age, label, sign in ((rec_a, age_a, "a", +1.0), (rec_b, age_b, "b", -1.0))
             if rec is not None]
 
@@ -307,13 +321,20 @@ def _within_one(record, age_a, age_b, model, n, rng, name):
     return [Part(name, "timescale", None, e[:, 0] - e[:, 1])]
 
 
-def _absolute(record, age, label, sign, n, rng):
+def _absolute(record, age, label, sign, n, rng, model):
+    """One record's absolute timescale error at ``age``. Lags sharing the record share it:
+    a counted timescale (correlated model) has one error per core, scaled by its sd at each
+    age; otherwise lags share it at the same age only."""
     name = f"{label}: timescale of {record_name(record)} (absolute)"
     if "age_ensemble" in record:
         members = ensemble_at(record, np.array([age]))[:, 0]
         return Part(name + ", age ensemble", "timescale", label,
                     sign * (members[rng.integers(0, members.size, n)] - age))
-    return Part(name, "timescale", label, sign * rng.normal(0.0, _sigma_at(record, age), n))
+    ident = record.attrs.get("source_checksum") or record_name(record)
+    per_core = uncertainty_kind(record) == "mce" and model == "correlated"
+    key = ("timescale", ident) if per_core else ("timescale", ident, round(float(age), 1))
+    return joint_part(name, "timescale", label,
+                      [(key, sign * _sigma_at(record, age), rng.standard_normal(n))])
 
 
 def _tie_parts(moved, age_b, n, rng):
@@ -326,7 +347,9 @@ def _tie_parts(moved, age_b, n, rng):
     # timescale: the same fraction as in depth (or own age) for the linear transfer
     k = int(np.clip(np.searchsorted(tie_age, age_b, side="right") - 1, 0, tie_age.size - 2))
     w = float(np.clip((age_b - tie_age[k]) / (tie_age[k + 1] - tie_age[k]), 0.0, 1.0))
-    tie = (1 - w) * rng.normal(0, tie_sd[k], n) + w * rng.normal(0, tie_sd[k + 1], n)
+    table = ("tie", attrs.get("reference_checksum"), tuple(np.round(tie_age, 3)))
+    ties = [(table + (j,), -weight * tie_sd[j], rng.standard_normal(n))
+            for j, weight in ((k, 1 - w), (k + 1, w))]
     x1, x2 = tie_age[k], tie_age[k + 1]
     inside = bridge_variance(min(max(age_b, x1), x2), x1, x2, rate)
     beyond = rate * (max(tie_age[0] - age_b, 0.0) + max(age_b - tie_age[-1], 0.0))
@@ -334,7 +357,7 @@ def _tie_parts(moved, age_b, n, rng):
     labels = attrs.get("tie_labels", "").split("; ")
     between = (f"between ties {labels[k]!r} and {labels[k + 1]!r}" if len(labels) == tie_age.size
                else "between ties")
-    return [Part("tie points (match uncertainty)", "tie", "b", -tie),
+    return [joint_part("tie points (match uncertainty)", "tie", "b", ties),
             Part(f"{between} (bridge, rate {rate:.3g} yr^2/yr)", "bridge", "b", -bridge)]
 
 

@@ -248,7 +248,14 @@ def survey_blocks(result):
                 ["heterogeneity Q (dof, p)",
                  f"{_fmt(result.heterogeneity.q, 2)} ({result.heterogeneity.dof}, "
                  f"{_fmt(result.heterogeneity.p_value, 3)})"],
-                ["between-pair sd", f"{_fmt(result.heterogeneity.tau2 ** 0.5)} yr"]]))]
+                ["between-pair sd (95 %, Q-profile)",
+                 f"{_fmt(result.heterogeneity.tau)} yr"
+                 + (f" ({_fmt(result.heterogeneity.tau_ci95[0])} to "
+                    f"{_fmt(result.heterogeneity.tau_ci95[1])})"
+                    if result.heterogeneity.tau_ci95 else "")]]) + (
+                [] if result.prediction95 is None else [
+                    ["new pair, 95 % prediction interval",
+                     f"{_fmt(result.prediction95[0])} to {_fmt(result.prediction95[1])} yr"]]))]
     return [("h1", "Survey report"), ("p", result.systematic + ". " + result.assumptions[-1]),
             ("h2", "Combined"), *table, ("figure", "survey"),
             ("h2", "Pairs"), ("table", ["pair", "lag (yr)", "95 % interval (yr)", "use"], rows),

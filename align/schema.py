@@ -247,11 +247,19 @@ class LagResult(Model):
     provenance: Provenance
 
     _draws: Any = PrivateAttr(default=None)
+    _shared: Any = PrivateAttr(default=None)
 
     @property
     def draws(self):
         """The lag draws (yr; not serialised), or None when read back from JSON."""
         return self._draws
+
+    @property
+    def shared(self):
+        """The terms of the lag that other lags of a survey may share (not serialised): a list
+        of ``(key, scale, z)`` whose ``scale * z`` is added to :attr:`draws`, one standard
+        normal ``z`` per key."""
+        return self._shared or []
 
 
 # --------------------------------------------------------------------------------------------
@@ -307,14 +315,28 @@ class SurveyPair(Model):
     error: str | None = None
 
 
+class QShare(Model):
+    """A pair's share of Cochran's Q."""
+
+    label: str
+    share: float
+
+
 class Heterogeneity(Model):
-    """Cochran's Q of the pairs' lags about their weighted mean, and the between-pair
-    variance (yr^2) of DerSimonian & Laird (1986)."""
+    """Cochran's Q of the pairs' lags about their weighted mean, the between-pair variance
+    (yr^2) of DerSimonian & Laird (1986), the between-pair sd (yr) with its Q-profile 95 %
+    interval (Viechtbauer 2007) and the pairs contributing most to Q."""
 
     q: float
     dof: int
     p_value: float
     tau2: float
+    significant: bool = Field(False, description="p < 0.05: the pairs disagree more than "
+                                                 "their uncertainties allow")
+    tau: float = 0.0
+    tau_ci95: Pair | None = None
+    largest: list[QShare] = Field(default_factory=list, description="the pairs contributing "
+                                  "most to Q, largest first")
 
 
 class SurveyResult(Model):
@@ -322,6 +344,8 @@ class SurveyResult(Model):
 
     pairs: list[SurveyPair]
     combined: LagSummary | None = None
+    prediction95: Pair | None = Field(None, description="95 % prediction interval (yr) of a "
+                                      "new pair's lag (Higgins et al. 2009); 3 pairs or more")
     heterogeneity: Heterogeneity | None = None
     systematic: str
     n_used: int

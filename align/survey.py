@@ -7,14 +7,23 @@ tie tables and transfers are made once per survey (per worker process), not once
 are combined by Monte Carlo from their full lag distributions: every draw of the combined lag
 is the inverse-variance weighted mean of one draw from each pair plus a between-pair deviation
 whose variance is estimated from the scatter (DerSimonian & Laird 1986), so the combined
-interval carries each pair's uncertainty, not only the scatter of the medians. The lead is
-called systematic when the combined 95 % interval excludes zero.
+interval carries each pair's uncertainty, not only the scatter of the medians. Errors that
+pairs share -- the absolute timescale error of a record several pairs use, the errors of the
+tie points of one tie table -- are drawn once per Monte Carlo member for all of them, so the
+combination carries their correlation. The lead is called systematic when the combined 95 %
+interval excludes zero; when the pairs disagree more than their uncertainties allow
+(Cochran's Q), the headline says so first, with the between-pair sd and its Q-profile
+interval (Viechtbauer 2007), the pairs contributing most to Q and a prediction interval for a
+new pair (Higgins, Thompson & Spiegelhalter 2009).
 
 References
 ----------
 DerSimonian, R. and Laird, N. (1986), Controlled Clinical Trials 7, 177-188,
 doi:10.1016/0197-2456(86)90046-2.
 Cochran, W. G. (1954), Biometrics 10, 101-129, doi:10.2307/3001666.
+Viechtbauer, W. (2007), Statistics in Medicine 26, 37-52, doi:10.1002/sim.2514.
+Higgins, J. P. T., Thompson, S. G. and Spiegelhalter, D. J. (2009), J. R. Stat. Soc. A 172,
+137-159, doi:10.1111/j.1467-985X.2008.00552.x.
 """
 
 from __future__ import annotations
@@ -28,12 +37,19 @@ from pathlib import Path
 import numpy as np
 from scipy.stats import chi2
 
+from align import heterogeneity as het
+
 from align.ages import convert_age
 from align.errors import InputError
 from align.lag import CAUTION, Sources, estimate_lag, lag_summary
 from align.provenance import dataset_checksum, provenance, resolve_seed, sha256_file
-from align.schema import (Heterogeneity, PairSpec, SurveyPair, SurveyResult, SurveySpec,
-                          validate_as)
+from align.schema import (Heterogeneity, PairSpec, QShare, SurveyPair, SurveyResult,
+                          SurveySpec, validate_as)
+
+#: Significance level below which Cochran's Q leads the headline.
+HETEROGENEITY_LEVEL = 0.05
+#: How many of the largest contributions to Q are named.
+LARGEST_SHARES = 3
 
 
 def survey_spec(spec):
@@ -130,7 +146,14 @@ def _one_pair(pair, spec, sources, seed):
         return SurveyPair(label=pair.label, error=str(exc)), None
     clear = all(getattr(m, "clear_transition", True) for m in (result.a, result.b))
     return SurveyPair(label=pair.label, lag=result.lag, a_age=result.a.age, b_age=result.b.age,
-                      verdict=result.verdict, clear=clear), result.draws
+                      verdict=result.verdict, clear=clear), pair_draws(result)
+
+
+def pair_draws(result):
+    """A lag's draws split into its own part and the terms other pairs may share:
+    ``(own, [(key, scale), ...])``; the lag is ``own + sum(scale * z_key)``."""
+    own = result.draws - sum(scale * z for _, scale, z in result.shared)
+    return np.asarray(own), [(key, float(scale)) for key, scale, _ in result.shared]
 
 
 def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=None,
@@ -177,23 +200,28 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
     outcomes = _run(pairs, spec, sources, seeds, scheduler, progress, workers)
     rows = [row for row, _ in outcomes]
     draws = [(row, d) for row, d in outcomes if d is not None and row.clear]
-    combined, heterogeneity, statement = _combine(draws, np.random.default_rng(seed))
+    combined, prediction, heterogeneity, statement = combine(draws,
+                                                             np.random.default_rng(seed))
     inputs = [{"role": "survey", "source": "inline", "sha256": "", "timescale": ""}]
     if spec.table:
         table_path = sources.path(spec.table.path)
         inputs.append({"role": "event table", "source": str(table_path),
                        "sha256": sha256_file(table_path), "timescale": ""})
     return SurveyResult(
-        pairs=rows, combined=combined, heterogeneity=heterogeneity, systematic=statement,
+        pairs=rows, combined=combined, prediction95=prediction, heterogeneity=heterogeneity,
+        systematic=statement,
         n_used=len(draws), age_reference=spec.age_reference,
         assumptions=["Only pairs whose markers both show a clear transition (or a found event) "
                      "enter the combination.",
-                     "Pairs are treated as independent: timescale errors shared between pairs "
-                     "(the same cores, the same ties) are not correlated across pairs.",
+                     "Pairs that use one record share its absolute timescale error, and pairs "
+                     "that use one tie table share its tie-point errors: each is drawn once "
+                     "per Monte Carlo member for all of them. Between-tie (bridge) errors, age "
+                     "ensembles and errors within one core are drawn per pair.",
                      "The combined lag is an inverse-variance weighted mean with a "
                      "DerSimonian-Laird between-pair variance; each pair enters through its "
                      "full Monte Carlo lag distribution.", CAUTION],
-        references=["dersimonian1986", "cochran1954", "mudelsee2000"],
+        references=["dersimonian1986", "cochran1954", "viechtbauer2007", "higgins2009",
+                    "mudelsee2000"],
         provenance=provenance(inputs=inputs, parameters=spec.model_dump(exclude={"seed"}),
                               seed=seed))
 
@@ -296,33 +324,86 @@ def _on_cluster(pairs, spec, sources, seeds, address, progress):
             for outcome in client.gather(client.compute(tasks))]
 
 
-def _combine(draws, rng, samples=20_000):
-    """Random-effects Monte Carlo combination of the pairs' lag distributions."""
+def combine(draws, rng, samples=20_000):
+    """Random-effects Monte Carlo combination of the pairs' lag distributions.
+
+    Parameters
+    ----------
+    draws : list of (SurveyPair, (own, shared))
+        Each pair's row and its draws split by :func:`pair_draws`.
+    rng : numpy.random.Generator
+    samples : int
+        Monte Carlo members of the combination.
+
+    Returns
+    -------
+    combined : LagSummary or None
+        The combined lag (yr).
+    prediction : [lo, hi] or None
+        95 % prediction interval of a new pair's lag (yr).
+    heterogeneity : Heterogeneity or None
+    statement : str
+        The headline: heterogeneity first when significant, then the verdict.
+    """
     if not draws:
-        return None, None, "no pair gave a lag"
-    medians = np.array([row.lag.median for row, _ in draws])
-    var = np.array([row.lag.sd ** 2 for row, _ in draws])
-    k = len(draws)
-    if k < 2:
-        return lag_summary(draws[0][1]), None, "one pair only: no combination"
-    w = 1.0 / var
-    mean = np.sum(w * medians) / w.sum()
-    q = float(np.sum(w * (medians - mean) ** 2))
-    tau2 = max(0.0, (q - (k - 1)) / (w.sum() - np.sum(w**2) / w.sum()))
+        return None, None, None, "no pair gave a lag"
+    members = _joint_members(draws, rng, samples)
+    if len(draws) < 2:
+        return lag_summary(members[0]), None, None, "one pair only: no combination"
+    rows = [row for row, _ in draws]
+    medians = np.array([row.lag.median for row in rows])
+    var = np.array([row.lag.sd ** 2 for row in rows])
+    k = len(rows)
+    tau2, q = het.dersimonian_laird(medians, var)
     weights = 1.0 / (var + tau2)
-    picks = np.stack([d[rng.integers(0, d.size, samples)] for _, d in draws])
-    combined = (weights[:, None] * (picks + rng.normal(0.0, np.sqrt(tau2), picks.shape))
+    combined = (weights[:, None] * (members + rng.normal(0.0, np.sqrt(tau2), members.shape))
                 ).sum(axis=0) / weights.sum()
     summary = lag_summary(combined)
-    heterogeneity = Heterogeneity(q=q, dof=k - 1, p_value=float(chi2.sf(q, k - 1)), tau2=tau2)
+    prediction = het.prediction_interval(summary.median, summary.sd, tau2, k)
+    p_value = float(chi2.sf(q, k - 1))
+    shares = het.q_shares(medians, var)
+    order = np.argsort(shares)[::-1][:LARGEST_SHARES]
+    heterogeneity = Heterogeneity(
+        q=q, dof=k - 1, p_value=p_value, tau2=tau2, significant=p_value < HETEROGENEITY_LEVEL,
+        tau=float(np.sqrt(tau2)),
+        tau_ci95=[float(np.sqrt(b)) for b in het.q_profile_interval(medians, var)],
+        largest=[QShare(label=rows[i].label, share=float(shares[i])) for i in order])
+    return summary, prediction, heterogeneity, _headline(summary, prediction, heterogeneity)
+
+
+def _joint_members(draws, rng, samples):
+    """Monte Carlo members of every pair's lag (pair x member): each pair's own draws
+    resampled, plus one standard normal per shared key, common to the pairs that carry it."""
+    shared = {}
+    members = []
+    for _, (own, terms) in draws:
+        lag = own[rng.integers(0, own.size, samples)]
+        for key, scale in terms:
+            if key not in shared:
+                shared[key] = rng.standard_normal(samples)
+            lag = lag + scale * shared[key]
+        members.append(lag)
+    return np.stack(members)
+
+
+def _headline(summary, prediction, heterogeneity):
     lo, hi = summary.ci95
+    numbers = (f"combined lag {summary.median:.1f} years (95 %: {lo:.1f} to {hi:.1f}), "
+               f"P(a first) = {summary.p_a_before_b:.3f}")
     if lo > 0:
-        statement = (f"a systematically precedes b: combined lag {summary.median:.1f} years "
-                     f"(95 %: {lo:.1f} to {hi:.1f}), P(a first) = {summary.p_a_before_b:.3f}")
+        statement = f"a systematically precedes b: {numbers}"
     elif hi < 0:
-        statement = (f"a systematically follows b: combined lag {summary.median:.1f} years "
-                     f"(95 %: {lo:.1f} to {hi:.1f}), P(a first) = {summary.p_a_before_b:.3f}")
+        statement = f"a systematically follows b: {numbers}"
     else:
-        statement = (f"no systematic lead: combined lag {summary.median:.1f} years "
-                     f"(95 %: {lo:.1f} to {hi:.1f}), P(a first) = {summary.p_a_before_b:.3f}")
-    return summary, heterogeneity, statement
+        statement = f"no systematic lead: {numbers}"
+    if prediction is not None:
+        statement += (f"; a new pair's lag would lie within {prediction[0]:.1f} to "
+                      f"{prediction[1]:.1f} years (95 % prediction interval)")
+    h = heterogeneity
+    if not h.significant:
+        return statement
+    largest = ", ".join(f"{s.label} ({100 * s.share:.0f} %)" for s in h.largest)
+    return (f"the pairs disagree more than their uncertainties allow (Q = {h.q:.1f} on "
+            f"{h.dof} dof, p = {h.p_value:.2g}): between-pair sd {h.tau:.1f} years (95 %: "
+            f"{h.tau_ci95[0]:.1f} to {h.tau_ci95[1]:.1f}); largest contributions to Q: "
+            f"{largest}. Read the combination with that in mind: {statement}")

@@ -109,7 +109,12 @@ def survey(result):
     if result.heterogeneity:
         h = result.heterogeneity
         lines.append(f"heterogeneity: Q = {h.q:.1f} on {h.dof} dof (p = {h.p_value:.3g}), "
-                     f"between-pair sd {h.tau2 ** 0.5:.1f} yr")
+                     f"between-pair sd {h.tau:.1f} yr"
+                     + (f" (95 %: {h.tau_ci95[0]:.1f} to {h.tau_ci95[1]:.1f})"
+                        if h.tau_ci95 else ""))
+    if result.prediction95:
+        lines.append(f"new pair (95 % prediction): {result.prediction95[0]:.1f} to "
+                     f"{result.prediction95[1]:.1f} yr")
     return "\n".join(lines)
 
 
