@@ -43,8 +43,6 @@ REFERENCES = {
     "Geophys. 18, 389-404. doi:10.5194/npg-18-389-2011",
     "cochran1954": "Cochran, W. G. (1954): The combination of estimates from different "
     "experiments. Biometrics 10, 101-129. doi:10.2307/3001666",
-    "viechtbauer2007": "Viechtbauer, W. (2007): Confidence intervals for the amount of "
-    "heterogeneity in meta-analysis. Statistics in Medicine 26, 37-52. doi:10.1002/sim.2514",
     "higgins2009": "Higgins, J. P. T., Thompson, S. G. and Spiegelhalter, D. J. (2009): A "
     "re-evaluation of random-effects meta-analysis. J. R. Stat. Soc. A 172, 137-159. "
     "doi:10.1111/j.1467-985X.2008.00552.x",

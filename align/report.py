@@ -206,7 +206,8 @@ def lag_blocks(result):
                                                   f"(95 %: {_interval(result.b.age.ci95)})"],
                   ["timescales", result.relation],
                   ["resolution floor (sampling alone)", f"{_fmt(result.resolution_floor, 2)} yr"],
-                  ["smallest lag resolvable at 95 %", f"{_fmt(result.resolvable_lag)} yr"]]),
+                  ["smallest lag resolved (95 % interval excluding zero) with "
+                   "probability 0.8", f"{_fmt(result.resolvable_lag)} yr"]]),
               ("figure", "overview"), ("figure", "marker_a"), ("figure", "marker_b"),
               ("figure", "lag"),
               ("h2", "What limits the answer"),
@@ -313,10 +314,9 @@ def synchrony_blocks(result):
 def xcorr_blocks(result):
     """The blocks of a cross-correlation report."""
     ref = result.age_reference
-    p = ("not tested" if result.p_value is None else
-         f"< {1 / (result.surrogates.count + 1):.2g} (no surrogate reached the peak)"
-         if result.p_value <= 1 / (result.surrogates.count + 1) + 1e-12
-         else f"{result.p_value:.3g}")
+    from align.xcorr import p_value_words
+
+    p = result.p_value_text or p_value_words(result.p_value, result.surrogates.count)
     peak = result.peak_lag
     order = ("older in a" if peak.ci95[0] > 0 else "younger in a" if peak.ci95[1] < 0
              else "neither older nor younger in a within its 95 % interval")
@@ -324,7 +324,7 @@ def xcorr_blocks(result):
                " (significant at 5 %)" if result.p_value < 0.05 else " (not significant at 5 %)")
     lead = (f"The best match of {result.a} with {result.b} is at a lag of {_fmt(peak.median)} "
             f"yr (95 %: {_interval(peak.ci95)}): the pattern is {order}. Peak r = "
-            f"{_fmt(result.peak_correlation, 2)}, p = {p}{verdict}; effective sample size "
+            f"{_fmt(result.peak_correlation, 2)}, {p}{verdict}; effective sample size "
             f"{_fmt(result.n_eff)}. A correlation shows a shared pattern, not a cause.")
     return [("h1", "Cross-correlation report"), ("p", lead),
             ("h2", "Result"),

@@ -135,6 +135,8 @@ class XcorrResult(Model):
     peak_lag: PeakLag
     peak_correlation: float
     p_value: float | None
+    p_value_text: str | None = Field(None, description="the p-value in words; at the floor of "
+                                     "n surrogates 'p < 1/(n+1)'")
     n_eff: float
     surrogates: SurrogateInfo
     curve: Curve
@@ -238,7 +240,8 @@ class LagResult(Model):
     resolution_floor: float
     what_if: list[WhatIf]
     verdict: str
-    resolvable_lag: float
+    resolvable_lag: float = Field(description="the smallest true lag (yr) whose 95 % interval "
+                                  "would exclude zero with probability 0.8 under this budget")
     assumptions: list[str]
     references: list[str] = Field(description="keys of the methods' references "
                                               "(align.references)")

@@ -83,7 +83,9 @@ def lag(result):
 
 def xcorr(result):
     """A cross-correlation result in a few lines."""
-    p = "not tested" if result.p_value is None else f"p = {result.p_value:.3g}"
+    from align.xcorr import p_value_words
+
+    p = result.p_value_text or p_value_words(result.p_value, result.surrogates.count)
     return "\n".join([
         f"cross-correlation of {result.a} with {result.b} ({result.method}), window "
         f"{result.window[0]:g} to {result.window[1]:g} {result.age_reference}",

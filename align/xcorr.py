@@ -382,7 +382,8 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
     return XcorrResult(
         a=f"{record_name(rec_a)} {var_a}", b=f"{record_name(rec_b)} {var_b}", window=window,
         method=method, peak_lag=PeakLag(median=peak, ci95=ci, source=source),
-        peak_correlation=peak_r, p_value=p_value, n_eff=float(n_eff),
+        peak_correlation=peak_r, p_value=p_value,
+        p_value_text=p_value_words(p_value, int(surrogates)), n_eff=float(n_eff),
         surrogates=SurrogateInfo(kind=surrogate_kind, count=int(surrogates)),
         curve=Curve(lags=lags.tolist(), r=_finite(r),
                     surrogate_low=[] if band is None else _finite(band[0]),
@@ -422,6 +423,17 @@ def surrogate_test(r, r_s):
     peak = np.nanmax(np.abs(r))
     p_value = float((np.sum(np.nanmax(np.abs(r_s), axis=1) >= peak) + 1) / (r_s.shape[0] + 1))
     return p_value, np.nanpercentile(r_s, [2.5, 97.5], axis=0)
+
+
+def p_value_words(p_value, surrogates):
+    """A surrogate p-value in words: ``"p < 1/(n+1)"`` at the floor of ``n`` surrogates
+    (none reached the observed peak), never a bare 0 or ``1/(n+1)`` as if exact."""
+    if p_value is None:
+        return "not tested"
+    if p_value <= 1.0 / (surrogates + 1) * (1 + 1e-9):
+        return (f"p < 1/{surrogates + 1} (none of {surrogates} surrogates reached the "
+                "observed peak)")
+    return f"p = {p_value:.3g}"
 
 
 def _overlap(rec_a, rec_b, window):
