@@ -22,6 +22,10 @@ DepthUnits = Literal["m", "cm", "mm"]
 
 #: Which sample of an anomalous run dates an event.
 EventPick = Literal["first", "peak"]
+#: The scale an event's background is modelled on: the log of a positive proxy (skewed
+#: backgrounds such as sulfate, dust, sea salt), the values as they are, or log when every
+#: value is positive.
+EventBackground = Literal["auto", "log", "linear"]
 #: Spikes above or dips below the baseline.
 EventDirection = Literal["up", "down"]
 #: Rising, falling, or whichever fits better.
@@ -56,7 +60,10 @@ ReportFormat = Literal["html", "md", "json"]
 
 #: Defaults, one constant each.
 DEFAULT_AGE_REFERENCE: RecordReference = "b2k"
-DEFAULT_EVENT_THRESHOLD = 5.0
+#: False events per 1000 yr of background an event threshold is calibrated to (a choice: one
+#: false event in 100,000 years of record).
+DEFAULT_EVENT_FALSE_ALARMS = 0.01
+DEFAULT_EVENT_BACKGROUND: EventBackground = "auto"
 DEFAULT_EVENT_PICK: EventPick = "first"
 DEFAULT_EVENT_DIRECTION: EventDirection = "up"
 DEFAULT_ONSET_DIRECTION: OnsetDirection = "auto"

@@ -2,8 +2,13 @@
 
 An *event* is the moment an event signal begins: the oldest sample of the first anomalous run
 in forward time. Its age is known only to within that sample's age interval, so its
-distribution is uniform over it (sd ``h / sqrt(12)``). The threshold is a robust z-score: a
-running-median baseline and a MAD scale (x 1.4826) over a span of the record.
+distribution is uniform over it (sd ``h / sqrt(12)``). Anomalies are robust z-scores: a
+running-median baseline and a MAD scale (x 1.4826) over a span of the record, on the log of a
+positive proxy by default (sulfate, dust and sea salt are skewed: on their log a spike-free
+background is close to Gaussian). The threshold is calibrated so that the background, modelled
+as Gaussian AR(1) anomalies with the window's own lag-1 autocorrelation, gives the requested
+number of false events per 1000 years (:func:`align.anomaly.calibrated_threshold`); a fixed
+threshold may be given instead, and the false-alarm rate it implies is stated.
 """
 
 from __future__ import annotations
@@ -13,7 +18,8 @@ from typing import Literal
 import numpy as np
 from pydantic import Field
 
-from align.choices import (DEFAULT_EVENT_DIRECTION, DEFAULT_EVENT_PICK, DEFAULT_EVENT_THRESHOLD,
+from align.choices import (DEFAULT_EVENT_BACKGROUND, DEFAULT_EVENT_DIRECTION,
+                           DEFAULT_EVENT_FALSE_ALARMS, DEFAULT_EVENT_PICK, EventBackground,
                            EventDirection, EventPick, check_choice)
 from align.errors import InputError
 from align.markers.base import MarkerKind, Part
@@ -27,8 +33,14 @@ class EventOptions(Model):
     """The options of an event marker."""
 
     kind: Literal["event"] = "event"
-    threshold: float = Field(DEFAULT_EVENT_THRESHOLD, gt=0,
-                             description="robust z-score a run must exceed")
+    threshold: float | None = Field(None, gt=0, description="robust z-score a run must "
+                                    "exceed; default: calibrated to false_alarms")
+    false_alarms: float = Field(DEFAULT_EVENT_FALSE_ALARMS, gt=0, le=1000,
+                                description="false events per 1000 yr of background the "
+                                "threshold is calibrated to")
+    background: EventBackground = Field(DEFAULT_EVENT_BACKGROUND, description="model the "
+                                        "background on the log of the proxy (auto: when "
+                                        "every value is positive) or on the values")
     baseline_years: float | None = Field(None, gt=0, description="running-median span (yr); "
                                          f"default {BASELINE_SAMPLES} median sample intervals")
     pick: EventPick = Field(DEFAULT_EVENT_PICK, description="the oldest sample of the first "
@@ -66,6 +78,12 @@ class EventResult(MarkerBase):
     sample: MarkerSample | None = None
     candidates: list[EventCandidate]
     threshold: float
+    false_alarms: float | None = Field(None, description="false events per 1000 yr of "
+                                       "background at this threshold (requested, or implied "
+                                       "by a fixed threshold)")
+    threshold_calibrated: bool = True
+    background: Literal["log", "linear"] = "linear"
+    persistence: float = Field(0.0, description="lag-1 autocorrelation of the anomalies")
     baseline_years: float
     scale: float
     pick: EventPick
@@ -77,7 +95,8 @@ class EventResult(MarkerBase):
         return self.event
 
 
-def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRESHOLD,
+def detect_event(record, variable, window=None, *, threshold=None,
+                 false_alarms=DEFAULT_EVENT_FALSE_ALARMS, background=DEFAULT_EVENT_BACKGROUND,
                  baseline_years=None, pick=DEFAULT_EVENT_PICK,
                  direction=DEFAULT_EVENT_DIRECTION, age_reference=None):
     """Find where an event signal (a spike) begins.
@@ -88,8 +107,14 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
     variable : str
     window : [young, old], optional
         Ages to search (the record's reference, or ``age_reference``); default the record.
-    threshold : float
-        Robust z-score (running-median baseline, MAD x 1.4826 scale) a run must exceed.
+    threshold : float, optional
+        Robust z-score (running-median baseline, MAD x 1.4826 scale) a run must exceed;
+        default: calibrated so that the background gives ``false_alarms`` events per 1000 yr.
+    false_alarms : float
+        False events per 1000 yr of background (default
+        :data:`align.choices.DEFAULT_EVENT_FALSE_ALARMS`).
+    background : {"auto", "log", "linear"}
+        The scale the background is modelled on (auto: log when every value is positive).
     baseline_years : float, optional
         Running-median span (default 25 median sample intervals).
     pick : {"first", "peak"}
@@ -106,7 +131,8 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
         with its age span and peak z; ``found = False`` with a message when no run exceeds
         the threshold (a normal result, not an error).
     """
-    from align.anomaly import robust_z, runs_above
+    from align.anomaly import (lag1_autocorrelation, rate_for, robust_z, runs_above,
+                               surrogate_background, threshold_for)
     from align.detect import (prepare_window, trace_list, trace_points, uniform_estimate,
                               variable_units)
     from align.provenance import provenance, record_input
@@ -116,8 +142,12 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
 
     check_choice(pick, EventPick, "pick")
     check_choice(direction, EventDirection, "direction")
-    if not (np.isfinite(threshold) and threshold > 0):
+    check_choice(background, EventBackground, "background")
+    if threshold is not None and not (np.isfinite(threshold) and threshold > 0):
         raise InputError("threshold must be a positive number", field="threshold")
+    if not (np.isfinite(false_alarms) and 0 < false_alarms <= 1000):
+        raise InputError("false_alarms must be a positive rate per 1000 yr (at most 1000)",
+                         field="false_alarms")
     record, window = prepare_window(record, variable, window, age_reference)
     age = record["age"].values
     bounds = record["age_bounds"].values
@@ -132,11 +162,24 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
     values = record[variable].values.astype(float)
     sign = 1.0 if direction == "up" else -1.0
     near_idx = np.flatnonzero(near)
-    z_near, base_near, scale = robust_z(age[near_idx], sign * values[near_idx], span)
+    scale_kind, forward, back = _background_scale(values[near_idx], background, variable)
+    z_near, base_near, scale = robust_z(age[near_idx], sign * forward(values[near_idx]), span)
+    persistence = lag1_autocorrelation(z_near)
+    step = float(np.median(width[inside]))
+    phi, inflation = surrogate_background(near_idx.size, round(span / step),
+                                          round(persistence, 2),
+                                          round(false_alarms * step / 1000.0, 6))
+    calibrated = threshold is None
+    if calibrated:
+        threshold = threshold_for(false_alarms, step, phi, inflation)
+    else:
+        false_alarms = rate_for(threshold, step, phi, inflation)
     z = np.full(age.size, np.nan)
     z[near_idx] = z_near
     baseline = np.full(age.size, np.nan)
     baseline[near_idx] = sign * base_near
+    level = np.full(age.size, np.nan)
+    level[near_idx] = sign * (base_near + threshold * scale)
     runs = [(inside[a], inside[b]) for a, b in runs_above(z[inside], threshold)]
     depth = record["depth"].values if "depth" in record.coords else None
     candidates = [EventCandidate(
@@ -146,21 +189,29 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
     inside = inside[trace_points(values[inside])]  # what a figure needs, spikes kept
     trace = Trace(age_top=bounds[inside, 0].tolist(), age_bottom=bounds[inside, 1].tolist(),
                   value=trace_list(values[inside]), curve_age=age[inside].tolist(),
-                  curve=trace_list(baseline[inside]),
-                  threshold=trace_list(baseline[inside] + sign * threshold * scale))
+                  curve=trace_list(back(baseline[inside])),
+                  threshold=trace_list(back(level[inside])))
+    on = "the log of the values" if scale_kind == "log" else "the values"
+    rule = (f"calibrated to {false_alarms:.3g} false events per 1000 yr" if calibrated else
+            f"fixed; implies {false_alarms:.3g} false events per 1000 yr")
     common = dict(record=record_name(record), variable=variable, window=window,
                   **variable_units(record, variable),
                   age_reference=reference_of(record),
-                  method=(f"robust z-score > {threshold:g} (running median over {span:g} yr, "
-                          "MAD x 1.4826), first anomalous run in forward time"),
-                  candidates=candidates, threshold=float(threshold), baseline_years=span,
+                  method=(f"robust z-score of {on} > {threshold:.3g} ({rule} under an AR(1) "
+                          f"background, lag-1 autocorrelation {persistence:.2f}; running median "
+                          f"over {span:g} yr, MAD x 1.4826), first anomalous run in forward "
+                          "time"),
+                  candidates=candidates, threshold=float(threshold),
+                  false_alarms=float(false_alarms), threshold_calibrated=calibrated,
+                  background=scale_kind, persistence=persistence, baseline_years=span,
                   scale=float(scale), pick=pick, direction=direction, trace=trace,
                   provenance=provenance(inputs=[record_input(record, "record")], parameters={
                       "variable": variable, "window": window, "threshold": threshold,
+                      "false_alarms": false_alarms, "background": scale_kind,
                       "baseline_years": span, "pick": pick, "direction": direction}))
     if not runs:
         return EventResult(found=False, message=f"no event found: no sample in the window "
-                                                f"exceeds {threshold:g} robust sd", **common)
+                                                f"exceeds {threshold:.3g} robust sd", **common)
     first, last = max(runs, key=lambda run: age[run[0]])  # the oldest run comes first
     i = last if pick == "first" else first + int(np.nanargmax(z[first:last + 1]))
     lo, hi = float(bounds[i, 0]), float(bounds[i, 1])
@@ -172,6 +223,19 @@ def detect_event(record, variable, window=None, *, threshold=DEFAULT_EVENT_THRES
                             depth=None if depth is None else float(depth[i]),
                             value=float(values[i]), z=float(z[i])),
         sample_interval=hi - lo, depth=None if depth is None else float(depth[i]), **common)
+
+
+def _background_scale(values, background, variable):
+    """``(kind, forward, back)``: the scale the background is modelled on and the maps to and
+    from it. ``log`` needs every finite value positive."""
+    finite = values[np.isfinite(values)]
+    positive = finite.size > 0 and bool(np.all(finite > 0))
+    if background == "log" and not positive:
+        raise InputError("background 'log' needs positive values; use 'linear'",
+                         field="background", source=variable)
+    if background == "linear" or not positive:
+        return "linear", (lambda v: v), (lambda v: v)
+    return "log", np.log, np.exp
 
 
 class Event(MarkerKind):
@@ -202,8 +266,17 @@ class Event(MarkerKind):
                      sign * rng.uniform(-(hi - lo) / 2, (hi - lo) / 2, n))]
 
     def assumptions(self, marker, label):
+        if marker.false_alarms is None:  # a result written before thresholds were calibrated
+            return [f"Marker {label}: the event's age is uniform over the age interval of its "
+                    "first anomalous sample."]
+        on = "the log of the proxy" if marker.background == "log" else "the proxy values"
+        how = ("calibrated to" if marker.threshold_calibrated else "fixed, implying")
         return [f"Marker {label}: the event's age is uniform over the age interval of its first "
-                "anomalous sample."]
+                "anomalous sample.",
+                f"Marker {label}: the detection threshold ({marker.threshold:.3g} robust sd) is "
+                f"{how} {marker.false_alarms:.3g} false events per 1000 years of background, "
+                f"modelled on {on} as Gaussian AR(1) anomalies (lag-1 autocorrelation "
+                f"{marker.persistence:.2f})."]
 
     def draw(self, ax, marker, colour):
         from align.figures import COLOURS, interval_span
@@ -213,7 +286,9 @@ class Event(MarkerKind):
                 color=COLOURS["ink"], lw=1, label="baseline (running median)")
         ax.plot(trace.curve_age, [np.nan if v is None else v for v in trace.threshold],
                 color=COLOURS["ink"], lw=1, ls=":",
-                label=f"threshold ({marker.threshold:g} robust sd)")
+                label=f"threshold ({marker.threshold:.3g} robust sd"
+                      + ("" if marker.false_alarms is None else
+                         f", {marker.false_alarms:.3g} false events per 1000 yr") + ")")
         for candidate in marker.candidates:
             ax.axvspan(*candidate.age_span, color=COLOURS["light"], lw=0)
         if marker.found:
