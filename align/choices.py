@@ -30,6 +30,9 @@ EventBackground = Literal["auto", "log", "linear"]
 EventDirection = Literal["up", "down"]
 #: Rising, falling, or whichever fits better.
 OnsetDirection = Literal["auto", "up", "down"]
+#: Which point of a transition an onset marker stands for: its onset (the older end of the
+#: ramp), its midpoint or its end (the younger end).
+OnsetPosition = Literal["onset", "midpoint", "end"]
 #: How an onset and its uncertainty are estimated.
 OnsetMethod = Literal["ramp", "bayes"]
 
@@ -68,6 +71,7 @@ DEFAULT_EVENT_PICK: EventPick = "first"
 DEFAULT_EVENT_DIRECTION: EventDirection = "up"
 DEFAULT_ONSET_DIRECTION: OnsetDirection = "auto"
 DEFAULT_ONSET_METHOD: OnsetMethod = "ramp"
+DEFAULT_ONSET_POSITION: OnsetPosition = "onset"
 DEFAULT_ONSET_DRAWS = 2000
 DEFAULT_LAG_DRAWS = 20_000
 DEFAULT_TIMESCALE_MODEL: TimescaleModel = "correlated"

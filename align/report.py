@@ -146,6 +146,12 @@ def _contents(result):
 # content
 
 
+def _kind(marker):
+    """The marker's kind, with the transition's point for onset markers not at the onset."""
+    position = getattr(marker, "position", None)
+    return marker.kind if position in (None, "onset") else f"{marker.kind}: {position}"
+
+
 def _fmt(value, digits=1):
     return f"{value:.{digits}f}"
 
@@ -200,10 +206,10 @@ def lag_blocks(result):
                   ["68 % interval", f"{_interval(lag.ci68)} yr"],
                   ["95 % interval", f"{_interval(lag.ci95)} yr"],
                   ["P(a before b)", _fmt(lag.p_a_before_b, 3)],
-                  [f"marker a ({result.a.kind})", f"{_fmt(result.a.age.median)} yr {ref} "
-                                                  f"(95 %: {_interval(result.a.age.ci95)})"],
-                  [f"marker b ({result.b.kind})", f"{_fmt(result.b.age.median)} yr {ref} "
-                                                  f"(95 %: {_interval(result.b.age.ci95)})"],
+                  [f"marker a ({_kind(result.a)})", f"{_fmt(result.a.age.median)} yr {ref} "
+                                                    f"(95 %: {_interval(result.a.age.ci95)})"],
+                  [f"marker b ({_kind(result.b)})", f"{_fmt(result.b.age.median)} yr {ref} "
+                                                    f"(95 %: {_interval(result.b.age.ci95)})"],
                   ["timescales", result.relation],
                   ["resolution floor (sampling alone)", f"{_fmt(result.resolution_floor, 2)} yr"],
                   ["smallest lag resolved (95 % interval excluding zero) with "

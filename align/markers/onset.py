@@ -14,8 +14,9 @@ import numpy as np
 from pydantic import Field
 
 from align.choices import (DEFAULT_ONSET_DIRECTION, DEFAULT_ONSET_DRAWS, DEFAULT_ONSET_METHOD,
-                           MAX_ONSET_DRAWS, MIN_ONSET_DRAWS, EventDirection, OnsetDirection,
-                           OnsetMethod, check_choice)
+                           DEFAULT_ONSET_POSITION, MAX_ONSET_DRAWS, MIN_ONSET_DRAWS,
+                           EventDirection, OnsetDirection, OnsetMethod, OnsetPosition,
+                           check_choice)
 from align.errors import InputError
 from align.markers.base import MarkerKind, Part
 from align.schema_base import Estimate, MarkerBase, MarkerDraws, Model
@@ -36,6 +37,9 @@ class OnsetOptions(Model):
                                 "AR(1) bootstrap, or the Bayesian ramp (MCMC)")
     draws: int = Field(DEFAULT_ONSET_DRAWS, ge=MIN_ONSET_DRAWS, le=MAX_ONSET_DRAWS,
                        description="bootstrap replicates or posterior draws")
+    position: OnsetPosition = Field(DEFAULT_ONSET_POSITION, description="the point of the "
+                                    "transition that is the marker: its onset (older end of "
+                                    "the ramp), midpoint or end")
 
 
 class Levels(Model):
@@ -70,16 +74,17 @@ class OnsetResult(MarkerBase):
     clear_transition: bool
     reason: str | None = None
     draws_used: int
+    position: OnsetPosition = DEFAULT_ONSET_POSITION
 
     @property
     def age(self):
-        """The onset's age estimate."""
-        return self.onset
+        """The age estimate of the marker's point (``position``: onset, midpoint or end)."""
+        return getattr(self, self.position)
 
 
 def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
                  method=DEFAULT_ONSET_METHOD, draws=DEFAULT_ONSET_DRAWS, seed=None,
-                 age_reference=None):
+                 age_reference=None, position=DEFAULT_ONSET_POSITION):
     """Fit the onset of a transition and its uncertainty.
 
     Parameters
@@ -99,6 +104,9 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         Drawn and recorded when None.
     age_reference : {"b2k", "BP"}, optional
         Reference of the window and the result (default: the record's).
+    position : {"onset", "midpoint", "end"}
+        The point of the transition the marker stands for (its draws, its ``age``): the
+        onset (older end of the ramp, default), the midpoint or the end.
 
     Returns
     -------
@@ -133,6 +141,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
 
     check_choice(method, OnsetMethod, "method")
     check_choice(direction, OnsetDirection, "direction")
+    check_choice(position, OnsetPosition, "position")
     if not (isinstance(draws, (int, np.integer)) and draws >= MIN_ONSET_DRAWS):
         raise InputError(f"draws must be an integer of at least {MIN_ONSET_DRAWS}",
                          field="draws")
@@ -167,6 +176,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     onset_age, end_age = -onset_t, -end_t
     amplitude = samples[:, 3] - samples[:, 2]
     clear, reason = _clarity(fit, noise)
+    point = {"onset": fit.t1, "end": fit.t2, "midpoint": 0.5 * (fit.t1 + fit.t2)}[position]
     depth = record["depth"].values if "depth" in record.coords else None
     result = OnsetResult(
         record=record_name(record), variable=variable, window=window,
@@ -174,19 +184,22 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         age_reference=reference_of(record), method=_method_text(method, noise),
         references=(["mudelsee2000", "mudelsee2002", "efron1993"] if method == "ramp"
                     else ["erhardt2019"]),
-        sample_interval=float(np.interp(fit.t1, t, width)),
-        depth=None if depth is None else float(np.interp(-fit.t1, age, depth)),
+        sample_interval=float(np.interp(point, t, width)),
+        depth=None if depth is None else float(np.interp(-point, age, depth)),
         onset=estimate(onset_age), midpoint=estimate(0.5 * (onset_age + end_age)),
         end=estimate(end_age), duration=estimate(onset_age - end_age),
         levels=Levels(before=estimate(samples[:, 2]), after=estimate(samples[:, 3])),
         amplitude=estimate(amplitude), noise=noise,
         direction="up" if fit.x2 > fit.x1 else "down", clear_transition=clear, reason=reason,
-        draws_used=int(len(samples)),
+        draws_used=int(len(samples)), position=position,
         trace=_onset_trace(bounds[keep], values[keep], window, fit, samples),
         provenance=provenance(inputs=[record_input(record, "record")], parameters={
             "variable": variable, "window": window, "direction": direction, "method": method,
-            "draws": draws}, seed=seed))
-    return result.with_draws(MarkerDraws(age=onset_age, fit=-samples[:, 0]))
+            "draws": draws, "position": position}, seed=seed))
+    ages = {"onset": (onset_age, -samples[:, 0]), "end": (end_age, -samples[:, 1]),
+            "midpoint": (0.5 * (onset_age + end_age), -0.5 * (samples[:, 0] + samples[:, 1]))}
+    age_draws, fit_draws = ages[position]
+    return result.with_draws(MarkerDraws(age=age_draws, fit=fit_draws))
 
 
 def _clarity(fit, noise):
@@ -246,15 +259,25 @@ class Onset(MarkerKind):
         fit = draws.fit[pick]
         jitter = draws.age[pick] - fit
         name = self.part_name(marker, label)
-        return [Part(f"{name}: onset fit under AR(1) noise", "detection", label,
+        return [Part(f"{name}: {marker.position} fit under AR(1) noise", "detection", label,
                      sign * (fit - np.median(draws.fit))),
-                Part(f"{name}: sample interval at the onset ({marker.sample_interval:.3g} yr)",
-                     "resolution", label, sign * jitter)]
+                Part(f"{name}: sample interval at the {marker.position} "
+                     f"({marker.sample_interval:.3g} yr)", "resolution", label, sign * jitter)]
+
+    def part_name(self, marker, label):
+        return f"{label}: {self.describe(marker)[4:]}"
+
+    def describe(self, marker):
+        if marker.position == "onset":
+            return super().describe(marker)
+        return f"the {marker.position} of the transition in {marker.record} {marker.variable}"
 
     def assumptions(self, marker, label):
         out = [f"Marker {label}: ramp fit with AR(1) noise (sd {marker.noise.sd:.3g}, "
-               f"coefficient {marker.noise.ar1:.2f} at the mean spacing); the onset is placed "
-               "no more finely than its sample interval."]
+               f"coefficient {marker.noise.ar1:.2f} at the mean spacing); the marker is the "
+               f"transition's {marker.position}"
+               + (" (the older end of the ramp)" if marker.position == "onset" else "")
+               + ", placed no more finely than its sample interval."]
         if not marker.clear_transition:
             out.append(f"Caution, marker {label}: {marker.reason}.")
         return out
