@@ -37,7 +37,7 @@ from pathlib import Path
 import numpy as np
 from scipy.stats import chi2
 
-from align import heterogeneity as het
+import align.heterogeneity as het
 
 from align.ages import convert_age
 from align.errors import InputError
