@@ -38,6 +38,7 @@ import numpy as np
 from scipy.stats import chi2
 
 import align.heterogeneity as het
+from align.synchrony import chi2_statistic, dl_tau2, q_profile
 
 from align.ages import convert_age
 from align.errors import InputError
@@ -354,7 +355,8 @@ def combine(draws, rng, samples=20_000):
     medians = np.array([row.lag.median for row in rows])
     var = np.array([row.lag.sd ** 2 for row in rows])
     k = len(rows)
-    tau2, q = het.dersimonian_laird(medians, var)
+    cov = np.diag(var)
+    tau2, q = float(dl_tau2(medians, cov)), float(chi2_statistic(medians, cov))
     weights = 1.0 / (var + tau2)
     combined = (weights[:, None] * (members + rng.normal(0.0, np.sqrt(tau2), members.shape))
                 ).sum(axis=0) / weights.sum()
@@ -366,7 +368,7 @@ def combine(draws, rng, samples=20_000):
     heterogeneity = Heterogeneity(
         q=q, dof=k - 1, p_value=p_value, tau2=tau2, significant=p_value < HETEROGENEITY_LEVEL,
         tau=float(np.sqrt(tau2)),
-        tau_ci95=[float(np.sqrt(b)) for b in het.q_profile_interval(medians, var)],
+        tau_ci95=[float(np.sqrt(b)) for b in q_profile(medians, cov)],
         largest=[QShare(label=rows[i].label, share=float(shares[i])) for i in order])
     return summary, prediction, heterogeneity, _headline(summary, prediction, heterogeneity)
 

@@ -13,36 +13,44 @@ from align import heterogeneity as het
 from align.lag import estimate_lag, lag_summary
 from align.schema import SurveyPair
 from align.survey import combine, pair_draws
+from align.synchrony import chi2_statistic, dl_tau2, q_profile
 from synthetic import spike_core
 
 
-def test_dersimonian_laird_agrees_with_statsmodels():
-    """Reference library: statsmodels' combine_effects (method_re="dl") computes the same
-    between-study variance and Q another way."""
+def test_survey_heterogeneity_agrees_with_statsmodels():
+    """Reference library: statsmodels' combine_effects (method_re="dl") computes Q, the
+    DerSimonian-Laird variance and the fixed-effect mean another way."""
     from statsmodels.stats.meta_analysis import combine_effects
 
     rng = np.random.default_rng(1)
-    y, v = rng.normal(0, 20, 9), rng.uniform(20, 400, 9)
-    tau2, q = het.dersimonian_laird(y, v)
+    medians = rng.normal(0, 20, 9)
+    sds = rng.uniform(5, 20, 9)
+    rows = [(SurveyPair(label=f"p{i}", lag=lag_summary(rng.normal(m, s, 200_000)), clear=True),
+             (np.array([m]), [])) for i, (m, s) in enumerate(zip(medians, sds))]
+    h = combine(rows, rng, samples=1000)[2]
+    y = np.array([row.lag.median for row, _ in rows])
+    v = np.array([row.lag.sd ** 2 for row, _ in rows])
     ref = combine_effects(y, v, method_re="dl")
-    assert tau2 == pytest.approx(ref.tau2, rel=1e-9)
-    assert q == pytest.approx(ref.q, rel=1e-9)
+    assert h.q == pytest.approx(ref.q, rel=1e-9)
+    assert h.tau2 == pytest.approx(ref.tau2, rel=1e-9)
 
 
 @pytest.mark.slow
 def test_q_profile_interval_covers_the_between_pair_variance():
     """Generator: k = 8 pairs, true lags N(0, tau^2) with tau = 15 yr, within-pair sds
     U(5, 20) yr, estimates N(true, v). Nominal 95 %; tolerance 0.93-0.97 over 2000 sets
-    (binomial sd 0.5 %). The Q-profile interval is exact under this model (Viechtbauer 2007)."""
+    (binomial sd 0.5 %). The Q-profile interval (align.synchrony.q_profile, used by surveys) is
+    exact under this model (Viechtbauer 2007)."""
     rng = np.random.default_rng(2)
     hits = 0
     for _ in range(2000):
         v = rng.uniform(5, 20, 8) ** 2
         y = rng.normal(0, 15, 8) + rng.normal(0, np.sqrt(v))
-        lo, hi = het.q_profile_interval(y, v)
+        lo, hi = q_profile(y, np.diag(v))
         hits += lo <= 15.0**2 <= hi
         if hi > 0:  # the bound solves Q(tau2) = the chi-square 2.5 % point (scipy)
-            assert het.generalised_q(y, v, hi) == pytest.approx(chi2.ppf(0.025, 7), rel=1e-6)
+            assert chi2_statistic(y, np.diag(v + hi)) == pytest.approx(chi2.ppf(0.025, 7),
+                                                                       rel=1e-6)
     print(f"Q-profile 95 % interval of tau^2: coverage {hits / 2000:.3f}")
     assert 0.93 <= hits / 2000 <= 0.97
 
@@ -58,7 +66,7 @@ def test_prediction_interval_covers_a_new_pair():
     for _ in range(3000):
         v = rng.uniform(5, 15, 10) ** 2
         y = rng.normal(5, 20, 10) + rng.normal(0, np.sqrt(v))
-        tau2, _ = het.dersimonian_laird(y, v)
+        tau2 = float(dl_tau2(y, np.diag(v)))
         w = 1 / (v + tau2)
         lo, hi = het.prediction_interval(np.sum(w * y) / w.sum(), np.sqrt(1 / w.sum()), tau2,
                                          10)
