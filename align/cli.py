@@ -47,6 +47,9 @@ class _Parser(argparse.ArgumentParser):
     def __init__(self, *args, **kwargs):
         kwargs.setdefault("formatter_class", _Formatter)
         super().__init__(*args, **kwargs)
+        self.add_argument("--limit", metavar="NAME=N", action="append", default=argparse.SUPPRESS,
+                          help="raise a resource limit for this run, e.g. cells=1e8 "
+                               "(repeatable; the limits are listed in the README)")
 
     def error(self, message):
         self.exit(2, f"{self.prog}: error: {message}\n")
@@ -63,12 +66,14 @@ def main(argv=None):
     try:
         from align.progress import reporting
 
-        with reporting():
+        with reporting(), _limits(getattr(args, "limit", [])):
             code = args.run(args) or 0
         sys.stdout.flush()  # a closed pipe shows here, not at exit
         return code
     except InputError as exc:
-        print(f"corealign: {cli_words(str(exc))}", file=sys.stderr)
+        hint = (f"; raise it with --limit {exc.limit}=N" if getattr(exc, "limit", None)
+                else "")
+        print(f"corealign: {cli_words(str(exc))}{hint}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("corealign: interrupted", file=sys.stderr)
@@ -82,6 +87,19 @@ def main(argv=None):
         print(f"corealign: internal error: {exc.__class__.__name__}: {exc} "
               "(set COREALIGN_DEBUG=1 for the traceback)", file=sys.stderr)
         return 1
+
+
+def _limits(items):
+    """``--limit NAME=N`` options as a :func:`align.limits.use_limits` block."""
+    from align.limits import use_limits
+
+    changes = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        if not sep:
+            raise InputError(f"--limit takes NAME=N, got {item!r}", field="limit")
+        changes[name.strip()] = value.strip()
+    return use_limits(**changes)
 
 
 def _one_line_warning(message, category, filename, lineno, file=None, line=None):

@@ -135,6 +135,7 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     Replicates are simulated and refitted ``CHUNK_VALUES // n`` rows at a time, so memory
     does not grow as ``draws x n``; the draws are the same as in one block.
     """
+    check_draws(draws, t.size)
     fit = fit_ramp(t, x, w, sign)
     fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
     resid = x - fitted
@@ -153,6 +154,14 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     samples = np.vstack(chunks)
     samples = samples[np.all(np.isfinite(samples), axis=1)]
     return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
+
+
+def check_draws(draws, samples):
+    """Draws times samples in the window against the ``draws_x_samples`` limit."""
+    from align import limits
+
+    limits.check("draws_x_samples", float(draws) * samples, field="draws",
+                 detail=f" ({draws:,} draws x {samples} samples)")
 
 
 def noise_parameters(t, w, fitted, a, sd, sign, draws, rng):

@@ -28,6 +28,7 @@ import scipy.fft as sfft
 from align.choices import (DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD, DEFAULT_SURROGATE_KIND,
                            DEFAULT_SURROGATES, CorrelationMethod, SurrogateKind, check_choice)
 from align.errors import InputError
+from align import limits
 from align.noise import lag1_autocorrelation, persistence_time, simulate_ar1
 from align.provenance import provenance, record_input, resolve_seed
 from align.record import age_reference as age_reference_of
@@ -354,6 +355,12 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
         surrogate_kind = "ar1"  # phase randomisation needs a regular grid
     if not (np.isfinite(max_lag) and max_lag > 0):
         raise InputError("max_lag must be a positive number of years", field="max_lag")
+    if step is not None and not (np.isfinite(step) and step > 0):
+        raise InputError("step must be a positive number of years", field="step")
+    for name, count, least in (("surrogates", surrogates, 0), ("bootstrap", bootstrap, 10)):
+        if not (isinstance(count, (int, np.integer)) and count >= least):
+            raise InputError(f"{name} must be a whole number of at least {least} "
+                             f"(got {count!r})", field=name)
     seed = resolve_seed(seed)
     rng = np.random.default_rng(seed)
     (rec_a, var_a), (rec_b, var_b) = a, b
@@ -367,6 +374,7 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
     rec_a, rec_b = with_age_reference(rec_a, ref), with_age_reference(rec_b, ref)
     window = _overlap(rec_a, rec_b, window)
     step = float(step or round_step(max(native_resolution(rec_a), native_resolution(rec_b))))
+    _check_sizes(max_lag, step, window, surrogates, bootstrap)
     k = int(np.floor(max_lag / step))
     if k < 1:
         raise InputError("max_lag is shorter than one grid step", field="max_lag")
@@ -422,6 +430,19 @@ def surrogate_test(r, r_s):
     peak = np.nanmax(np.abs(r))
     p_value = float((np.sum(np.nanmax(np.abs(r_s), axis=1) >= peak) + 1) / (r_s.shape[0] + 1))
     return p_value, np.nanpercentile(r_s, [2.5, 97.5], axis=0)
+
+
+def _check_sizes(max_lag, step, window, surrogates, bootstrap):
+    """The sizes the request implies, against :mod:`align.limits`, before any work."""
+    cells = (window[1] - window[0]) / step
+    lags = 2 * np.floor(max_lag / step) + 1
+    by = f" (step {step:g})"
+    limits.check("lag_steps", lags, field="max_lag", detail=by)
+    limits.check("cells", cells, field="step", detail=f" ({window[0]:g} to {window[1]:g} by "
+                                                      f"{step:g})")
+    limits.check("lags_x_length", lags * cells, field="max_lag", detail=by)
+    limits.check("surrogates_x_length", surrogates * cells, field="surrogates", detail=by)
+    limits.check("surrogates_x_length", bootstrap * cells, field="bootstrap", detail=by)
 
 
 def _overlap(rec_a, rec_b, window):

@@ -60,10 +60,14 @@ def register(app):
 
     @app.errorhandler(InputError)
     def _input(exc):
-        field = exc.field
-        pointer = None if not field else "/" + field.replace(".", "/").replace("-", "_")
-        return problem_response(exc.status if exc.status in TYPES else 422, str(exc),
-                                pointer=pointer)
+        from flask import current_app
+
+        from api.locate import Where, words
+
+        store = current_app.extensions.get("corealign.store")
+        return problem_response(exc.status if exc.status in TYPES else 422,
+                                words(str(exc), store.root if store else None),
+                                pointer=Where().pointer(exc))
 
     @app.errorhandler(HTTPException)
     def _http(exc):

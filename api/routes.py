@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import tempfile
 from pathlib import Path
 
@@ -15,8 +16,9 @@ from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest
                           SynchronyResult, XcorrRequest, XcorrResult)
 from api.bodies import Health, RecordList, StoredRecord, StoredTies
 from align.ties import read_ties
-from api import tasks
+from api import locate, tasks
 from api.compute import ComputationTimeout, run
+from api.locate import Where
 from api.problems import Problem
 from api.spec import endpoint, openapi_text
 
@@ -53,13 +55,17 @@ def store():
     return current_app.extensions["corealign.store"]
 
 
-def compute(task, *args):
-    """Run a task in a worker under the configured time limit."""
+def compute(task, *args, where=None):
+    """Run a task in a worker under the configured time and resource limits; a library error
+    is answered with a pointer into the request (``where``, :class:`api.locate.Where`)."""
     config = current_app.config
     try:
-        return run(task, *args, workers=config["WORKERS"], timeout=config["TIME_LIMIT"])
+        return run(tasks.limited, config["LIMITS"], task, *args, workers=config["WORKERS"],
+                   timeout=config["TIME_LIMIT"])
     except ComputationTimeout as exc:
         raise Problem(503, str(exc), title="Computation stopped") from None
+    except InputError as exc:
+        raise locate.problem(exc, where or Where(), store().root) from None
 
 
 def answer(body, status=200, location=None):
@@ -117,12 +123,14 @@ def upload_record():
         info = store().record_info(upload_id)
         return answer({"entry": existing, "info": info}, 200, f"/records/{upload_id}")
     folder = store().root / "uploads"
-    with tempfile.NamedTemporaryFile(dir=folder, suffix=Path(name).suffix or ".dat",
+    with tempfile.NamedTemporaryFile(dir=folder, suffix=_suffix(name),
                                      delete=False) as handle:
         handle.write(raw)
     try:
         entry, info = compute(tasks.ingest, str(store().root), handle.name, name, mapping,
-                              upload_id)
+                              upload_id, where=Where(
+                                  fields={k: f"/mapping/{k}" for k in MAPPING_KEYS},
+                                  default="/file"))
     finally:
         Path(handle.name).unlink(missing_ok=True)
     return answer({"entry": entry, "info": info}, 201, f"/records/{upload_id}")
@@ -137,7 +145,24 @@ def _upload():
     raw = upload.read()
     if not raw:
         raise Problem(422, "the uploaded file is empty", pointer="/file")
-    return raw, upload.filename or "upload"
+    return raw, upload_name(upload.filename)
+
+
+def upload_name(filename):
+    """An upload's file name made safe to show and to take a suffix from: the last path part,
+    without control characters, at most 120 characters (the suffix kept when it is short)."""
+    name = re.sub(r"[\x00-\x1f\x7f]", "", (filename or "").replace("\\", "/"))
+    name = name.rsplit("/", 1)[-1].strip() or "upload"
+    if len(name) > 120:
+        suffix = _suffix(name)
+        name = name[:120 - len(suffix)] + "..." + suffix
+    return name
+
+
+def _suffix(name):
+    """The file name's suffix when it is a plausible one (``.nc``, ``.csv``), else ``.dat``."""
+    match = re.search(r"\.[A-Za-z0-9]{1,12}$", name)
+    return match[0] if match else ".dat"
 
 
 def _mapping():
@@ -247,7 +272,8 @@ def _detect_view(name):
     def view(body):
         marker_limits(body, "")
         path = record_path(body.record, "/record")
-        return answer(compute(tasks.detect, body.model_dump(), path))
+        return answer(compute(tasks.detect, body.model_dump(), path,
+                              where=Where(sides={path: ("", body.variable)})))
 
     view.__name__ = f"detect_{name}"
     return view
@@ -266,7 +292,9 @@ def xcorr(body):
     limit(body.bootstrap, "MAX_SURROGATES", "/bootstrap")
     path_a = record_path(body.a.record, "/a/record")
     path_b = record_path(body.b.record, "/b/record")
-    return answer(compute(tasks.xcorr, body.model_dump(), path_a, path_b))
+    sides = {path_b: ("/b", body.b.variable), path_a: ("/a", body.a.variable)}
+    return answer(compute(tasks.xcorr, body.model_dump(), path_a, path_b,
+                          where=Where(sides=sides)))
 
 
 @endpoint(analysis, "/resample", "POST", summary="Resample a record onto a regular grid",
@@ -277,13 +305,12 @@ def resample(body):
     span = entry["age_range"] if body.along == "age" else entry["depth_range"]
     if span is None:
         raise Problem(422, f"the record has no {body.along}", pointer="/along")
-    if body.step is not None:
-        cells = ((body.stop if body.stop is not None else span[1])
-                 - (body.start if body.start is not None else span[0])) / body.step
-        limit(cells, "MAX_CELLS", "/step")
     grid_file = store().root / "uploads" / f"{sha256_bytes(body.model_dump_json().encode())}.nc"
     try:
-        summary = compute(tasks.resample, body.model_dump(), path, str(grid_file))
+        summary = compute(tasks.resample, body.model_dump(), path, str(grid_file),
+                          where=Where(sides={path: ("", None)},
+                                      fields={"records": "/record", "step": "/step",
+                                              "start": "/start", "stop": "/stop"}))
         grid_id = store().add_grid(grid_file)
     finally:
         grid_file.unlink(missing_ok=True)
@@ -313,7 +340,9 @@ def lag(body):
         paths[spec.record] = record_path(spec.record, f"/{side}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
-    text = compute(tasks.lag, body.model_dump(), paths)
+    sides = {paths[body.b.record]: ("/b", body.b.variable),
+             paths[body.a.record]: ("/a", body.a.variable)}
+    text = compute(tasks.lag, body.model_dump(), paths, where=Where(sides=sides))
     report_id = store().add_result("lag", text)
     return answer(text, location=f"/reports/{report_id}")
 

@@ -36,6 +36,14 @@ class StoreSources(Sources):
         return read_ties(self.paths[name])
 
 
+def limited(limits, task, *args):
+    """``task(*args)`` under the service's resource limits (:mod:`align.limits`)."""
+    from align.limits import use_limits
+
+    with use_limits(**limits):
+        return task(*args)
+
+
 def ingest(root, path, name, mapping, upload_id):
     """Read and validate an upload, store it; returns (catalogue entry, RecordInfo dict)."""
     from align.describe import describe_record
