@@ -370,7 +370,12 @@ def atomic_write(path, write):
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise InputError("the output folder does not exist", source=str(folder), status=404)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
+    if path.is_dir():
+        raise InputError("is a folder; name a file to write", source=str(path))
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name[:200]}.", suffix=".part", dir=folder)
+    except OSError as exc:
+        raise InputError(f"cannot write here ({exc.strerror})", source=str(path)) from None
     os.close(fd)
     umask = os.umask(0)
     os.umask(umask)

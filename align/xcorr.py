@@ -28,6 +28,7 @@ import scipy.fft as sfft
 from align.choices import (DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD, DEFAULT_SURROGATE_KIND,
                            DEFAULT_SURROGATES, CorrelationMethod, SurrogateKind, check_choice)
 from align.errors import InputError
+from align.detect import check_proxy, check_window
 from align import limits
 from align.noise import lag1_autocorrelation, persistence_time, simulate_ar1
 from align.provenance import provenance, record_input, resolve_seed
@@ -365,8 +366,7 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
     rng = np.random.default_rng(seed)
     (rec_a, var_a), (rec_b, var_b) = a, b
     for rec, var in ((rec_a, var_a), (rec_b, var_b)):
-        if var not in rec:
-            raise InputError("no such variable", source=rec.attrs.get("source"), field=var)
+        check_proxy(rec, var)
         if age_reference_of(rec) is None:
             raise InputError("the record has no timescale", source=rec.attrs.get("source"),
                              field="age")
@@ -449,7 +449,7 @@ def _overlap(rec_a, rec_b, window):
     lo = max(rec_a["age_bounds"].values[0, 0], rec_b["age_bounds"].values[0, 0])
     hi = min(rec_a["age_bounds"].values[-1, 1], rec_b["age_bounds"].values[-1, 1])
     if window is not None:
-        young, old = sorted(float(v) for v in window)
+        young, old = check_window(window)
         lo, hi = max(lo, young), min(hi, old)
     if hi <= lo:
         raise InputError("the records do not overlap in the window", field="window")

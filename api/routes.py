@@ -171,8 +171,9 @@ def _mapping():
         return {}
     try:
         mapping = json.loads(text)
-    except json.JSONDecodeError:
-        raise Problem(422, "mapping is not valid JSON", pointer="/mapping") from None
+    except (json.JSONDecodeError, RecursionError):
+        raise Problem(422, "mapping is not valid JSON (or nested too deeply)",
+                      pointer="/mapping") from None
     if not isinstance(mapping, dict):
         raise Problem(422, "mapping must be a JSON object", pointer="/mapping")
     unknown = sorted(set(mapping) - MAPPING_KEYS)

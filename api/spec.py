@@ -76,7 +76,10 @@ def parse_body(model):
     if request.mimetype != "application/json":
         got = request.mimetype or "no content type"
         raise Problem(415, f"send the body as application/json (got {got})")
-    data = request.get_json(silent=True)
+    try:
+        data = request.get_json(silent=True)
+    except RecursionError:
+        raise Problem(400, "the body is nested too deeply") from None
     if data is None:
         raise Problem(400, "the body is not valid JSON")
     if not isinstance(data, dict):
