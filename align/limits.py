@@ -173,9 +173,3 @@ def check(name, amount, *, field, source=None, detail=""):
     size = f"{amount:,.0f}" if amount < 1e15 else f"{amount:.3g}"
     raise LimitError(f"means {size} {WHAT[name]}{detail}, over the limit of {ceiling:,} "
                      f"(limit {name!r})", limit=name, field=field, source=source)
-
-
-def table():
-    """The limits as Markdown rows ``| name | counts | library default |`` (for the README)."""
-    return [f"| `{f.name}` | {WHAT[f.name]} | {getattr(DEFAULTS, f.name):,} |"
-            for f in fields(Limits)]

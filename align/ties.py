@@ -344,9 +344,10 @@ def transfer(record, ties, onto, *, method=DEFAULT_TIE_INTERPOLATION, extrapolat
         raise InputError("the bridge rate must be a number >= 0", field="bridge_rate")
     _check_range(ties, record, onto)
     tie_ages = _tie_ages(ties, onto)
-    if bridge_rate is not None and bridge_rate * np.ptp(tie_ages) > MAX_BRIDGE_VARIANCE:
+    span = max(float(np.ptp(tie_ages)), 1.0)
+    if bridge_rate is not None and bridge_rate > MAX_BRIDGE_VARIANCE / span:
         raise InputError(f"the bridge rate {bridge_rate:g} yr^2/yr gives an age sd of "
-                         f"{np.sqrt(bridge_rate * np.ptp(tie_ages)):.3g} yr across the ties, "
+                         f"{np.sqrt(bridge_rate) * np.sqrt(span):.3g} yr across the ties, "
                          f"over the {np.sqrt(MAX_BRIDGE_VARIANCE):g} yr this tool can carry",
                          field="bridge_rate")
     if bridge_rate is None:
