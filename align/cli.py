@@ -1,9 +1,9 @@
 """The ``corealign`` command: parses arguments, calls the library, prints.
 
 Exit codes: 0 success, 2 bad input (one line naming the file, variable and row or field), 1 an
-internal error, 130 interrupted. ``--json`` prints the same object the library's ``to_dict()``
-returns. The library is imported inside each command, so ``corealign --help`` and
-``corealign age`` do not load the scientific stack.
+internal error, 130 interrupted (Ctrl-C), 143 terminated (SIGTERM). ``--json`` prints the same
+object the library's ``to_dict()`` returns. The library is imported inside each command, so
+``corealign --help`` and ``corealign age`` do not load the scientific stack.
 
 Words kept the same on every command: ``--age-reference`` is the reference of an input
 file's ages; ``--to`` the reference of windows and results (default: b2k for lags and surveys,
@@ -17,6 +17,7 @@ import argparse
 import json
 import os
 import re
+import signal
 import sys
 import types
 import warnings
@@ -63,6 +64,7 @@ def main(argv=None):
         parser.print_help()
         return 2
     warnings.showwarning = _one_line_warning
+    signal.signal(signal.SIGTERM, _terminated)
     try:
         from align.progress import reporting
 
@@ -78,6 +80,9 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("corealign: interrupted", file=sys.stderr)
         return 130
+    except _Terminated:
+        print("corealign: terminated", file=sys.stderr)
+        return 143
     except BrokenPipeError:  # the reader went away (``| head``): not an error
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
@@ -87,6 +92,14 @@ def main(argv=None):
         print(f"corealign: internal error: {exc.__class__.__name__}: {exc} "
               "(set COREALIGN_DEBUG=1 for the traceback)", file=sys.stderr)
         return 1
+
+
+class _Terminated(BaseException):
+    """SIGTERM, raised where the program is (so that ``finally`` blocks clean up)."""
+
+
+def _terminated(signum, frame):
+    raise _Terminated
 
 
 def _limits(items):
@@ -412,7 +425,8 @@ def _serve_parser(commands):
     serve.add_argument("--data-dir", metavar="DIR",
                        help="store folder (default: $COREALIGN_DATA_DIR or the XDG data home)")
     serve.add_argument("--token-file", metavar="FILE",
-                       help="require this bearer token on write routes")
+                       help="require this bearer token on every route but /health and "
+                            "/openapi.json")
     serve.add_argument("--workers", type=int, help="computation worker processes (default 2)")
     serve.add_argument("--time-limit", type=float, metavar="SECONDS",
                        help="stop a computation after this long (default 300)")

@@ -365,6 +365,9 @@ def atomic_write(path, write):
     """Call ``write(tmp_path)`` on a temporary file beside ``path``, then rename it into place.
 
     Nothing is left behind when ``write`` fails; an existing file at ``path`` is untouched.
+    In the main thread, SIGINT and SIGTERM are held while ``write`` runs (a signal inside the
+    HDF5 library can leave its lock taken, and the process hung); a signal that came meanwhile
+    discards the new file and is delivered as soon as the write returns.
     """
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
@@ -380,15 +383,55 @@ def atomic_write(path, write):
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(tmp, 0o666 & ~umask)
-    try:
-        write(tmp)
-        with open(tmp, "rb+") as handle:
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with _HeldSignals() as held:
+        try:
+            write(tmp)
+            with open(tmp, "rb+") as handle:
+                os.fsync(handle.fileno())
+            if held.signal is None:
+                os.replace(tmp, path)
+        finally:
+            Path(tmp).unlink(missing_ok=True)
+    held.deliver()
     return path
+
+
+class _HeldSignals:
+    """SIGINT and SIGTERM held (main thread only) and delivered after the block."""
+
+    SIGNALS = ("SIGINT", "SIGTERM")
+
+    def __init__(self):
+        self.signal = None
+        self.saved = {}
+
+    def __enter__(self):
+        import signal
+
+        if threading.current_thread() is threading.main_thread():
+            for name in self.SIGNALS:
+                number = getattr(signal, name)
+                previous = signal.signal(number, self._hold)
+                if previous is not None:
+                    self.saved[number] = previous
+        return self
+
+    def _hold(self, signum, frame):
+        self.signal = self.signal or signum
+
+    def __exit__(self, *exc):
+        import signal
+
+        for number, handler in self.saved.items():
+            signal.signal(number, handler)
+        return False
+
+    def deliver(self):
+        """Send the held signal again, now that its handler is back."""
+        if self.signal is not None:
+            import signal
+
+            signal.raise_signal(self.signal)
 
 
 def read_json(path, what="file"):

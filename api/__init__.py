@@ -24,7 +24,10 @@ DEFAULTS = {
     "MAX_PAIRS": 200,  # pairs per survey
     "TIME_LIMIT": 300.0,  # seconds a computation may run before it is stopped
     "WORKERS": 2,  # worker processes (0: compute in the request thread, for tests)
-    "TOKEN": None,  # bearer token for write routes (None: no authentication)
+    "TOKEN": None,  # bearer token (None: no authentication); computing and storing need it
+    "TOKEN_READS": True,  # with a token, reads need it too (False: reads are open)
+    "ALLOWED_HOSTS": None,  # Host names answered (None: any; serve on loopback: loopback only)
+    "WORKER_MEMORY": None,  # bytes of data a worker process may hold (None: no limit)
 }
 
 
@@ -49,7 +52,7 @@ def create_app(config=None):
     -------
     flask.Flask
     """
-    from api import problems
+    from api import guard, problems
     from api.routes import BLUEPRINTS
     from api.store import Store
 
@@ -62,6 +65,7 @@ def create_app(config=None):
     app.json.sort_keys = False
     app.extensions["corealign.store"] = Store(app.config["DATA_DIR"], reconcile=True)
     problems.register(app)
+    guard.register(app)
     for blueprint in BLUEPRINTS:
         app.register_blueprint(blueprint)
     return app

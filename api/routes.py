@@ -5,19 +5,20 @@ from __future__ import annotations
 import json
 import re
 import tempfile
+import threading
 from pathlib import Path
 
 from flask import Blueprint, current_app, jsonify, request, send_file
 
 from align.errors import InputError
 from align.provenance import sha256_bytes, version
-from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest, LagResult,
-                          RecordInfo, ResampleRequest, SurveyResult, SurveySpec, SynchronyRequest,
-                          SynchronyResult, XcorrRequest, XcorrResult)
-from api.bodies import Health, RecordList, StoredRecord, StoredTies
+from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest, RecordInfo,
+                          ResampleRequest, SurveySpec, SynchronyRequest, XcorrRequest)
+from api.bodies import (Health, RecordList, StoredLagResult, StoredRecord, StoredSurveyResult,
+                        StoredSynchronyResult, StoredTable, StoredTies, StoredXcorrResult)
 from align.ties import read_ties
 from api import locate, tasks
-from api.compute import ComputationTimeout, run
+from api.compute import ComputationTimeout, WorkerLost, run
 from api.locate import Where
 from api.problems import Problem
 from api.spec import endpoint, openapi_text
@@ -45,7 +46,11 @@ SITES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
                             "chronology,shared_sd,independent]"},
     "options": {"type": "string", "description": "JSON object: age_reference, draws, seed, "
                                                  "outlier_prior"}}}
+#: Result kinds with a rendered report (the others, such as xcorr, are served as JSON).
 RESULT_KINDS = ("lag", "survey", "synchrony")
+TABLE_SCHEMA = {"type": "object", "required": ["file"], "properties": {
+    "file": {"type": "string", "format": "binary",
+             "description": "an event table (CSV/TSV with a header line) for surveys"}}}
 TIES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
     "file": {"type": "string", "format": "binary",
              "description": "label,depth,ref_depth|ref_age,sd"}}}
@@ -61,9 +66,13 @@ def compute(task, *args, where=None):
     config = current_app.config
     try:
         return run(tasks.limited, config["LIMITS"], task, *args, workers=config["WORKERS"],
-                   timeout=config["TIME_LIMIT"])
+                   timeout=config["TIME_LIMIT"], memory=config["WORKER_MEMORY"])
     except ComputationTimeout as exc:
-        raise Problem(503, str(exc), title="Computation stopped") from None
+        raise Problem(503, str(exc), title="Computation stopped",
+                      headers={"Retry-After": "60"}) from None
+    except WorkerLost as exc:
+        raise Problem(503, str(exc), title="Computation stopped",
+                      headers={"Retry-After": "5"}) from None
     except InputError as exc:
         raise locate.problem(exc, where or Where(), store().root) from None
 
@@ -97,13 +106,13 @@ def limit(value, name, pointer):
 # meta
 
 
-@endpoint(meta, "/health", "GET", summary="Is the service up?", response=Health)
+@endpoint(meta, "/health", "GET", summary="Is the service up?", response=Health, public=True)
 def health():
     return answer(Health(status="ok", version=version()).to_dict())
 
 
 @endpoint(meta, "/openapi.json", "GET", summary="This API's OpenAPI document",
-          produces=("application/json",))
+          produces=("application/json",), public=True)
 def openapi():
     return answer(openapi_text(version()))
 
@@ -230,6 +239,37 @@ def record_data(record_id):
     raise Problem(422, "format is netcdf or csv", pointer="/format")
 
 
+@endpoint(records, "/tables", "POST", summary="Upload an event table (for surveys)",
+          multipart=TABLE_SCHEMA, response=StoredTable, status=201, write=True)
+def upload_table():
+    from align.tables import read_table
+
+    raw, name = _upload()
+    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
+                                     delete=False) as handle:
+        handle.write(raw)
+    try:
+        with limits_of_service():
+            frame = read_table(Path(handle.name)).frame
+    except InputError as exc:
+        raise locate.problem(exc.with_source(name), Where(default="/file"),
+                             store().root) from None
+    finally:
+        Path(handle.name).unlink(missing_ok=True)
+    if frame.empty:
+        raise Problem(422, f"{name}: the event table has no rows", pointer="/file")
+    object_id = store().add_table(raw, list(frame.columns), len(frame))
+    return answer({"id": object_id, "columns": list(frame.columns), "rows": len(frame),
+                   "checksum": object_id}, 201, f"/tables/{object_id}")
+
+
+def limits_of_service():
+    """The service's resource limits, for work done in the request thread."""
+    from align.limits import use_limits
+
+    return use_limits(**current_app.config["LIMITS"])
+
+
 @endpoint(records, "/ties", "POST", summary="Upload a tie table", multipart=TIES_SCHEMA,
           response=StoredTies, status=201, write=True)
 def upload_ties():
@@ -287,19 +327,19 @@ for _name, _kind in RECORD_KINDS.items():  # one route per marker kind: POST /de
 
 
 @endpoint(analysis, "/xcorr", "POST", summary="Cross-correlate two records",
-          body=XcorrRequest, response=XcorrResult, computes=True)
+          body=XcorrRequest, response=StoredXcorrResult, status=201, computes=True)
 def xcorr(body):
     limit(body.surrogates, "MAX_SURROGATES", "/surrogates")
     limit(body.bootstrap, "MAX_SURROGATES", "/bootstrap")
     path_a = record_path(body.a.record, "/a/record")
     path_b = record_path(body.b.record, "/b/record")
     sides = {path_b: ("/b", body.b.variable), path_a: ("/a", body.a.variable)}
-    return answer(compute(tasks.xcorr, body.model_dump(), path_a, path_b,
-                          where=Where(sides=sides)))
+    text = compute(tasks.xcorr, body.model_dump(), path_a, path_b, where=Where(sides=sides))
+    return stored_result("xcorr", text)
 
 
 @endpoint(analysis, "/resample", "POST", summary="Resample a record onto a regular grid",
-          body=ResampleRequest, response=GridSummary, computes=True)
+          body=ResampleRequest, response=GridSummary, status=201, computes=True)
 def resample(body):
     path = record_path(body.record, "/record")
     entry = store().record_entry(body.record)
@@ -315,7 +355,7 @@ def resample(body):
         grid_id = store().add_grid(grid_file)
     finally:
         grid_file.unlink(missing_ok=True)
-    return answer(summary, location=f"/grids/{grid_id}")
+    return answer(summary, 201, location=f"/grids/{grid_id}")
 
 
 @endpoint(analysis, "/grids/<grid_id>", "GET", summary="Download a grid made by /resample "
@@ -328,7 +368,7 @@ def grid_data(grid_id):
 
 
 @endpoint(analysis, "/lag", "POST", summary="The lag between two markers, with its budget",
-          body=LagRequest, response=LagResult, computes=True)
+          body=LagRequest, response=StoredLagResult, status=201, computes=True)
 def lag(body):
     limit(body.draws, "MAX_DRAWS", "/draws")
     paths = {}
@@ -341,43 +381,69 @@ def lag(body):
         paths[spec.record] = record_path(spec.record, f"/{side}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
-    sides = {paths[body.b.record]: ("/b", body.b.variable),
-             paths[body.a.record]: ("/a", body.a.variable)}
+    sides = {paths[spec.record]: (f"/{side}", spec.variable)
+             for side, spec in (("b", body.b), ("a", body.a))
+             if getattr(spec, "record", None) in paths}
     text = compute(tasks.lag, body.model_dump(), paths, where=Where(sides=sides))
-    report_id = store().add_result("lag", text)
-    return answer(text, location=f"/reports/{report_id}")
+    return stored_result("lag", text)
 
 
 @endpoint(analysis, "/survey", "POST", summary="Lags of many marker pairs, combined",
-          body=SurveySpec, response=SurveyResult, computes=True)
+          body=SurveySpec, response=StoredSurveyResult, status=201, computes=True)
 def survey(body):
-    if not body.pairs:
-        raise Problem(422, "the service takes surveys as explicit pairs of stored records",
-                      pointer="/pairs")
     limit(body.draws, "MAX_DRAWS", "/draws")
-    limit(len(body.pairs), "MAX_PAIRS", "/pairs")
     paths = {}
-    for k, pair in enumerate(body.pairs):
-        for side in ("a", "b"):
-            spec = getattr(pair, side)
-            marker_limits(spec, f"/pairs/{k}/{side}")
-            paths[spec.record] = record_path(spec.record, f"/pairs/{k}/{side}/record")
+    if body.pairs:
+        limit(len(body.pairs), "MAX_PAIRS", "/pairs")
+        markers = [(f"/pairs/{k}/{side}", getattr(pair, side))
+                   for k, pair in enumerate(body.pairs) for side in ("a", "b")]
+    elif body.table is not None and body.a is not None and body.b is not None:
+        paths[body.table.path] = _table_path(body.table.path)
+        markers = [("/a", body.a), ("/b", body.b)]
+    else:
+        raise Problem(422, "a survey needs pairs, or a table (a stored event table's id) with "
+                           "a and b", pointer="/pairs")
+    for pointer, spec in markers:
+        marker_limits(spec, pointer)
+        paths[spec.record] = record_path(spec.record, f"{pointer}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
-    text = compute(tasks.survey, body.model_dump(), paths)
-    report_id = store().add_result("survey", text)
-    return answer(text, location=f"/reports/{report_id}")
+    text = compute(tasks.survey, body.model_dump(), paths,
+                   where=Where(fields={"pairs": "/pairs", "label_column": "/table/label_column",
+                                       "age_column": "/table/age_column"}))
+    return stored_result("survey", text)
+
+
+def _table_path(table_id):
+    """The stored event table a survey names; 422 (pointer ``/table/path``) when unknown."""
+    if not store().has("tables", table_id):
+        raise Problem(422, f"no stored event table with id {table_id!r} (upload it to "
+                           "/tables)", pointer="/table/path")
+    return str(store().path("tables", table_id))
+
+
+def stored_result(kind, text):
+    """Store a result (the library's JSON text) and answer 201 with its id and links in the
+    body and its address in ``Location``."""
+    result_id = store().add_result(kind, text)
+    links = {"result": f"/reports/{result_id}"}
+    if kind in RESULT_KINDS:
+        links["report"] = f"/reports/{result_id}.html"
+    extra = json.dumps({"id": result_id, "links": links})
+    return answer(text[:-1] + ", " + extra[1:], 201, links["result"])
 
 
 @endpoint(analysis, "/synchrony", "POST", summary="Is one horizon the same age at many sites? "
           "(sites tabulated or on stored records)", body=SynchronyRequest,
-          response=SynchronyResult, computes=True)
+          response=StoredSynchronyResult, status=201,
+          computes=True, links=RESULT_LINKS)
 def synchrony(body):
     return _synchrony(body.model_dump(exclude_unset=True), body)
 
 
 @endpoint(analysis, "/synchrony/table", "POST", summary="Synchrony of the sites in an uploaded "
-          "CSV site table", multipart=SITES_SCHEMA, response=SynchronyResult, computes=True)
+          "CSV site table", multipart=SITES_SCHEMA, response=StoredSynchronyResult, status=201,
+          computes=True, links=RESULT_LINKS)
 def synchrony_table():
     from align.sites import read_site_table
 
@@ -417,8 +483,7 @@ def _synchrony(data, body):
         if site.record is not None:
             paths[site.record] = record_path(site.record, f"/sites/{k}/record")
     text = compute(tasks.synchrony, data, paths)
-    report_id = store().add_result("synchrony", text)
-    return answer(text, location=f"/reports/{report_id}")
+    return stored_result("synchrony", text)
 
 
 def _ties_path(ties_id, pointer):
@@ -431,19 +496,32 @@ def _ties_path(ties_id, pointer):
 # reports
 
 
+_RENDERING = {}
+_RENDERING_LOCK = threading.Lock()
+
+
 def _report_folder(report_id):
+    """The rendered report folder, rendered once on first view: concurrent first views wait
+    for the one rendering (and a folder is only ever renamed into place whole)."""
     if store().result_kind(report_id) not in RESULT_KINDS:
         raise Problem(404, f"no stored result with id {report_id!r}")
     folder = store().report_folder(report_id)
-    if not (folder / "report.html").exists():
-        compute(tasks.render_report, str(store().path("results", report_id)), str(folder))
+    if (folder / "report.html").exists():
+        return folder
+    with _RENDERING_LOCK:
+        lock = _RENDERING.setdefault(report_id, threading.Lock())
+    with lock:
+        if not (folder / "report.html").exists():
+            compute(tasks.render_report, str(store().path("results", report_id)), str(folder))
+    with _RENDERING_LOCK:
+        _RENDERING.pop(report_id, None)
     return folder
 
 
 @endpoint(reports, "/reports/<report_id>", "GET", summary="A stored result (report.json)",
           produces=("application/json",))
 def report_json(report_id):
-    if store().result_kind(report_id) not in RESULT_KINDS:
+    if store().result_kind(report_id) is None:
         raise Problem(404, f"no stored result with id {report_id!r}")
     return send_file(store().path("results", report_id), mimetype="application/json")
 

@@ -60,9 +60,8 @@ def test_use_limits_is_scoped_and_checked():
         assert inside.cells == 1000 and limits.current().cells == 1000
     assert limits.current() == before
     for bad in ({"cellz": 5}, {"cells": 0}, {"cells": 1.5}, {"cells": "many"}):
-        with pytest.raises(InputError):
-            with use_limits(**bad):
-                pass
+        with pytest.raises(InputError), use_limits(**bad):
+            pass
 
 
 # --------------------------------------------------------------------------------------------
@@ -258,7 +257,7 @@ def problem(response, status, pointer):
 def test_service_limits_at_and_past(tight, tmp_path):
     client = tight.test_client()
     ice = stored(client, ICE)
-    assert client.post("/resample", json={"record": ice, "step": 10}).status_code == 200
+    assert client.post("/resample", json={"record": ice, "step": 10}).status_code == 201
     tight.config["LIMITS"]["cells"] = ICE_CELLS_10 - 1
     body = problem(client.post("/resample", json={"record": ice, "step": 10}), 422, "/step")
     assert "limit 'cells'" in body["detail"] and str(tmp_path) not in body["detail"]
