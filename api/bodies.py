@@ -84,8 +84,8 @@ class ResultLinks(Model):
     """Where a stored result can be read again."""
 
     result: str = Field(description="the stored result as JSON (also the Location header)")
-    report: str | None = Field(None, description="the report as one HTML page (lag and "
-                                                 "survey results)")
+    report: str | None = Field(None, description="the report as one HTML page (lag, survey "
+                                                 "and synchrony results)")
 
 
 def stored(result):
@@ -101,3 +101,6 @@ StoredLagResult = stored(LagResult)
 StoredSurveyResult = stored(SurveyResult)
 StoredXcorrResult = stored(XcorrResult)
 StoredSynchronyResult = stored(SynchronyResult)
+#: The library's result classes behind the stored ones (documented in OpenAPI too).
+STORED_OF = {StoredLagResult: LagResult, StoredSurveyResult: SurveyResult,
+             StoredXcorrResult: XcorrResult, StoredSynchronyResult: SynchronyResult}

@@ -14,6 +14,7 @@ from functools import lru_cache, wraps
 
 from flask import current_app, request
 
+from api.bodies import STORED_OF
 from api.bodies import Problem as ProblemModel
 from align.schema import json_schemas
 from api.problems import CONTENT_TYPE, Problem
@@ -125,6 +126,7 @@ def _openapi_text(version, _routes):
 @lru_cache(maxsize=4)
 def _openapi_document(version, _routes):
     models = {r.body for r in ROUTES if r.body} | {r.response for r in ROUTES if r.response}
+    models |= {STORED_OF[m] for m in models if m in STORED_OF}
     schemas = json_schemas(sorted(models | {ProblemModel}, key=lambda m: m.__name__))
     paths = {}
     for route in ROUTES:
