@@ -375,16 +375,17 @@ def atomic_write(path, write):
         raise InputError("the output folder does not exist", source=str(folder), status=404)
     if path.is_dir():
         raise InputError("is a folder; name a file to write", source=str(path))
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name[:200]}.", suffix=".part", dir=folder)
-    except OSError as exc:
-        raise InputError(f"cannot write here ({exc.strerror})", source=str(path)) from None
-    os.close(fd)
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
     with _HeldSignals() as held:
         try:
+            fd, tmp = tempfile.mkstemp(prefix=f".{path.name[:200]}.", suffix=".part",
+                                       dir=folder)
+        except OSError as exc:
+            raise InputError(f"cannot write here ({exc.strerror})", source=str(path)) from None
+        os.close(fd)
+        try:
+            umask = os.umask(0)
+            os.umask(umask)
+            os.chmod(tmp, 0o666 & ~umask)
             write(tmp)
             with open(tmp, "rb+") as handle:
                 os.fsync(handle.fileno())

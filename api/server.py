@@ -128,12 +128,16 @@ def _problem_channel():
 
 
 def _run(server):
-    """Run until SIGINT or SIGTERM; then close the sockets and stop the workers."""
+    """Run until SIGINT or SIGTERM; then close the sockets and stop the workers. SIGTERM ends
+    with exit code 143 (waitress's loop returns quietly on either signal)."""
     import signal
 
     from api.compute import shutdown
 
+    stopped = []
+
     def stop(signum, frame):
+        stopped.append(signum)
         raise SystemExit(128 + signum)
 
     previous = signal.signal(signal.SIGTERM, stop)
@@ -145,3 +149,5 @@ def _run(server):
         signal.signal(signal.SIGTERM, previous)
         server.close()
         shutdown()
+    if stopped:
+        raise SystemExit(128 + stopped[0])
