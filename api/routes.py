@@ -56,6 +56,10 @@ TIES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
              "description": "label,depth,ref_depth|ref_age,sd"}}}
 
 
+#: What a stored result links to (OpenAPI links: stateful tests follow them).
+RESULT_LINKS = {"result": ("report_json", {"report_id": "$response.body#/id"})}
+
+
 def store():
     return current_app.extensions["corealign.store"]
 
@@ -122,7 +126,8 @@ def openapi():
 
 
 @endpoint(records, "/records", "POST", summary="Upload a record (NetCDF, or CSV with a mapping)",
-          multipart=UPLOAD_SCHEMA, response=StoredRecord, status=201, write=True, computes=True)
+          multipart=UPLOAD_SCHEMA, response=StoredRecord, status=201, write=True, computes=True,
+          links={"record": ("get_record", {"record_id": "$response.body#/entry/id"})})
 def upload_record():
     raw, name = _upload()
     mapping = _mapping()
@@ -327,7 +332,8 @@ for _name, _kind in RECORD_KINDS.items():  # one route per marker kind: POST /de
 
 
 @endpoint(analysis, "/xcorr", "POST", summary="Cross-correlate two records",
-          body=XcorrRequest, response=StoredXcorrResult, status=201, computes=True)
+          body=XcorrRequest, response=StoredXcorrResult, status=201, computes=True,
+          links=RESULT_LINKS)
 def xcorr(body):
     limit(body.surrogates, "MAX_SURROGATES", "/surrogates")
     limit(body.bootstrap, "MAX_SURROGATES", "/bootstrap")
@@ -368,7 +374,8 @@ def grid_data(grid_id):
 
 
 @endpoint(analysis, "/lag", "POST", summary="The lag between two markers, with its budget",
-          body=LagRequest, response=StoredLagResult, status=201, computes=True)
+          body=LagRequest, response=StoredLagResult, status=201, computes=True,
+          links=RESULT_LINKS)
 def lag(body):
     limit(body.draws, "MAX_DRAWS", "/draws")
     paths = {}
@@ -389,7 +396,8 @@ def lag(body):
 
 
 @endpoint(analysis, "/survey", "POST", summary="Lags of many marker pairs, combined",
-          body=SurveySpec, response=StoredSurveyResult, status=201, computes=True)
+          body=SurveySpec, response=StoredSurveyResult, status=201, computes=True,
+          links=RESULT_LINKS)
 def survey(body):
     limit(body.draws, "MAX_DRAWS", "/draws")
     paths = {}

@@ -44,14 +44,16 @@ class Route:
     computes: bool = False
     parameters: list = field(default_factory=list)
     public: bool = False
+    links: dict = field(default_factory=dict)
 
 
 def endpoint(blueprint, rule, method, *, summary, body=None, multipart=None, response=None,
              produces=("application/json",), status=200, write=False, computes=False,
-             query=(), public=False):
+             query=(), public=False, links=None):
     """Register a view (decorator). A JSON ``body`` model is parsed and validated first and
     passed as ``body=``. With a token configured, routes that write or compute always need
     it, reads unless ``TOKEN_READS`` is off; ``public`` routes (health, this document) never.
+    ``links`` are OpenAPI links of the success response (what to read next, by id).
     """
 
     def decorate(view):
@@ -59,7 +61,8 @@ def endpoint(blueprint, rule, method, *, summary, body=None, multipart=None, res
         path = (blueprint.url_prefix or "") + re.sub(r"<(?:\w+:)?(\w+)>", r"{\1}", rule)
         ROUTES.append(Route(method, path, view.__name__, summary, body, multipart, response,
                             tuple(produces), status, write, computes,
-                            [*names, *(("query", q) for q in query)], public))
+                            [*names, *(("query", q) for q in query)], public,
+                            dict(links or {})))
 
         @wraps(view)
         def handle(**kwargs):
@@ -187,4 +190,7 @@ def _success(route):
     if route.status == 201:
         out["headers"] = {"Location": {"description": "where the created resource is read",
                                        "schema": {"type": "string"}}}
+    if route.links:
+        out["links"] = {name: {"operationId": operation, "parameters": parameters}
+                        for name, (operation, parameters) in route.links.items()}
     return out

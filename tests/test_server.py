@@ -88,8 +88,8 @@ def test_schemathesis_finds_no_server_error(server):
         [sys.executable, "-m", "schemathesis.cli", "run", server.url + "/openapi.json",
          "--checks", "not_a_server_error,status_code_conformance,content_type_conformance,"
                      "response_schema_conformance",
-         "--phases", "coverage,fuzzing", "--max-examples", "10", "--workers", "1",
-         "--max-time", "60", "--seed", "1"],
+         "--phases", "coverage,fuzzing,stateful", "--max-examples", "10", "--workers", "1",
+         "--max-time", "40", "--seed", "1"],
         capture_output=True, text=True, timeout=600, cwd=ROOT)
     assert done.returncode == 0, done.stdout[-4000:]
 
