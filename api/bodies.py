@@ -7,8 +7,7 @@ from typing import Literal
 
 from pydantic import ConfigDict, Field, create_model
 
-from align.schema import (AgeRef, LagResult, Model, Pair, RecordInfo, SurveyResult,
-                          SynchronyResult, XcorrResult)
+from align.schema import AgeRef, LagResult, Model, Pair, RecordInfo, SurveyResult, XcorrResult
 
 
 class Health(Model):
@@ -84,8 +83,8 @@ class ResultLinks(Model):
     """Where a stored result can be read again."""
 
     result: str = Field(description="the stored result as JSON (also the Location header)")
-    report: str | None = Field(None, description="the report as one HTML page (lag, survey "
-                                                 "and synchrony results)")
+    report: str | None = Field(None, description="the report as one HTML page (lag and "
+                                                 "survey results)")
 
 
 def stored(result):
@@ -100,7 +99,6 @@ def stored(result):
 StoredLagResult = stored(LagResult)
 StoredSurveyResult = stored(SurveyResult)
 StoredXcorrResult = stored(XcorrResult)
-StoredSynchronyResult = stored(SynchronyResult)
 #: The library's result classes behind the stored ones (documented in OpenAPI too).
 STORED_OF = {StoredLagResult: LagResult, StoredSurveyResult: SurveyResult,
-             StoredXcorrResult: XcorrResult, StoredSynchronyResult: SynchronyResult}
+             StoredXcorrResult: XcorrResult}

@@ -13,9 +13,10 @@ from flask import Blueprint, current_app, jsonify, request, send_file
 from align.errors import InputError
 from align.provenance import sha256_bytes, version
 from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest, RecordInfo,
-                          ResampleRequest, SurveySpec, SynchronyRequest, XcorrRequest)
+                          ResampleRequest, SurveySpec, SynchronyRequest, SynchronyResult,
+                          XcorrRequest)
 from api.bodies import (Health, RecordList, StoredLagResult, StoredRecord, StoredSurveyResult,
-                        StoredSynchronyResult, StoredTable, StoredTies, StoredXcorrResult)
+                        StoredTable, StoredTies, StoredXcorrResult)
 from align.ties import read_ties
 from api import locate, tasks
 from api.compute import ComputationTimeout, WorkerLost, run
@@ -443,15 +444,14 @@ def stored_result(kind, text):
 
 @endpoint(analysis, "/synchrony", "POST", summary="Is one horizon the same age at many sites? "
           "(sites tabulated or on stored records)", body=SynchronyRequest,
-          response=StoredSynchronyResult, status=201,
-          computes=True, links=RESULT_LINKS)
+          response=SynchronyResult, computes=True)
 def synchrony(body):
     return _synchrony(body.model_dump(exclude_unset=True), body)
 
 
 @endpoint(analysis, "/synchrony/table", "POST", summary="Synchrony of the sites in an uploaded "
-          "CSV site table", multipart=SITES_SCHEMA, response=StoredSynchronyResult, status=201,
-          computes=True, links=RESULT_LINKS)
+          "CSV site table", multipart=SITES_SCHEMA, response=SynchronyResult,
+          computes=True)
 def synchrony_table():
     from align.sites import read_site_table
 
@@ -491,7 +491,8 @@ def _synchrony(data, body):
         if site.record is not None:
             paths[site.record] = record_path(site.record, f"/sites/{k}/record")
     text = compute(tasks.synchrony, data, paths)
-    return stored_result("synchrony", text)
+    report_id = store().add_result("synchrony", text)
+    return answer(text, location=f"/reports/{report_id}")
 
 
 def _ties_path(ties_id, pointer):
