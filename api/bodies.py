@@ -83,8 +83,7 @@ class ResultLinks(Model):
     """Where a stored result can be read again."""
 
     result: str = Field(description="the stored result as JSON (also the Location header)")
-    report: str | None = Field(None, description="the report as one HTML page (lag and "
-                                                 "survey results)")
+    report: str | None = Field(None, description="the report as one HTML page")
 
 
 def stored(result):

@@ -47,8 +47,8 @@ SITES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
                             "chronology,shared_sd,independent]"},
     "options": {"type": "string", "description": "JSON object: age_reference, draws, seed, "
                                                  "outlier_prior"}}}
-#: Result kinds with a rendered report (the others, such as xcorr, are served as JSON).
-RESULT_KINDS = ("lag", "survey", "synchrony")
+#: Result kinds with a rendered report.
+RESULT_KINDS = ("lag", "survey", "synchrony", "xcorr")
 TABLE_SCHEMA = {"type": "object", "required": ["file"], "properties": {
     "file": {"type": "string", "format": "binary",
              "description": "an event table (CSV/TSV with a header line) for surveys"}}}

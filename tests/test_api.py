@@ -213,7 +213,10 @@ def test_analyses_and_reports(client):
     assert xcorr.status_code == 201 and "peak_lag" in xcorr.json
     stored_xcorr = client.get(xcorr.headers["Location"]).json
     assert stored_xcorr == {k: v for k, v in xcorr.json.items() if k not in ("id", "links")}
-    assert xcorr.json["links"] == {"result": f"/reports/{xcorr.json['id']}"}  # no page yet
+    assert xcorr.json["links"] == {"result": xcorr.headers["Location"],
+                                   "report": f"/reports/{xcorr.json['id']}.html"}
+    xcorr_page = client.get(xcorr.json["links"]["report"])
+    assert xcorr_page.status_code == 200 and b"<svg" in xcorr_page.data
     request = json.loads((RECORDS / "demo_lag_request.json").read_text())
     request["a"]["record"], request["b"]["record"] = ice, lake
     request.update(ties=ties.json["id"], draws=4000)
