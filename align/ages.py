@@ -156,6 +156,8 @@ def convert_age(values, from_, to):
     >>> convert_age(11703, "b2k", "BP")
     11653.0
     """
+    if np.ndim(values) == 0 and not np.isfinite(values):
+        raise InputError(f"an age must be a finite number (got {values})", field="value")
     result = from_bp(to_bp(values, from_), to)
     return float(result) if np.ndim(result) == 0 else result
 

@@ -93,6 +93,9 @@ def posterior_ramps(t, x, w, sign, draws, rng):
     noise : NoiseModel
         Posterior medians of sigma and tau.
     """
+    from align.detect import check_draws
+
+    check_draws(draws, t.size)
     fit = fit_ramp(t, x, w, sign)
     span = t[-1] - t[0]
     sd = float(np.std(x)) or 1.0

@@ -1,9 +1,9 @@
 """The ``corealign`` command: parses arguments, calls the library, prints.
 
 Exit codes: 0 success, 2 bad input (one line naming the file, variable and row or field), 1 an
-internal error, 130 interrupted. ``--json`` prints the same object the library's ``to_dict()``
-returns. The library is imported inside each command, so ``corealign --help`` and
-``corealign age`` do not load the scientific stack.
+internal error, 130 interrupted (Ctrl-C), 143 terminated (SIGTERM). ``--json`` prints the same
+object the library's ``to_dict()`` returns. The library is imported inside each command, so
+``corealign --help`` and ``corealign age`` do not load the scientific stack.
 
 Words kept the same on every command: ``--age-reference`` is the reference of an input
 file's ages; ``--to`` the reference of windows and results (default: b2k for lags and surveys,
@@ -17,6 +17,7 @@ import argparse
 import json
 import os
 import re
+import signal
 import sys
 import types
 import warnings
@@ -47,6 +48,9 @@ class _Parser(argparse.ArgumentParser):
     def __init__(self, *args, **kwargs):
         kwargs.setdefault("formatter_class", _Formatter)
         super().__init__(*args, **kwargs)
+        self.add_argument("--limit", metavar="NAME=N", action="append", default=argparse.SUPPRESS,
+                          help="raise a resource limit for this run, e.g. cells=1e8 "
+                               "(repeatable; the limits are listed in the README)")
 
     def error(self, message):
         self.exit(2, f"{self.prog}: error: {message}\n")
@@ -60,19 +64,25 @@ def main(argv=None):
         parser.print_help()
         return 2
     warnings.showwarning = _one_line_warning
+    signal.signal(signal.SIGTERM, _terminated)
     try:
         from align.progress import reporting
 
-        with reporting():
+        with reporting(), _limits(getattr(args, "limit", [])):
             code = args.run(args) or 0
         sys.stdout.flush()  # a closed pipe shows here, not at exit
         return code
     except InputError as exc:
-        print(f"corealign: {cli_words(str(exc))}", file=sys.stderr)
+        hint = (f"; raise it with --limit {exc.limit}=N" if getattr(exc, "limit", None)
+                else "")
+        print(f"corealign: {cli_words(str(exc))}{hint}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("corealign: interrupted", file=sys.stderr)
         return 130
+    except _Terminated:
+        print("corealign: terminated", file=sys.stderr)
+        return 143
     except BrokenPipeError:  # the reader went away (``| head``): not an error
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
@@ -82,6 +92,27 @@ def main(argv=None):
         print(f"corealign: internal error: {exc.__class__.__name__}: {exc} "
               "(set COREALIGN_DEBUG=1 for the traceback)", file=sys.stderr)
         return 1
+
+
+class _Terminated(BaseException):
+    """SIGTERM, raised where the program is (so that ``finally`` blocks clean up)."""
+
+
+def _terminated(signum, frame):
+    raise _Terminated
+
+
+def _limits(items):
+    """``--limit NAME=N`` options as a :func:`align.limits.use_limits` block."""
+    from align.limits import use_limits
+
+    changes = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        if not sep:
+            raise InputError(f"--limit takes NAME=N, got {item!r}", field="limit")
+        changes[name.strip()] = value.strip()
+    return use_limits(**changes)
 
 
 def _one_line_warning(message, category, filename, lineno, file=None, line=None):
@@ -394,7 +425,8 @@ def _serve_parser(commands):
     serve.add_argument("--data-dir", metavar="DIR",
                        help="store folder (default: $COREALIGN_DATA_DIR or the XDG data home)")
     serve.add_argument("--token-file", metavar="FILE",
-                       help="require this bearer token on write routes")
+                       help="require this bearer token on every route but /health and "
+                            "/openapi.json")
     serve.add_argument("--workers", type=int, help="computation worker processes (default 2)")
     serve.add_argument("--time-limit", type=float, metavar="SECONDS",
                        help="stop a computation after this long (default 300)")

@@ -48,8 +48,7 @@ def uniform_estimate(lo, hi):
 
 def prepare_window(record, variable, window, reference):
     """The record in the wanted reference and the window as ``[young, old]``."""
-    if variable not in record:
-        raise InputError("no such variable", source=record.attrs.get("source"), field=variable)
+    check_proxy(record, variable)
     if reference_of(record) is None:
         raise InputError("the record has no timescale (depth only); tie it first",
                          source=record.attrs.get("source"), field="age")
@@ -59,10 +58,7 @@ def prepare_window(record, variable, window, reference):
     lo, hi = float(bounds[:, 0].min()), float(bounds[:, 1].max())
     if window is None:
         return record, [lo, hi]
-    window = [float(v) for v in window]
-    if len(window) != 2 or not np.all(np.isfinite(window)) or window[0] == window[1]:
-        raise InputError("a window is two different ages, young and old", field="window")
-    young, old = sorted(window)
+    young, old = check_window(window)
     if old < lo or young > hi:
         raise InputError(f"the window {young:g} to {old:g} lies outside the record "
                          f"({lo:g} to {hi:g} {reference_of(record)})",
@@ -74,6 +70,38 @@ def variable_units(record, variable):
     """The ``units`` and ``reference_scale`` of a variable, as marker fields."""
     attrs = record[variable].attrs
     return {"units": attrs.get("units"), "reference_scale": attrs.get("reference_scale")}
+
+
+def check_window(window, field="window"):
+    """A window as ``(young, old)``: two finite ages, the younger (smaller) first. A reversed
+    window is refused, not swapped, so that a mistyped window is seen."""
+    try:
+        values = [float(v) for v in window]
+    except (TypeError, ValueError):
+        values = []
+    if len(values) != 2 or not np.all(np.isfinite(values)) or values[0] == values[1]:
+        raise InputError(f"a window is two different finite ages, young and old (got "
+                         f"{window!r})", field=field)
+    if values[0] > values[1]:
+        raise InputError(f"a window is [young, old] (the smaller age first): got "
+                         f"{values[0]:g},{values[1]:g}; did you mean {values[1]:g},"
+                         f"{values[0]:g}?", field=field)
+    return values[0], values[1]
+
+
+def check_proxy(record, variable):
+    """Refuse a ``variable`` that is not one of the record's proxies (absent, or a coordinate,
+    bounds or timescale variable such as the two-column ``age_bounds``)."""
+    from align.record import proxy_variables
+
+    if variable in proxy_variables(record):
+        return
+    proxies = ", ".join(proxy_variables(record)) or "none"
+    what = ("no such variable" if variable not in record.variables
+            else "not a proxy variable (it has dimensions "
+                 f"{', '.join(map(str, record[variable].dims))})")
+    raise InputError(f"{what}; the proxies are {proxies}", source=record.attrs.get("source"),
+                     field=variable)
 
 
 def trace_list(values):
@@ -135,6 +163,7 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     Replicates are simulated and refitted ``CHUNK_VALUES // n`` rows at a time, so memory
     does not grow as ``draws x n``; the draws are the same as in one block.
     """
+    check_draws(draws, t.size)
     fit = fit_ramp(t, x, w, sign)
     fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
     resid = x - fitted
@@ -153,6 +182,14 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     samples = np.vstack(chunks)
     samples = samples[np.all(np.isfinite(samples), axis=1)]
     return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
+
+
+def check_draws(draws, samples):
+    """Draws times samples in the window against the ``draws_x_samples`` limit."""
+    from align import limits
+
+    limits.check("draws_x_samples", float(draws) * samples, field="draws",
+                 detail=f" ({draws:,} draws x {samples} samples)")
 
 
 def noise_parameters(t, w, fitted, a, sd, sign, draws, rng):

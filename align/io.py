@@ -108,6 +108,15 @@ def open_record(source, *, age_reference=None, age_column=None, depth_column=Non
     InputError
         Naming the file, the column or variable and the row of the first problem.
     """
+    _check_keywords(dict(
+        age_reference=age_reference, age_column=age_column, depth_column=depth_column,
+        age_sd_column=age_sd_column, mce_column=mce_column, depth_top_column=depth_top_column,
+        depth_bottom_column=depth_bottom_column, age_top_column=age_top_column,
+        age_bottom_column=age_bottom_column, age_units=age_units, depth_units=depth_units,
+        relative_sign=relative_sign, decimal=decimal, archive=archive, site=site, core=core,
+        timescale=timescale, timescale_kind=timescale_kind), variables=variables,
+        names=names, units=units, missing_values=missing_values, relative_to=relative_to,
+        sheet=sheet, source=source)
     mapping = dict(age_reference=age_reference, age_column=age_column,
                    depth_column=depth_column, age_sd_column=age_sd_column,
                    mce_column=mce_column, depth_top_column=depth_top_column,
@@ -138,6 +147,43 @@ def open_record(source, *, age_reference=None, age_column=None, depth_column=Non
     return frame_to_record(table.frame, mapping, {**file_attributes(table.metadata), **meta},
                            name=str(path), checksum=table.checksum, locate=table.locate,
                            declared_missing=table.missing, descriptions=table.descriptions)
+
+
+def _check_keywords(texts, *, variables, names, units, missing_values, relative_to, sheet,
+                    source):
+    """The reading keywords' types, checked before the file is opened."""
+    name = source if isinstance(source, (str, os.PathLike)) else None
+
+    def refuse(field, what):
+        raise InputError(f"{field} must be {what}", source=name, field=field)
+
+    for field, value in texts.items():
+        if value is not None and not isinstance(value, str):
+            refuse(field, f"text (got {type(value).__name__})")
+    for field, value in (("variables", variables), ("names", names)):
+        if value is not None and not (isinstance(value, str) or (
+                isinstance(value, (list, tuple)) and all(isinstance(v, str) for v in value))):
+            refuse(field, "a list of names (text)")
+    if units is not None and not (isinstance(units, dict) and all(
+            isinstance(k, str) and isinstance(v, str) for k, v in units.items())):
+        refuse("units", "a mapping of variable names to units (text to text)")
+    codes = missing_values if isinstance(missing_values, (list, tuple)) else [missing_values]
+    if missing_values is not None and not all(
+            isinstance(c, (str, int, float)) and not isinstance(c, bool) for c in codes):
+        refuse("missing_values", "a number, a text code, or a list of them")
+    if relative_to is not None and not _finite_number(relative_to):
+        refuse("relative_to", "a finite age")
+    if sheet is not None and (isinstance(sheet, bool) or not isinstance(sheet, (str, int))):
+        refuse("sheet", "a sheet name or a 0-based position")
+
+
+def _finite_number(value):
+    if isinstance(value, bool) or not isinstance(value, (str, int, float)):
+        return False
+    try:
+        return bool(np.isfinite(float(value)))
+    except ValueError:
+        return False
 
 
 def _as_list(value):
@@ -171,8 +217,11 @@ def _is_netcdf(path):
 def _read_netcdf(path, mapping, meta):
     try:
         with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as opened:
+            _check_declared(opened, str(path))
             ds = opened.load()
     except (OSError, ValueError, RuntimeError) as exc:
+        if isinstance(exc, InputError):
+            raise
         reason = (exc.strerror if isinstance(exc, OSError) and exc.strerror
                   else exc.__class__.__name__)
         raise NotATableError(f"not a readable NetCDF file ({reason})", source=str(path)) from exc
@@ -194,6 +243,20 @@ def _read_netcdf(path, mapping, meta):
     return frame_to_record(pd.DataFrame(columns), mapping, {**ds.attrs, **meta},
                            name=str(path), checksum=checksum, locate=lambda i: ("sample", i),
                            attrs_of=attrs_of)
+
+
+def _check_declared(ds, name):
+    """Sizes the header declares, against :mod:`align.limits`, before any value is read: each
+    variable's uncompressed bytes, the count of variables and the length of their names."""
+    from align import limits
+
+    limits.check("columns", len(ds.variables), field="variables", source=name)
+    for var_name, var in ds.variables.items():
+        limits.check("name_length", len(str(var_name)), field="variables", source=name,
+                     detail=f" in a variable name ({str(var_name)[:40]!r}...)")
+        size = float(np.prod(var.shape, dtype=float)) * var.dtype.itemsize
+        limits.check("variable_bytes", size, field=str(var_name), source=name,
+                     detail=f" (shape {'x'.join(map(str, var.shape))}, {var.dtype})")
 
 
 def _grid_as_samples(ds):
@@ -302,25 +365,74 @@ def atomic_write(path, write):
     """Call ``write(tmp_path)`` on a temporary file beside ``path``, then rename it into place.
 
     Nothing is left behind when ``write`` fails; an existing file at ``path`` is untouched.
+    In the main thread, SIGINT and SIGTERM are held while ``write`` runs (a signal inside the
+    HDF5 library can leave its lock taken, and the process hung); a signal that came meanwhile
+    discards the new file and is delivered as soon as the write returns.
     """
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise InputError("the output folder does not exist", source=str(folder), status=404)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
-    os.close(fd)
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
-    try:
-        write(tmp)
-        with open(tmp, "rb+") as handle:
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    if path.is_dir():
+        raise InputError("is a folder; name a file to write", source=str(path))
+    with _HeldSignals() as held:
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=f".{path.name[:200]}.", suffix=".part",
+                                       dir=folder)
+        except OSError as exc:
+            raise InputError(f"cannot write here ({exc.strerror})", source=str(path)) from None
+        os.close(fd)
+        try:
+            umask = os.umask(0)
+            os.umask(umask)
+            os.chmod(tmp, 0o666 & ~umask)
+            write(tmp)
+            with open(tmp, "rb+") as handle:
+                os.fsync(handle.fileno())
+            if held.signal is None:
+                os.replace(tmp, path)
+        finally:
+            Path(tmp).unlink(missing_ok=True)
+    held.deliver()
     return path
+
+
+class _HeldSignals:
+    """SIGINT and SIGTERM held (main thread only) and delivered after the block."""
+
+    SIGNALS = ("SIGINT", "SIGTERM")
+
+    def __init__(self):
+        self.signal = None
+        self.saved = {}
+
+    def __enter__(self):
+        import signal
+
+        if threading.current_thread() is threading.main_thread():
+            for name in self.SIGNALS:
+                number = getattr(signal, name)
+                previous = signal.signal(number, self._hold)
+                if previous is not None:
+                    self.saved[number] = previous
+        return self
+
+    def _hold(self, signum, frame):
+        self.signal = self.signal or signum
+
+    def __exit__(self, *exc):
+        import signal
+
+        for number, handler in self.saved.items():
+            signal.signal(number, handler)
+        return False
+
+    def deliver(self):
+        """Send the held signal again, now that its handler is back."""
+        if self.signal is not None:
+            import signal
+
+            signal.raise_signal(self.signal)
 
 
 def read_json(path, what="file"):

@@ -55,6 +55,12 @@ def resolve_seed(seed):
     """Return ``seed`` as an int, drawing a fresh one from OS entropy when it is None."""
     if seed is None:
         return int(np.random.SeedSequence().entropy % (2**63))
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or not (
+            0 <= seed < 2**63):
+        from align.errors import InputError
+
+        raise InputError(f"seed must be a whole number from 0 to 2**63 - 1 (got {seed!r})",
+                         field="seed")
     return int(seed)
 
 

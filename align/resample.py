@@ -20,6 +20,7 @@ from align.ages import reference_label
 from align.choices import (DEFAULT_GRID_AXIS, DEFAULT_MIN_COVERAGE, DEFAULT_TIE_INTERPOLATION,
                            GridAxis, check_choice)
 from align.errors import InputError
+from align import limits
 from align.record import (MEMBER, NV, SAMPLE, age_reference, interp_extrapolate,
                           proxy_variables, record_name, with_age_reference)
 from align.provenance import history_line
@@ -118,10 +119,15 @@ def grid_cells(lo, hi, step, start=None, stop=None):
 
     if not (np.isfinite(step) and step > 0):
         raise InputError("the grid step must be a positive number", field="step")
+    for name, edge in (("start", start), ("stop", stop)):
+        if edge is not None and not np.isfinite(edge):
+            raise InputError(f"{name} must be a finite number (got {edge})", field=name)
     start = np.floor(lo / step) * step if start is None else float(start)
     stop = np.ceil(hi / step) * step if stop is None else float(stop)
     if stop <= start:
         raise InputError(f"the grid is empty (start {start:g} >= stop {stop:g})", field="stop")
+    limits.check("cells", (stop - start) / step, field="step",
+                 detail=f" ({start:g} to {stop:g} by {step:g})")
     count = int(round((stop - start) / step))
     if not np.isclose(start + count * step, stop, rtol=0, atol=1e-9 * max(1.0, abs(stop))):
         raise InputError(f"stop - start ({stop - start:g}) is not a whole number of steps "
@@ -201,6 +207,9 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
     lo = min(r[f"{along}_bounds"].values[0, 0] for r in group)
     hi = max(r[f"{along}_bounds"].values[-1, 1] for r in group)
     cells, centre = grid_cells(lo, hi, step, start, stop)
+    if cells[-1, 1] <= lo or cells[0, 0] >= hi:
+        raise InputError(f"the grid {cells[0, 0]:g} to {cells[-1, 1]:g} lies wholly outside "
+                         f"the record(s) ({lo:g} to {hi:g} {along})", field="start")
     names = _output_names(group, variables)
     data = {f"{along}_bounds": ((along, NV), cells)}
     for record, wanted in zip(group, names):

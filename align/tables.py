@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import io as _io
 import re
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -103,11 +104,7 @@ def read_table(path, *, sheet=None, names=None, decimal=None):
 
 
 def _read_text(path, raw, names, decimal):
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise NotATableError("not a text table (and not NetCDF)", source=str(path)) from exc
-    lines = text.splitlines()
+    lines = decode_text(raw, str(path)).splitlines()
     block_end = _metadata_block_end(lines, path)
     body = [(i + 1, line) for i, line in enumerate(lines)
             if i >= block_end and line.strip() and not line.lstrip().startswith("#")]
@@ -119,6 +116,7 @@ def _read_text(path, raw, names, decimal):
     metadata.update(_block_metadata(lines[:block_end]))
     header = body[0][1]
     sep = _separator(header, path, decimal)
+    _check_header(names or _header_fields(header, sep), str(path), given=bool(names))
     try:
         frame = pd.read_csv(_io.StringIO("\n".join(line for _, line in body)), sep=sep,
                             dtype=str, keep_default_na=False, skip_blank_lines=True,
@@ -134,6 +132,66 @@ def _read_text(path, raw, names, decimal):
                          source=str(path), field="names")
     frame.columns = [str(c).strip() for c in frame.columns]
     return Table(frame, lambda i: ("line", rows[i]), metadata, missing, descriptions)
+
+
+#: Bytes that no text table holds: C0 controls other than tab, line breaks and form feed.
+_CONTROL = re.compile(rb"[\x00-\x08\x0b\x0e-\x1f\x7f]")
+
+
+def decode_text(raw, name):
+    """A text file's bytes as text: UTF-8 (with or without a byte-order mark), else Latin-1
+    (ISO 8859-1) or Windows-1252 with a warning naming the first byte that is not UTF-8.
+
+    Raises
+    ------
+    NotATableError
+        For binary content (control bytes), naming the byte offset of the first one.
+    """
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        first = exc.start
+    control = _CONTROL.search(raw)
+    if control is not None:
+        raise NotATableError(f"not a text table (and not NetCDF): byte {control.start()} is "
+                             f"a control character (0x{raw[control.start()]:02x})",
+                             source=name)
+    for encoding in ("latin-1", "cp1252"):
+        if encoding == "latin-1" and re.search(rb"[\x80-\x9f]", raw):
+            continue  # C1 controls: not ISO 8859-1 text, try Windows-1252
+        try:
+            text = raw.decode(encoding)
+        except UnicodeDecodeError:
+            break
+        warnings.warn(f"{name}: not UTF-8 (byte {first} is 0x{raw[first]:02x}); read as "
+                      f"{'Latin-1' if encoding == 'latin-1' else 'Windows-1252'}",
+                      UserWarning, stacklevel=4)
+        return text
+    raise NotATableError(f"not a text table: byte {first} (0x{raw[first]:02x}) is neither "
+                         "UTF-8 nor Latin-1 or Windows-1252 text", source=name)
+
+
+def _header_fields(header, sep):
+    import csv
+
+    return [field.strip() for field in next(csv.reader([header], delimiter=sep))]
+
+
+def _check_header(names, name, *, given=False):
+    """The header's column names against the column and name-length limits, and unique."""
+    from align import limits
+
+    where = "names" if given else "header"
+    limits.check("columns", len(names), field=where, source=name)
+    for column in names:
+        limits.check("name_length", len(column), field=where, source=name,
+                     detail=f" in a column name ({column[:40]!r}...)")
+    seen = set()
+    for column in names:
+        if column in seen and column:
+            raise InputError(f"two columns are named {column!r}; give each column its own "
+                             "name", source=name, field=column)
+        seen.add(column)
 
 
 def _separator(header, path, decimal):
@@ -225,6 +283,7 @@ def _read_workbook(path, sheet, names):
                              source=str(path), field="names")
     else:
         header, data = [str(c).strip() for c in cells.iloc[keep[0]]], keep[1:]
+        _check_header([h for h in header if h], str(path))
     frame = cells.iloc[data].reset_index(drop=True)
     frame.columns = header
     frame = frame.loc[:, [h != "" for h in header]]

@@ -26,6 +26,9 @@ FALLBACK_MIDPOINT_FRACTION = 0.02
 #: Quantile of chi-squared that turns the scatter of the tie intervals into a rate: the median,
 #: so that the rate is median-unbiased even with few intervals.
 RATE_CONFIDENCE = 0.5
+#: Largest bridge variance across the ties (yr^2): an age sd of a million years, beyond any
+#: timescale this tool dates against (a stated choice that keeps the arithmetic finite).
+MAX_BRIDGE_VARIANCE = 1e12
 
 
 class TieWarning(UserWarning):
@@ -341,6 +344,12 @@ def transfer(record, ties, onto, *, method=DEFAULT_TIE_INTERPOLATION, extrapolat
         raise InputError("the bridge rate must be a number >= 0", field="bridge_rate")
     _check_range(ties, record, onto)
     tie_ages = _tie_ages(ties, onto)
+    span = max(float(np.ptp(tie_ages)), 1.0)
+    if bridge_rate is not None and bridge_rate > MAX_BRIDGE_VARIANCE / span:
+        raise InputError(f"the bridge rate {bridge_rate:g} yr^2/yr gives an age sd of "
+                         f"{np.sqrt(bridge_rate) * np.sqrt(span):.3g} yr across the ties, "
+                         f"over the {np.sqrt(MAX_BRIDGE_VARIANCE):g} yr this tool can carry",
+                         field="bridge_rate")
     if bridge_rate is None:
         rate, how = default_bridge_rate(tie_ages, ties.position, ties.sd)
     else:

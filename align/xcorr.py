@@ -28,6 +28,8 @@ import scipy.fft as sfft
 from align.choices import (DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD, DEFAULT_SURROGATE_KIND,
                            DEFAULT_SURROGATES, CorrelationMethod, SurrogateKind, check_choice)
 from align.errors import InputError
+from align.detect import check_proxy, check_window
+from align import limits
 from align.noise import lag1_autocorrelation, persistence_time, simulate_ar1
 from align.provenance import provenance, record_input, resolve_seed
 from align.record import age_reference as age_reference_of
@@ -354,12 +356,17 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
         surrogate_kind = "ar1"  # phase randomisation needs a regular grid
     if not (np.isfinite(max_lag) and max_lag > 0):
         raise InputError("max_lag must be a positive number of years", field="max_lag")
+    if step is not None and not (np.isfinite(step) and step > 0):
+        raise InputError("step must be a positive number of years", field="step")
+    for name, count, least in (("surrogates", surrogates, 0), ("bootstrap", bootstrap, 10)):
+        if not (isinstance(count, (int, np.integer)) and count >= least):
+            raise InputError(f"{name} must be a whole number of at least {least} "
+                             f"(got {count!r})", field=name)
     seed = resolve_seed(seed)
     rng = np.random.default_rng(seed)
     (rec_a, var_a), (rec_b, var_b) = a, b
     for rec, var in ((rec_a, var_a), (rec_b, var_b)):
-        if var not in rec:
-            raise InputError("no such variable", source=rec.attrs.get("source"), field=var)
+        check_proxy(rec, var)
         if age_reference_of(rec) is None:
             raise InputError("the record has no timescale", source=rec.attrs.get("source"),
                              field="age")
@@ -367,6 +374,7 @@ def cross_correlate(a, b, max_lag, *, step=None, method=DEFAULT_CORRELATION_METH
     rec_a, rec_b = with_age_reference(rec_a, ref), with_age_reference(rec_b, ref)
     window = _overlap(rec_a, rec_b, window)
     step = float(step or round_step(max(native_resolution(rec_a), native_resolution(rec_b))))
+    _check_sizes(max_lag, step, window, surrogates, bootstrap)
     k = int(np.floor(max_lag / step))
     if k < 1:
         raise InputError("max_lag is shorter than one grid step", field="max_lag")
@@ -436,11 +444,24 @@ def p_value_words(p_value, surrogates):
     return f"p = {p_value:.3g}"
 
 
+def _check_sizes(max_lag, step, window, surrogates, bootstrap):
+    """The sizes the request implies, against :mod:`align.limits`, before any work."""
+    cells = (window[1] - window[0]) / step
+    lags = 2 * np.floor(max_lag / step) + 1
+    by = f" (step {step:g})"
+    limits.check("lag_steps", lags, field="max_lag", detail=by)
+    limits.check("cells", cells, field="step", detail=f" ({window[0]:g} to {window[1]:g} by "
+                                                      f"{step:g})")
+    limits.check("lags_x_length", lags * cells, field="max_lag", detail=by)
+    limits.check("surrogates_x_length", surrogates * cells, field="surrogates", detail=by)
+    limits.check("surrogates_x_length", bootstrap * cells, field="bootstrap", detail=by)
+
+
 def _overlap(rec_a, rec_b, window):
     lo = max(rec_a["age_bounds"].values[0, 0], rec_b["age_bounds"].values[0, 0])
     hi = min(rec_a["age_bounds"].values[-1, 1], rec_b["age_bounds"].values[-1, 1])
     if window is not None:
-        young, old = sorted(float(v) for v in window)
+        young, old = check_window(window)
         lo, hi = max(lo, young), min(hi, old)
     if hi <= lo:
         raise InputError("the records do not overlap in the window", field="window")

@@ -16,12 +16,18 @@ from flask import Flask
 DEFAULTS = {
     "MAX_CONTENT_LENGTH": 256 * 1024 * 1024,  # bytes; larger bodies are answered 413
     "MAX_DRAWS": 200_000,  # Monte Carlo and bootstrap draws per request
-    "MAX_CELLS": 2_000_000,  # grid cells per resampling
+    # sizes a request implies (align.limits names; tighter than the library's)
+    "LIMITS": {"cells": 2_000_000, "lag_steps": 20_001, "lags_x_length": 20_000_000,
+               "surrogates_x_length": 20_000_000, "draws_x_samples": 20_000_000,
+               "variable_bytes": 256 * 1024 * 1024, "columns": 500, "name_length": 256},
     "MAX_SURROGATES": 20_000,  # surrogates and bootstrap replicates per cross-correlation
     "MAX_PAIRS": 200,  # pairs per survey
     "TIME_LIMIT": 300.0,  # seconds a computation may run before it is stopped
     "WORKERS": 2,  # worker processes (0: compute in the request thread, for tests)
-    "TOKEN": None,  # bearer token for write routes (None: no authentication)
+    "TOKEN": None,  # bearer token (None: no authentication); computing and storing need it
+    "TOKEN_READS": True,  # with a token, reads need it too (False: reads are open)
+    "ALLOWED_HOSTS": None,  # Host names answered (None: any; serve on loopback: loopback only)
+    "WORKER_MEMORY": None,  # bytes of data a worker process may hold (None: no limit)
 }
 
 
@@ -46,17 +52,20 @@ def create_app(config=None):
     -------
     flask.Flask
     """
-    from api import problems
+    from api import guard, problems
     from api.routes import BLUEPRINTS
     from api.store import Store
 
     app = Flask(__name__)
     app.config.update(DEFAULTS)
-    app.config.update(config or {})
+    config = dict(config or {})
+    limits = {**DEFAULTS["LIMITS"], **config.pop("LIMITS", {})}
+    app.config.update(config, LIMITS=limits)
     app.config.setdefault("DATA_DIR", str(default_data_dir()))
     app.json.sort_keys = False
     app.extensions["corealign.store"] = Store(app.config["DATA_DIR"], reconcile=True)
     problems.register(app)
+    guard.register(app)
     for blueprint in BLUEPRINTS:
         app.register_blueprint(blueprint)
     return app

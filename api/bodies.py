@@ -5,9 +5,9 @@ from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import ConfigDict, Field
+from pydantic import ConfigDict, Field, create_model
 
-from align.schema import AgeRef, Model, Pair, RecordInfo
+from align.schema import AgeRef, LagResult, Model, Pair, RecordInfo, SurveyResult, XcorrResult
 
 
 class Health(Model):
@@ -57,6 +57,15 @@ class StoredTies(Model):
     checksum: str
 
 
+class StoredTable(Model):
+    """``POST /tables``: an event table for surveys (name it by id in ``table.path``)."""
+
+    id: str
+    columns: list[str]
+    rows: int
+    checksum: str
+
+
 class Problem(Model):
     """An RFC 9457 problem-details body (``application/problem+json``)."""
 
@@ -68,3 +77,27 @@ class Problem(Model):
     detail: str
     instance: str | None = None
     pointer: str | None = Field(None, description="JSON pointer to the offending field")
+
+
+class ResultLinks(Model):
+    """Where a stored result can be read again."""
+
+    result: str = Field(description="the stored result as JSON (also the Location header)")
+    report: str | None = Field(None, description="the report as one HTML page")
+
+
+def stored(result):
+    """A result class with the id and links under which the service stored it: the library's
+    ``to_dict()`` plus ``id`` and ``links``."""
+    return create_model(f"Stored{result.__name__}", __base__=result,
+                        __doc__=f"{result.__doc__ or result.__name__} As stored by the service.",
+                        id=(str, Field(description="the stored result's id (its SHA-256)")),
+                        links=(ResultLinks, ...))
+
+
+StoredLagResult = stored(LagResult)
+StoredSurveyResult = stored(SurveyResult)
+StoredXcorrResult = stored(XcorrResult)
+#: The library's result classes behind the stored ones (documented in OpenAPI too).
+STORED_OF = {StoredLagResult: LagResult, StoredSurveyResult: SurveyResult,
+             StoredXcorrResult: XcorrResult}

@@ -21,12 +21,13 @@ TYPES = {400: "malformed", 401: "unauthorised", 403: "forbidden", 404: "not-foun
 class Problem(Exception):
     """Raise to answer with a problem response."""
 
-    def __init__(self, status, detail, *, pointer=None, title=None):
+    def __init__(self, status, detail, *, pointer=None, title=None, headers=None):
         super().__init__(detail)
         self.status, self.detail, self.pointer, self.title = status, detail, pointer, title
+        self.headers = dict(headers or {})
 
 
-def problem_response(status, detail, *, pointer=None, title=None):
+def problem_response(status, detail, *, pointer=None, title=None, headers=None):
     """A problem-details response."""
     from http import HTTPStatus
 
@@ -38,6 +39,7 @@ def problem_response(status, detail, *, pointer=None, title=None):
     response = jsonify(body)
     response.status_code = status
     response.content_type = CONTENT_TYPE
+    response.headers.update(headers or {})
     return response
 
 
@@ -51,7 +53,8 @@ def register(app):
 
     @app.errorhandler(Problem)
     def _problem(exc):
-        return problem_response(exc.status, exc.detail, pointer=exc.pointer, title=exc.title)
+        return problem_response(exc.status, exc.detail, pointer=exc.pointer, title=exc.title,
+                                headers=exc.headers)
 
     @app.errorhandler(ValidationError)
     def _validation(exc):
@@ -60,10 +63,14 @@ def register(app):
 
     @app.errorhandler(InputError)
     def _input(exc):
-        field = exc.field
-        pointer = None if not field else "/" + field.replace(".", "/").replace("-", "_")
-        return problem_response(exc.status if exc.status in TYPES else 422, str(exc),
-                                pointer=pointer)
+        from flask import current_app
+
+        from api.locate import Where, words
+
+        store = current_app.extensions.get("corealign.store")
+        return problem_response(exc.status if exc.status in TYPES else 422,
+                                words(str(exc), store.root if store else None),
+                                pointer=Where().pointer(exc))
 
     @app.errorhandler(HTTPException)
     def _http(exc):

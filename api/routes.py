@@ -3,20 +3,24 @@
 from __future__ import annotations
 
 import json
+import re
 import tempfile
+import threading
 from pathlib import Path
 
 from flask import Blueprint, current_app, jsonify, request, send_file
 
 from align.errors import InputError
 from align.provenance import sha256_bytes, version
-from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest, LagResult,
-                          RecordInfo, ResampleRequest, SurveyResult, SurveySpec, SynchronyRequest,
-                          SynchronyResult, XcorrRequest, XcorrResult)
-from api.bodies import Health, RecordList, StoredRecord, StoredTies
+from align.schema import (DETECT_REQUESTS, RECORD_KINDS, GridSummary, LagRequest, RecordInfo,
+                          ResampleRequest, SurveySpec, SynchronyRequest, SynchronyResult,
+                          XcorrRequest)
+from api.bodies import (Health, RecordList, StoredLagResult, StoredRecord, StoredSurveyResult,
+                        StoredTable, StoredTies, StoredXcorrResult)
 from align.ties import read_ties
-from api import tasks
-from api.compute import ComputationTimeout, run
+from api import locate, tasks
+from api.compute import ComputationTimeout, WorkerLost, run
+from api.locate import Where
 from api.problems import Problem
 from api.spec import endpoint, openapi_text
 
@@ -43,23 +47,39 @@ SITES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
                             "chronology,shared_sd,independent]"},
     "options": {"type": "string", "description": "JSON object: age_reference, draws, seed, "
                                                  "outlier_prior"}}}
-RESULT_KINDS = ("lag", "survey", "synchrony")
+#: Result kinds with a rendered report.
+RESULT_KINDS = ("lag", "survey", "synchrony", "xcorr")
+TABLE_SCHEMA = {"type": "object", "required": ["file"], "properties": {
+    "file": {"type": "string", "format": "binary",
+             "description": "an event table (CSV/TSV with a header line) for surveys"}}}
 TIES_SCHEMA = {"type": "object", "required": ["file"], "properties": {
     "file": {"type": "string", "format": "binary",
              "description": "label,depth,ref_depth|ref_age,sd"}}}
+
+
+#: What a stored result links to (OpenAPI links: stateful tests follow them).
+RESULT_LINKS = {"result": ("report_json", {"report_id": "$response.body#/id"})}
 
 
 def store():
     return current_app.extensions["corealign.store"]
 
 
-def compute(task, *args):
-    """Run a task in a worker under the configured time limit."""
+def compute(task, *args, where=None):
+    """Run a task in a worker under the configured time and resource limits; a library error
+    is answered with a pointer into the request (``where``, :class:`api.locate.Where`)."""
     config = current_app.config
     try:
-        return run(task, *args, workers=config["WORKERS"], timeout=config["TIME_LIMIT"])
+        return run(tasks.limited, config["LIMITS"], task, *args, workers=config["WORKERS"],
+                   timeout=config["TIME_LIMIT"], memory=config["WORKER_MEMORY"])
     except ComputationTimeout as exc:
-        raise Problem(503, str(exc), title="Computation stopped") from None
+        raise Problem(503, str(exc), title="Computation stopped",
+                      headers={"Retry-After": "60"}) from None
+    except WorkerLost as exc:
+        raise Problem(503, str(exc), title="Computation stopped",
+                      headers={"Retry-After": "5"}) from None
+    except InputError as exc:
+        raise locate.problem(exc, where or Where(), store().root) from None
 
 
 def answer(body, status=200, location=None):
@@ -91,13 +111,13 @@ def limit(value, name, pointer):
 # meta
 
 
-@endpoint(meta, "/health", "GET", summary="Is the service up?", response=Health)
+@endpoint(meta, "/health", "GET", summary="Is the service up?", response=Health, public=True)
 def health():
     return answer(Health(status="ok", version=version()).to_dict())
 
 
 @endpoint(meta, "/openapi.json", "GET", summary="This API's OpenAPI document",
-          produces=("application/json",))
+          produces=("application/json",), public=True)
 def openapi():
     return answer(openapi_text(version()))
 
@@ -107,7 +127,8 @@ def openapi():
 
 
 @endpoint(records, "/records", "POST", summary="Upload a record (NetCDF, or CSV with a mapping)",
-          multipart=UPLOAD_SCHEMA, response=StoredRecord, status=201, write=True, computes=True)
+          multipart=UPLOAD_SCHEMA, response=StoredRecord, status=201, write=True, computes=True,
+          links={"record": ("get_record", {"record_id": "$response.body#/entry/id"})})
 def upload_record():
     raw, name = _upload()
     mapping = _mapping()
@@ -117,12 +138,14 @@ def upload_record():
         info = store().record_info(upload_id)
         return answer({"entry": existing, "info": info}, 200, f"/records/{upload_id}")
     folder = store().root / "uploads"
-    with tempfile.NamedTemporaryFile(dir=folder, suffix=Path(name).suffix or ".dat",
+    with tempfile.NamedTemporaryFile(dir=folder, suffix=_suffix(name),
                                      delete=False) as handle:
         handle.write(raw)
     try:
         entry, info = compute(tasks.ingest, str(store().root), handle.name, name, mapping,
-                              upload_id)
+                              upload_id, where=Where(
+                                  fields={k: f"/mapping/{k}" for k in MAPPING_KEYS},
+                                  default="/file"))
     finally:
         Path(handle.name).unlink(missing_ok=True)
     return answer({"entry": entry, "info": info}, 201, f"/records/{upload_id}")
@@ -137,7 +160,24 @@ def _upload():
     raw = upload.read()
     if not raw:
         raise Problem(422, "the uploaded file is empty", pointer="/file")
-    return raw, upload.filename or "upload"
+    return raw, upload_name(upload.filename)
+
+
+def upload_name(filename):
+    """An upload's file name made safe to show and to take a suffix from: the last path part,
+    without control characters, at most 120 characters (the suffix kept when it is short)."""
+    name = re.sub(r"[\x00-\x1f\x7f]", "", (filename or "").replace("\\", "/"))
+    name = name.rsplit("/", 1)[-1].strip() or "upload"
+    if len(name) > 120:
+        suffix = _suffix(name)
+        name = name[:120 - len(suffix)] + "..." + suffix
+    return name
+
+
+def _suffix(name):
+    """The file name's suffix when it is a plausible one (``.nc``, ``.csv``), else ``.dat``."""
+    match = re.search(r"\.[A-Za-z0-9]{1,12}$", name)
+    return match[0] if match else ".dat"
 
 
 def _mapping():
@@ -146,8 +186,9 @@ def _mapping():
         return {}
     try:
         mapping = json.loads(text)
-    except json.JSONDecodeError:
-        raise Problem(422, "mapping is not valid JSON", pointer="/mapping") from None
+    except (json.JSONDecodeError, RecursionError):
+        raise Problem(422, "mapping is not valid JSON (or nested too deeply)",
+                      pointer="/mapping") from None
     if not isinstance(mapping, dict):
         raise Problem(422, "mapping must be a JSON object", pointer="/mapping")
     unknown = sorted(set(mapping) - MAPPING_KEYS)
@@ -204,6 +245,37 @@ def record_data(record_id):
     raise Problem(422, "format is netcdf or csv", pointer="/format")
 
 
+@endpoint(records, "/tables", "POST", summary="Upload an event table (for surveys)",
+          multipart=TABLE_SCHEMA, response=StoredTable, status=201, write=True)
+def upload_table():
+    from align.tables import read_table
+
+    raw, name = _upload()
+    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
+                                     delete=False) as handle:
+        handle.write(raw)
+    try:
+        with limits_of_service():
+            frame = read_table(Path(handle.name)).frame
+    except InputError as exc:
+        raise locate.problem(exc.with_source(name), Where(default="/file"),
+                             store().root) from None
+    finally:
+        Path(handle.name).unlink(missing_ok=True)
+    if frame.empty:
+        raise Problem(422, f"{name}: the event table has no rows", pointer="/file")
+    object_id = store().add_table(raw, list(frame.columns), len(frame))
+    return answer({"id": object_id, "columns": list(frame.columns), "rows": len(frame),
+                   "checksum": object_id}, 201, f"/tables/{object_id}")
+
+
+def limits_of_service():
+    """The service's resource limits, for work done in the request thread."""
+    from align.limits import use_limits
+
+    return use_limits(**current_app.config["LIMITS"])
+
+
 @endpoint(records, "/ties", "POST", summary="Upload a tie table", multipart=TIES_SCHEMA,
           response=StoredTies, status=201, write=True)
 def upload_ties():
@@ -247,7 +319,8 @@ def _detect_view(name):
     def view(body):
         marker_limits(body, "")
         path = record_path(body.record, "/record")
-        return answer(compute(tasks.detect, body.model_dump(), path))
+        return answer(compute(tasks.detect, body.model_dump(), path,
+                              where=Where(sides={path: ("", body.variable)})))
 
     view.__name__ = f"detect_{name}"
     return view
@@ -260,34 +333,36 @@ for _name, _kind in RECORD_KINDS.items():  # one route per marker kind: POST /de
 
 
 @endpoint(analysis, "/xcorr", "POST", summary="Cross-correlate two records",
-          body=XcorrRequest, response=XcorrResult, computes=True)
+          body=XcorrRequest, response=StoredXcorrResult, status=201, computes=True,
+          links=RESULT_LINKS)
 def xcorr(body):
     limit(body.surrogates, "MAX_SURROGATES", "/surrogates")
     limit(body.bootstrap, "MAX_SURROGATES", "/bootstrap")
     path_a = record_path(body.a.record, "/a/record")
     path_b = record_path(body.b.record, "/b/record")
-    return answer(compute(tasks.xcorr, body.model_dump(), path_a, path_b))
+    sides = {path_b: ("/b", body.b.variable), path_a: ("/a", body.a.variable)}
+    text = compute(tasks.xcorr, body.model_dump(), path_a, path_b, where=Where(sides=sides))
+    return stored_result("xcorr", text)
 
 
 @endpoint(analysis, "/resample", "POST", summary="Resample a record onto a regular grid",
-          body=ResampleRequest, response=GridSummary, computes=True)
+          body=ResampleRequest, response=GridSummary, status=201, computes=True)
 def resample(body):
     path = record_path(body.record, "/record")
     entry = store().record_entry(body.record)
     span = entry["age_range"] if body.along == "age" else entry["depth_range"]
     if span is None:
         raise Problem(422, f"the record has no {body.along}", pointer="/along")
-    if body.step is not None:
-        cells = ((body.stop if body.stop is not None else span[1])
-                 - (body.start if body.start is not None else span[0])) / body.step
-        limit(cells, "MAX_CELLS", "/step")
     grid_file = store().root / "uploads" / f"{sha256_bytes(body.model_dump_json().encode())}.nc"
     try:
-        summary = compute(tasks.resample, body.model_dump(), path, str(grid_file))
+        summary = compute(tasks.resample, body.model_dump(), path, str(grid_file),
+                          where=Where(sides={path: ("", None)},
+                                      fields={"records": "/record", "step": "/step",
+                                              "start": "/start", "stop": "/stop"}))
         grid_id = store().add_grid(grid_file)
     finally:
         grid_file.unlink(missing_ok=True)
-    return answer(summary, location=f"/grids/{grid_id}")
+    return answer(summary, 201, location=f"/grids/{grid_id}")
 
 
 @endpoint(analysis, "/grids/<grid_id>", "GET", summary="Download a grid made by /resample "
@@ -300,7 +375,8 @@ def grid_data(grid_id):
 
 
 @endpoint(analysis, "/lag", "POST", summary="The lag between two markers, with its budget",
-          body=LagRequest, response=LagResult, computes=True)
+          body=LagRequest, response=StoredLagResult, status=201, computes=True,
+          links=RESULT_LINKS)
 def lag(body):
     limit(body.draws, "MAX_DRAWS", "/draws")
     paths = {}
@@ -313,30 +389,57 @@ def lag(body):
         paths[spec.record] = record_path(spec.record, f"/{side}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
-    text = compute(tasks.lag, body.model_dump(), paths)
-    report_id = store().add_result("lag", text)
-    return answer(text, location=f"/reports/{report_id}")
+    sides = {paths[spec.record]: (f"/{side}", spec.variable)
+             for side, spec in (("b", body.b), ("a", body.a))
+             if getattr(spec, "record", None) in paths}
+    text = compute(tasks.lag, body.model_dump(), paths, where=Where(sides=sides))
+    return stored_result("lag", text)
 
 
 @endpoint(analysis, "/survey", "POST", summary="Lags of many marker pairs, combined",
-          body=SurveySpec, response=SurveyResult, computes=True)
+          body=SurveySpec, response=StoredSurveyResult, status=201, computes=True,
+          links=RESULT_LINKS)
 def survey(body):
-    if not body.pairs:
-        raise Problem(422, "the service takes surveys as explicit pairs of stored records",
-                      pointer="/pairs")
     limit(body.draws, "MAX_DRAWS", "/draws")
-    limit(len(body.pairs), "MAX_PAIRS", "/pairs")
     paths = {}
-    for k, pair in enumerate(body.pairs):
-        for side in ("a", "b"):
-            spec = getattr(pair, side)
-            marker_limits(spec, f"/pairs/{k}/{side}")
-            paths[spec.record] = record_path(spec.record, f"/pairs/{k}/{side}/record")
+    if body.pairs:
+        limit(len(body.pairs), "MAX_PAIRS", "/pairs")
+        markers = [(f"/pairs/{k}/{side}", getattr(pair, side))
+                   for k, pair in enumerate(body.pairs) for side in ("a", "b")]
+    elif body.table is not None and body.a is not None and body.b is not None:
+        paths[body.table.path] = _table_path(body.table.path)
+        markers = [("/a", body.a), ("/b", body.b)]
+    else:
+        raise Problem(422, "a survey needs pairs, or a table (a stored event table's id) with "
+                           "a and b", pointer="/pairs")
+    for pointer, spec in markers:
+        marker_limits(spec, pointer)
+        paths[spec.record] = record_path(spec.record, f"{pointer}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
-    text = compute(tasks.survey, body.model_dump(), paths)
-    report_id = store().add_result("survey", text)
-    return answer(text, location=f"/reports/{report_id}")
+    text = compute(tasks.survey, body.model_dump(), paths,
+                   where=Where(fields={"pairs": "/pairs", "label_column": "/table/label_column",
+                                       "age_column": "/table/age_column"}))
+    return stored_result("survey", text)
+
+
+def _table_path(table_id):
+    """The stored event table a survey names; 422 (pointer ``/table/path``) when unknown."""
+    if not store().has("tables", table_id):
+        raise Problem(422, f"no stored event table with id {table_id!r} (upload it to "
+                           "/tables)", pointer="/table/path")
+    return str(store().path("tables", table_id))
+
+
+def stored_result(kind, text):
+    """Store a result (the library's JSON text) and answer 201 with its id and links in the
+    body and its address in ``Location``."""
+    result_id = store().add_result(kind, text)
+    links = {"result": f"/reports/{result_id}"}
+    if kind in RESULT_KINDS:
+        links["report"] = f"/reports/{result_id}.html"
+    extra = json.dumps({"id": result_id, "links": links})
+    return answer(text[:-1] + ", " + extra[1:], 201, links["result"])
 
 
 @endpoint(analysis, "/synchrony", "POST", summary="Is one horizon the same age at many sites? "
@@ -347,7 +450,8 @@ def synchrony(body):
 
 
 @endpoint(analysis, "/synchrony/table", "POST", summary="Synchrony of the sites in an uploaded "
-          "CSV site table", multipart=SITES_SCHEMA, response=SynchronyResult, computes=True)
+          "CSV site table", multipart=SITES_SCHEMA, response=SynchronyResult,
+          computes=True)
 def synchrony_table():
     from align.sites import read_site_table
 
@@ -401,19 +505,32 @@ def _ties_path(ties_id, pointer):
 # reports
 
 
+_RENDERING = {}
+_RENDERING_LOCK = threading.Lock()
+
+
 def _report_folder(report_id):
+    """The rendered report folder, rendered once on first view: concurrent first views wait
+    for the one rendering (and a folder is only ever renamed into place whole)."""
     if store().result_kind(report_id) not in RESULT_KINDS:
         raise Problem(404, f"no stored result with id {report_id!r}")
     folder = store().report_folder(report_id)
-    if not (folder / "report.html").exists():
-        compute(tasks.render_report, str(store().path("results", report_id)), str(folder))
+    if (folder / "report.html").exists():
+        return folder
+    with _RENDERING_LOCK:
+        lock = _RENDERING.setdefault(report_id, threading.Lock())
+    with lock:
+        if not (folder / "report.html").exists():
+            compute(tasks.render_report, str(store().path("results", report_id)), str(folder))
+    with _RENDERING_LOCK:
+        _RENDERING.pop(report_id, None)
     return folder
 
 
 @endpoint(reports, "/reports/<report_id>", "GET", summary="A stored result (report.json)",
           produces=("application/json",))
 def report_json(report_id):
-    if store().result_kind(report_id) not in RESULT_KINDS:
+    if store().result_kind(report_id) is None:
         raise Problem(404, f"no stored result with id {report_id!r}")
     return send_file(store().path("results", report_id), mimetype="application/json")
 

@@ -1,52 +1,153 @@
-"""``corealign serve``: the service on a production WSGI server (waitress)."""
+"""``corealign serve``: the service on a production WSGI server (waitress).
+
+Settings are checked before anything starts; errors that waitress answers itself (a body over
+the size limit, a malformed request line) are problem details like every other; SIGTERM and
+Ctrl-C stop the server and its worker processes.
+"""
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 from align.errors import InputError
 
+#: Bytes a request body may exceed ``MAX_CONTENT_LENGTH`` by (multipart framing) before
+#: waitress refuses it without reading it.
+FRAMING = 1_000_000
+
+
+def check_settings(port, workers, time_limit, threads):
+    """Refuse settings the server cannot run with, naming the option."""
+    checks = [
+        ("port", port, isinstance(port, int) and 1 <= port <= 65535, "a port from 1 to 65535"),
+        ("workers", workers, workers is None or (isinstance(workers, int) and 1 <= workers <= 64),
+         "a number of worker processes from 1 to 64"),
+        ("time-limit", time_limit, time_limit is None or (math.isfinite(time_limit)
+                                                        and 0 < time_limit <= 86_400),
+         "seconds above 0, at most 86400"),
+        ("threads", threads, isinstance(threads, int) and 1 <= threads <= 256,
+         "a number of request threads from 1 to 256"),
+    ]
+    for name, value, ok, what in checks:
+        if not ok:
+            raise InputError(f"must be {what} (got {value!r})", field=name)
+
 
 def serve(host="127.0.0.1", port=8750, data_dir=None, token_file=None, workers=None,
           time_limit=None, threads=8):
-    """Serve the app until interrupted.
+    """Serve the app until interrupted (Ctrl-C) or terminated (SIGTERM).
 
     Parameters
     ----------
     host, port : str, int
-        Where to listen (loopback by default).
+        Where to listen (loopback by default; on a loopback address only the loopback host
+        names are answered).
     data_dir : str, optional
         The store folder (default: :func:`api.default_data_dir`).
     token_file : str, optional
-        A file holding the bearer token that write routes require.
+        A file holding the bearer token that computing and storing routes, and reads (unless
+        ``TOKEN_READS`` is off), require.
     workers : int, optional
-        Computation worker processes (default 2).
+        Computation worker processes, 1 to 64 (default 2).
     time_limit : float, optional
-        Seconds a computation may run before it is stopped (default 300).
+        Seconds a computation may run before it is stopped, above 0 (default 300).
     threads : int
         Request threads of the WSGI server.
     """
-    from waitress import serve as waitress_serve
-
+    check_settings(port, workers, time_limit, threads)
     from api import create_app, default_data_dir
+    from api.guard import LOOPBACK
 
     config = {"DATA_DIR": str(Path(data_dir) if data_dir else default_data_dir())}
     if token_file:
-        try:
-            token = Path(token_file).read_text().strip()
-        except OSError as exc:
-            raise InputError(f"cannot read the token file ({exc.strerror})", source=token_file,
-                             field="token-file") from None
-        if not token:
-            raise InputError("the token file is empty", source=token_file, field="token-file")
-        config["TOKEN"] = token
+        config["TOKEN"] = read_token(token_file)
     if workers is not None:
         config["WORKERS"] = workers
     if time_limit is not None:
         config["TIME_LIMIT"] = time_limit
+    if host in LOOPBACK or host.startswith("127."):
+        config["ALLOWED_HOSTS"] = (*LOOPBACK, host)
     app = create_app(config)
+    server = _server(app, host, port, threads)
     print(f"corealign service on http://{host}:{port} (data in {config['DATA_DIR']})",
           flush=True)
-    waitress_serve(app, host=host, port=port, threads=threads,
-                   max_request_body_size=app.config["MAX_CONTENT_LENGTH"] + 1_000_000,
-                   ident="corealign")
+    _run(server)
+
+
+def read_token(token_file):
+    try:
+        token = Path(token_file).read_text().strip()
+    except OSError as exc:
+        raise InputError(f"cannot read the token file ({exc.strerror})", source=token_file,
+                         field="token-file") from None
+    if not token:
+        raise InputError("the token file is empty", source=token_file, field="token-file")
+    return token
+
+
+def _server(app, host, port, threads):
+    from waitress import create_server
+
+    try:
+        server = create_server(app, host=host, port=port, threads=threads, ident="corealign",
+                               max_request_body_size=app.config["MAX_CONTENT_LENGTH"] + FRAMING)
+    except OSError as exc:
+        raise InputError(f"cannot listen on {host}:{port} ({exc.strerror})",
+                         field="port") from None
+    server.channel_class = _problem_channel()
+    return server
+
+
+def _problem_channel():
+    """A waitress channel whose own error answers are problem details."""
+    import json
+
+    from waitress.channel import HTTPChannel
+    from waitress.task import ErrorTask
+
+    from api.problems import CONTENT_TYPE, TYPES
+
+    class ProblemErrorTask(ErrorTask):
+        def execute(self):
+            error = self.request.error
+            body = json.dumps({
+                "type": f"tag:corealign,2026:problem/{TYPES.get(error.code, 'error')}",
+                "title": error.reason, "status": error.code,
+                "detail": str(error.body)}).encode()
+            self.status = f"{error.code} {error.reason}"
+            self.response_headers.append(("Content-Type", CONTENT_TYPE))
+            self.set_close_on_finish()
+            self.content_length = len(body)
+            self.write(body)
+
+    class ProblemChannel(HTTPChannel):
+        error_task_class = ProblemErrorTask
+
+    return ProblemChannel
+
+
+def _run(server):
+    """Run until SIGINT or SIGTERM; then close the sockets and stop the workers. SIGTERM ends
+    with exit code 143 (waitress's loop returns quietly on either signal)."""
+    import signal
+
+    from api.compute import shutdown
+
+    stopped = []
+
+    def stop(signum, frame):
+        stopped.append(signum)
+        raise SystemExit(128 + signum)
+
+    previous = signal.signal(signal.SIGTERM, stop)
+    try:
+        server.run()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+        server.close()
+        shutdown()
+    if stopped:
+        raise SystemExit(128 + stopped[0])

@@ -14,15 +14,17 @@ from functools import lru_cache, wraps
 
 from flask import current_app, request
 
+from api.bodies import STORED_OF
 from api.bodies import Problem as ProblemModel
 from align.schema import json_schemas
 from api.problems import CONTENT_TYPE, Problem
 
 ROUTES = []
-ERRORS = {400: "malformed request", 401: "a token is needed", 403: "the token is wrong",
+ERRORS = {400: "malformed request", 401: "a token is needed",
+          403: "the token is wrong, or the request's Host or Origin is not this service's",
           404: "unknown id or path", 405: "method not allowed", 413: "body over the size limit",
           415: "unsupported media type", 422: "content fails validation",
-          503: "computation stopped at its time limit"}
+          503: "computation stopped (time limit, or its worker ended): try again later"}
 
 
 @dataclass
@@ -41,24 +43,30 @@ class Route:
     write: bool = False
     computes: bool = False
     parameters: list = field(default_factory=list)
+    public: bool = False
+    links: dict = field(default_factory=dict)
 
 
 def endpoint(blueprint, rule, method, *, summary, body=None, multipart=None, response=None,
              produces=("application/json",), status=200, write=False, computes=False,
-             query=()):
+             query=(), public=False, links=None):
     """Register a view (decorator). A JSON ``body`` model is parsed and validated first and
-    passed as ``body=``; write routes check the bearer token when one is configured."""
+    passed as ``body=``. With a token configured, routes that write or compute always need
+    it, reads unless ``TOKEN_READS`` is off; ``public`` routes (health, this document) never.
+    ``links`` are OpenAPI links of the success response (what to read next, by id).
+    """
 
     def decorate(view):
         names = re.findall(r"<(?:\w+:)?(\w+)>", rule)
         path = (blueprint.url_prefix or "") + re.sub(r"<(?:\w+:)?(\w+)>", r"{\1}", rule)
         ROUTES.append(Route(method, path, view.__name__, summary, body, multipart, response,
                             tuple(produces), status, write, computes,
-                            [*names, *(("query", q) for q in query)]))
+                            [*names, *(("query", q) for q in query)], public,
+                            dict(links or {})))
 
         @wraps(view)
         def handle(**kwargs):
-            if write:
+            if not public and (write or computes or current_app.config["TOKEN_READS"]):
                 check_token()
             if body is not None:
                 kwargs["body"] = parse_body(body)
@@ -76,7 +84,10 @@ def parse_body(model):
     if request.mimetype != "application/json":
         got = request.mimetype or "no content type"
         raise Problem(415, f"send the body as application/json (got {got})")
-    data = request.get_json(silent=True)
+    try:
+        data = request.get_json(silent=True)
+    except RecursionError:
+        raise Problem(400, "the body is nested too deeply") from None
     if data is None:
         raise Problem(400, "the body is not valid JSON")
     if not isinstance(data, dict):
@@ -91,7 +102,8 @@ def check_token():
         return
     given = request.headers.get("Authorization", "")
     if not given.startswith("Bearer "):
-        raise Problem(401, "this route writes to the store: send Authorization: Bearer <token>")
+        raise Problem(401, "this service needs a token: send Authorization: Bearer <token>",
+                      headers={"WWW-Authenticate": 'Bearer realm="corealign"'})
     if not hmac.compare_digest(given[7:].encode(), token.encode()):
         raise Problem(403, "the token is not the one this service was started with")
 
@@ -117,6 +129,7 @@ def _openapi_text(version, _routes):
 @lru_cache(maxsize=4)
 def _openapi_document(version, _routes):
     models = {r.body for r in ROUTES if r.body} | {r.response for r in ROUTES if r.response}
+    models |= {STORED_OF[m] for m in models if m in STORED_OF}
     schemas = json_schemas(sorted(models | {ProblemModel}, key=lambda m: m.__name__))
     paths = {}
     for route in ROUTES:
@@ -145,7 +158,7 @@ def _openapi_document(version, _routes):
             errors.append(422)  # a query parameter out of its range
         if route.computes:
             errors.append(503)
-        if route.write:
+        if not route.public:  # with a token configured (reads: unless TOKEN_READS is off)
             errors += [401, 403]
             op["security"] = [{"bearer": []}]
         for code in sorted(set(errors)):
@@ -153,6 +166,8 @@ def _openapi_document(version, _routes):
                 CONTENT_TYPE: {"schema": {"$ref": "#/components/schemas/Problem"}}}}
         paths.setdefault(route.path, {})[route.method.lower()] = op
     return {"openapi": "3.1.0",
+            "servers": [{"url": "/", "description": "this service (the host that serves "
+                                                    "this document)"}],
             "info": {"title": "corealign", "version": version,
                      "description": "Date an abrupt event in one paleoclimate record against "
                                     "a climate transition in another, with an uncertainty "
@@ -166,8 +181,16 @@ def _openapi_document(version, _routes):
 def _success(route):
     if route.status == 204:
         return {"description": "done"}
+    out = {"description": "created" if route.status == 201 else "ok"}
     if route.response is not None:
-        return {"description": "ok", "content": {"application/json": {
-            "schema": {"$ref": f"#/components/schemas/{route.response.__name__}"}}}}
-    return {"description": "ok", "content": {kind: {"schema": {"type": "string"}}
-                                              for kind in route.produces}}
+        out["content"] = {"application/json": {
+            "schema": {"$ref": f"#/components/schemas/{route.response.__name__}"}}}
+    else:
+        out["content"] = {kind: {"schema": {"type": "string"}} for kind in route.produces}
+    if route.status == 201:
+        out["headers"] = {"Location": {"description": "where the created resource is read",
+                                       "schema": {"type": "string"}}}
+    if route.links:
+        out["links"] = {name: {"operationId": operation, "parameters": parameters}
+                        for name, (operation, parameters) in route.links.items()}
+    return out

@@ -6,6 +6,7 @@ Layout under the data folder::
     uploads/                   uploads being read (emptied when the server starts)
     objects/records/<id>.nc    canonical CF NetCDF of each record
     objects/ties/<id>.csv      tie tables as uploaded
+    objects/tables/<id>.csv    event tables (surveys) as uploaded
     objects/results/<id>.json  results of analyses
     objects/grids/<id>.nc      common grids made by /resample (CF NetCDF)
     reports/<id>/              rendered report folders (made on demand)
@@ -27,7 +28,8 @@ from pathlib import Path
 from align.provenance import sha256_bytes, utc_now
 
 ID = re.compile(r"^[0-9a-f]{64}$")
-KINDS = {"records": ".nc", "ties": ".csv", "results": ".json", "grids": ".nc"}
+KINDS = {"records": ".nc", "ties": ".csv", "tables": ".csv", "results": ".json",
+         "grids": ".nc"}
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS records (
@@ -37,6 +39,8 @@ CREATE TABLE IF NOT EXISTS records (
     info TEXT NOT NULL, created TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS ties (
     id TEXT PRIMARY KEY, labels TEXT NOT NULL, ref_kind TEXT NOT NULL, created TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS tables (
+    id TEXT PRIMARY KEY, columns TEXT NOT NULL, n_rows INTEGER NOT NULL, created TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS results (
     id TEXT PRIMARY KEY, kind TEXT NOT NULL, created TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS grids (
@@ -101,6 +105,32 @@ class Store:
                 missing = [i for i in known if not self.path(kind, i).exists()]
                 for object_id in missing:
                     db.execute(f"DELETE FROM {kind} WHERE id = ?", (object_id,))
+
+    def sweep(self, older_than):
+        """Remove temporaries (uploads being read, ``.part`` files, report staging folders)
+        last changed more than ``older_than`` seconds ago: what stopped work left behind.
+        Returns how many were removed."""
+        import shutil
+        import time
+
+        cutoff = time.time() - older_than
+        leftovers = [*(self.root / "uploads").iterdir(),
+                     *(p for kind in KINDS for p in (self.root / "objects" / kind).iterdir()
+                       if p.name.startswith(".")),
+                     *(p for p in (self.root / "reports").iterdir() if p.name.startswith("."))]
+        removed = 0
+        for path in leftovers:
+            try:
+                if path.stat().st_mtime >= cutoff:
+                    continue
+                if path.is_dir():
+                    shutil.rmtree(path, ignore_errors=True)
+                else:
+                    path.unlink(missing_ok=True)
+                removed += 1
+            except FileNotFoundError:
+                continue  # finished (renamed or removed) meanwhile
+        return removed
 
     def _put(self, kind, object_id, write):
         """Write an object atomically (``write(tmp_path)``), unless it is there already."""
@@ -174,6 +204,15 @@ class Store:
         with self.connect() as db:
             db.execute("INSERT OR IGNORE INTO ties VALUES (?, ?, ?, ?)",
                        (object_id, json.dumps(list(ties.labels)), ties.ref_kind, utc_now()))
+        return object_id
+
+    def add_table(self, raw, columns, n_rows):
+        """Store an event table (its bytes, read once by the caller); returns its id."""
+        object_id = sha256_bytes(raw)
+        self._put("tables", object_id, lambda tmp: Path(tmp).write_bytes(raw))
+        with self.connect() as db:
+            db.execute("INSERT OR IGNORE INTO tables VALUES (?, ?, ?, ?)",
+                       (object_id, json.dumps(columns), n_rows, utc_now()))
         return object_id
 
     def has(self, kind, object_id):

@@ -27,6 +27,9 @@ class StoreSources(Sources):
         super().__init__()
         self.paths = dict(paths)
 
+    def path(self, name):
+        return Path(self.paths[name])
+
     def record(self, spec):
         return open_record(self.paths[spec.record])
 
@@ -34,6 +37,14 @@ class StoreSources(Sources):
         from align.ties import read_ties
 
         return read_ties(self.paths[name])
+
+
+def limited(limits, task, *args):
+    """``task(*args)`` under the service's resource limits (:mod:`align.limits`)."""
+    from align.limits import use_limits
+
+    with use_limits(**limits):
+        return task(*args)
 
 
 def ingest(root, path, name, mapping, upload_id):
@@ -116,8 +127,10 @@ def render_report(result_path, folder):
     try:
         write_report(load_result(result_path), staging)
         staging.rename(folder)
-    except FileExistsError:
-        shutil.rmtree(staging, ignore_errors=True)  # rendered meanwhile by another request
-    except BaseException:
+    except OSError:
+        if not (folder / "report.html").exists():
+            raise
+        # rendered meanwhile by another request or process (rename onto a full folder fails
+        # with ENOTEMPTY or EEXIST): theirs is as good as ours
+    finally:
         shutil.rmtree(staging, ignore_errors=True)
-        raise

@@ -77,3 +77,58 @@ CASES += [
     ("calendar-year-zero", "Year (CE),Ca\n0,2\n1,3\n", ".csv", {},
      ["0 is not a CE year"]),
 ]
+
+
+def _declared_netcdf_bytes(length=2**29):
+    """A NetCDF of a few kB whose header declares a ``length`` float64 variable (4 GiB by
+    default): no value is written, so HDF5 allocates no chunk."""
+    import os
+    import tempfile
+
+    import netCDF4
+
+    fd, path = tempfile.mkstemp(suffix=".nc")
+    os.close(fd)
+    try:
+        with netCDF4.Dataset(path, "w") as ds:
+            ds.createDimension("sample", length)
+            ds.createVariable("age", "f8", ("sample",), chunksizes=(4096,))
+            ds.createVariable("Ca", "f8", ("sample",), chunksizes=(4096,), zlib=True)
+        with open(path, "rb") as handle:
+            return handle.read()
+    finally:
+        os.unlink(path)
+
+
+def wide_table(columns):
+    """A CSV header of ``age`` and ``columns - 1`` proxies, and two rows."""
+    names = ["age", *(f"c{i}" for i in range(columns - 1))]
+    rows = [",".join(str(k + i) for i in range(columns)) for k in (1, 2)]
+    return "\n".join([",".join(names), *rows]) + "\n"
+
+
+#: Cases of the resource limits and of issue 14 (any surface: library, CLI and service).
+CASES += [
+    ("duplicate-column-names", "depth,age,x,x\n1.0,100,1,2\n1.1,110,2,3\n", ".csv",
+     {"age_reference": "b2k"}, ["'x'", "two columns are named 'x'"]),
+    ("column-name-over-300-chars", f"depth,age,{'c' * 300}\n1.0,100,1\n1.1,110,2\n", ".csv",
+     {"age_reference": "b2k"}, ["300 characters", "limit 'name_length'"]),
+    ("twenty-thousand-columns", wide_table(20_000), ".csv", {"age_reference": "b2k"},
+     ["20,000 columns", "limit 'columns'"]),
+    ("declares-4-GiB", _declared_netcdf_bytes(), ".nc", {},
+     ["4,294,967,296 bytes", "limit 'variable_bytes'"]),
+    ("binary-names-its-byte", b"depth,age\n1,2\n\x00\xff", ".csv", {},
+     ["not a text table", "byte 14"]),
+]
+
+#: Reading keywords of the wrong type (the service's ``mapping``; the library's keywords):
+#: (name, mapping, field, fragment). The CLI cannot spell them (its options are text).
+MAPPING_CASES = [
+    ("variables-numbers", {"age_reference": "b2k", "variables": [1, 2]}, "variables",
+     "a list of names"),
+    ("units-as-text", {"age_reference": "b2k", "units": "ng/g"}, "units",
+     "a mapping of variable names to units"),
+    ("age-column-number", {"age_reference": "b2k", "age_column": 3}, "age_column", "text"),
+    ("relative-to-text", {"age_reference": "b2k", "relative_to": "soon"}, "relative_to",
+     "a finite age"),
+]

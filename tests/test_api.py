@@ -122,17 +122,75 @@ def test_limits_are_problems_not_crashes(tmp_path):
     assert body["pointer"] == "/draws"
 
 
-def test_write_routes_need_the_token(tmp_path):
+def test_a_token_guards_every_route_but_health_and_the_document(tmp_path):
     from api import create_app
 
-    client = create_app({"DATA_DIR": str(tmp_path / "s"), "WORKERS": 0,
-                         "TOKEN": "s3cret"}).test_client()
-    problem(upload(client, RECORDS / "hvd1_ice.nc"), 401)
+    app = create_app({"DATA_DIR": str(tmp_path / "s"), "WORKERS": 0, "TOKEN": "s3cret"})
+    client, auth = app.test_client(), {"Authorization": "Bearer s3cret"}
+    refused = problem(upload(client, RECORDS / "hvd1_ice.nc"), 401)
+    assert "Bearer" in refused["detail"]
+    assert upload(client, RECORDS / "hvd1_ice.nc").headers["WWW-Authenticate"].startswith(
+        "Bearer")
     problem(upload(client, RECORDS / "hvd1_ice.nc", headers={"Authorization": "Bearer nope"}),
             403)
-    ok = upload(client, RECORDS / "hvd1_ice.nc", headers={"Authorization": "Bearer s3cret"})
+    ok = upload(client, RECORDS / "hvd1_ice.nc", headers=auth)
     assert ok.status_code == 201
-    assert client.get("/records").status_code == 200  # reading needs no token
+    ice = ok.json["entry"]["id"]
+    assert client.get("/health").status_code == 200
+    assert client.get("/openapi.json").status_code == 200
+    problem(client.get("/records"), 401)  # reads need it too, by default
+    assert client.get("/records", headers=auth).status_code == 200
+    for path, body in (("/resample", {"record": ice, "step": 10}),
+                       ("/xcorr", {"a": {"record": ice, "variable": "d18O"},
+                                   "b": {"record": ice, "variable": "sulfate"},
+                                   "max_lag": 50}),
+                       ("/lag", json.loads((RECORDS / "demo_lag_request.json").read_text())),
+                       ("/detect/event", {"record": ice, "variable": "sulfate"})):
+        problem(client.post(path, json=body), 401)  # computing routes need it
+    app.config["TOKEN_READS"] = False
+    assert client.get("/records").status_code == 200
+    assert client.get(f"/records/{ice}").status_code == 200
+    problem(client.post("/resample", json={"record": ice, "step": 10}), 401)
+    doc = client.get("/openapi.json").json
+    assert doc["paths"]["/lag"]["post"]["security"] == [{"bearer": []}]
+    assert "security" not in doc["paths"]["/health"]["get"]
+
+
+def test_host_and_origin_are_checked(tmp_path):
+    from api import create_app
+
+    app = create_app({"DATA_DIR": str(tmp_path / "s"), "WORKERS": 0,
+                      "ALLOWED_HOSTS": ("127.0.0.1", "localhost")})
+    client = app.test_client()
+    assert client.get("/records").status_code == 200
+    problem(client.get("/records", headers={"Host": "rebound.example:8750"}), 403)
+    page = {"Origin": "http://attacker.example"}
+    body = problem(upload(client, RECORDS / "hvd1_ice.nc", headers=page), 403)
+    assert "another origin" in body["detail"]
+    assert client.get("/records").json["records"] == []  # nothing was stored
+    problem(client.get("/records", headers={"Origin": "null"}), 403)
+    problem(client.get("/records", headers={"Sec-Fetch-Site": "cross-site"}), 403)
+    same = upload(client, RECORDS / "hvd1_ice.nc", headers={"Origin": "http://localhost"})
+    assert same.status_code == 201
+
+
+def test_store_sweeps_old_temporaries_without_a_restart(client, app, tmp_path):
+    import os
+    import time
+
+    root = tmp_path / "store"
+    old = [root / "uploads" / "tmpdead.csv", root / "objects" / "records" / ".x.nc.1.part"]
+    fresh = root / "uploads" / "tmpalive.csv"
+    for path in (*old, fresh):
+        path.write_bytes(b"left by a stopped worker")
+    staging = root / "reports" / ".report-dead"
+    staging.mkdir()
+    long_ago = time.time() - app.config["TIME_LIMIT"] - 120
+    for path in (*old, staging):
+        os.utime(path, (long_ago, long_ago))
+    assert client.get("/health").status_code == 200  # any request may sweep (once a minute)
+    assert not any(p.exists() for p in (*old, staging))
+    assert fresh.exists()  # an upload still being read is left alone
 
 
 def test_analyses_and_reports(client):
@@ -145,20 +203,28 @@ def test_analyses_and_reports(client):
                                                "draws": 500, "seed": 1})
     assert onset.status_code == 200 and onset.json["kind"] == "onset"
     grid = client.post("/resample", json={"record": ice, "step": 10})
-    assert grid.status_code == 200 and grid.json["cells"] > 100
+    assert grid.status_code == 201 and grid.json["cells"] > 100
     netcdf = client.get(grid.headers["Location"])
     assert netcdf.status_code == 200 and netcdf.mimetype == "application/x-netcdf"
     assert netcdf.data[:4] in (b"CDF\x01", b"\x89HDF")
     xcorr = client.post("/xcorr", json={"a": {"record": ice, "variable": "d18O"},
                                         "b": {"record": lake, "variable": "d18O"},
                                         "max_lag": 200, "surrogates": 50, "seed": 1})
-    assert xcorr.status_code == 200 and "peak_lag" in xcorr.json
+    assert xcorr.status_code == 201 and "peak_lag" in xcorr.json
+    stored_xcorr = client.get(xcorr.headers["Location"]).json
+    assert stored_xcorr == {k: v for k, v in xcorr.json.items() if k not in ("id", "links")}
+    assert xcorr.json["links"] == {"result": xcorr.headers["Location"],
+                                   "report": f"/reports/{xcorr.json['id']}.html"}
+    xcorr_page = client.get(xcorr.json["links"]["report"])
+    assert xcorr_page.status_code == 200 and b"<svg" in xcorr_page.data
     request = json.loads((RECORDS / "demo_lag_request.json").read_text())
     request["a"]["record"], request["b"]["record"] = ice, lake
     request.update(ties=ties.json["id"], draws=4000)
     lag = client.post("/lag", json=request)
-    assert lag.status_code == 200, lag.json
+    assert lag.status_code == 201, lag.json
     report = lag.headers["Location"]
+    assert lag.json["links"] == {"result": report, "report": report + ".html"}
+    assert report == f"/reports/{lag.json['id']}"
     assert client.get(report).json["lag"] == lag.json["lag"]
     page = client.get(report + ".html")
     assert page.status_code == 200 and b"<svg" in page.data
@@ -171,7 +237,20 @@ def test_analyses_and_reports(client):
         request["a"], kind="onset", variable="d18O", window=[11900, 12400]), "b": dict(
         request["b"], kind="onset", variable="d18O", window=[11900, 12400])}],
         "ties": ties.json["id"], "draws": 2000, "seed": 1})
-    assert survey.status_code == 200 and survey.json["pairs"][0]["label"] == "X1"
+    assert survey.status_code == 201 and survey.json["pairs"][0]["label"] == "X1"
+    assert survey.headers["Location"] == survey.json["links"]["result"]
+    table = client.post("/tables", data={"file": (open(RECORDS / "demo_transitions.csv", "rb"),
+                                                  "transitions.csv")},
+                        content_type="multipart/form-data")
+    assert table.status_code == 201 and table.json["columns"] == ["label", "age"]
+    spec = json.loads((RECORDS / "demo_survey.json").read_text())
+    spec["table"]["path"], spec["ties"] = table.json["id"], ties.json["id"]
+    spec["a"]["record"], spec["b"]["record"], spec["draws"] = ice, lake, 2000
+    from_table = client.post("/survey", json=spec)
+    assert from_table.status_code == 201, from_table.json
+    assert [p["label"] for p in from_table.json["pairs"]] == ["X1 cooling", "X2 warming"]
+    unknown = dict(spec, table=dict(spec["table"], path="e" * 64))
+    assert problem(client.post("/survey", json=unknown), 422)["pointer"] == "/table/path"
 
 
 def test_computation_over_its_time_limit_is_stopped(tmp_path):
@@ -211,3 +290,59 @@ def test_kill_leftovers_are_cleaned_when_the_store_opens(tmp_path):
     assert not list((data / "uploads").iterdir())
     assert [r["id"] for r in client.get("/records").json["records"]] == [kept]
     assert xr.open_dataset(objects / f"{kept}.nc").attrs["core"] == "HVD-1"
+
+
+def test_concurrent_first_views_render_once(client, app, monkeypatch, tmp_path):
+    """Four clients open a new report at the same moment: all get the page, it is rendered
+    once; and two renderings racing in separate workers both end well (one folder wins)."""
+    import threading
+
+    from api import tasks
+
+    ice, lake = stored(client, "hvd1_ice.nc"), stored(client, "trv3_lake.nc")
+    lag = client.post("/lag", json={
+        "a": {"kind": "event", "record": ice, "variable": "sulfate", "window": [12150, 12350]},
+        "b": {"kind": "event", "record": lake, "variable": "tephra", "window": [11850, 12000]},
+        "draws": 1000, "seed": 3})
+    assert lag.status_code == 201, lag.json
+    page = lag.json["links"]["report"]
+    renders, real = [], tasks.render_report
+    gate = threading.Barrier(4)
+
+    def counted(*args):
+        renders.append(args)
+        return real(*args)
+
+    monkeypatch.setattr(tasks, "render_report", counted)
+    answers = []
+
+    def view():
+        own = app.test_client()
+        gate.wait()
+        answers.append(own.get(page))
+
+    threads = [threading.Thread(target=view) for _ in range(4)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join()
+    assert [a.status_code for a in answers] == [200] * 4
+    assert len({a.data for a in answers}) == 1 and b"<svg" in answers[0].data
+    assert len(renders) == 1
+    # the same race between processes (no shared lock): both renderings end without error
+    result, folder = renders[0][0], tmp_path / "store" / "reports" / "raced"
+    errors = []
+
+    def render():
+        try:
+            real(result, str(folder))
+        except Exception as exc:  # noqa: BLE001 - collected for the assertion
+            errors.append(exc)
+
+    racers = [threading.Thread(target=render) for _ in range(2)]
+    for thread in racers:
+        thread.start()
+    for thread in racers:
+        thread.join()
+    assert errors == [] and (folder / "report.html").exists()
+    assert not [p for p in folder.parent.iterdir() if p.name.startswith(".")]

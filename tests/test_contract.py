@@ -62,6 +62,8 @@ def test_lag_cli_library_and_service_agree(client):
                        content_type="multipart/form-data").json["id"]
     request["a"]["record"], request["b"]["record"], request["ties"] = ice, lake, ties
     served = client.post("/lag", json=request).json
+    stored = {key: served.pop(key) for key in ("id", "links")}  # what only the service adds
+    assert stored["links"]["result"] == f"/reports/{stored['id']}"
     assert without_origin(cli) == without_origin(library) == without_origin(served)
     check = validator(LagResult)
     for body in (cli, library, served):

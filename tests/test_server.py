@@ -40,6 +40,8 @@ def small_lag(ice_id, lake_id):
 def comparable(result):
     """A result without what legitimately differs between routes: when and from which path."""
     out = json.loads(json.dumps(result))
+    out.pop("id", None)  # what the service adds: where it stored the result
+    out.pop("links", None)
     out["provenance"].pop("created")
     for item in out["provenance"]["inputs"]:
         item.pop("source")
@@ -67,7 +69,8 @@ def test_round_trip_on_a_real_server(server):
     request["b"]["record"] = lake.json()["entry"]["id"]
     request["ties"] = ties.json()["id"]
     lag = requests.post(server.url + "/lag", json=request, timeout=300)
-    assert lag.status_code == 200, lag.text
+    assert lag.status_code == 201, lag.text
+    assert lag.headers["Location"] == lag.json()["links"]["result"]
     truth = json.loads((RECORDS / "truth.json").read_text())
     lo, hi = lag.json()["lag"]["ci95"]
     assert lo <= truth["lag_on_ice_timescale"] <= hi
@@ -85,8 +88,8 @@ def test_schemathesis_finds_no_server_error(server):
         [sys.executable, "-m", "schemathesis.cli", "run", server.url + "/openapi.json",
          "--checks", "not_a_server_error,status_code_conformance,content_type_conformance,"
                      "response_schema_conformance",
-         "--phases", "coverage,fuzzing", "--max-examples", "10", "--workers", "1",
-         "--max-time", "60", "--seed", "1"],
+         "--phases", "coverage,fuzzing,stateful", "--max-examples", "10", "--workers", "1",
+         "--max-time", "40", "--seed", "1"],
         capture_output=True, text=True, timeout=600, cwd=ROOT)
     assert done.returncode == 0, done.stdout[-4000:]
 
@@ -106,7 +109,7 @@ def test_concurrent_load_matches_the_library(server):
                 start = time.perf_counter()
                 response = session.post(server.url + "/lag", json=body, timeout=120)
                 times.append(time.perf_counter() - start)
-                if response.status_code != 200:
+                if response.status_code != 201:
                     failures.append(response.text)
                 elif comparable(response.json()) != expected:
                     failures.append("result differs from the library's")
@@ -172,3 +175,142 @@ def _quietly(function, *args):
         function(*args)
     except requests.RequestException:
         pass  # the server was killed under the request
+
+
+# --------------------------------------------------------------------------------------------
+# settings, waitress's own errors, workers and signals
+
+
+@pytest.mark.parametrize("option, value", [("--port", "70000"), ("--port", "0"),
+                                           ("--workers", "-1"), ("--workers", "0"),
+                                           ("--time-limit", "0"), ("--time-limit", "nan")])
+def test_serve_refuses_invalid_settings(tmp_path, option, value):
+    from conftest import run_cli
+
+    done = run_cli("serve", "--data-dir", tmp_path, option, value, timeout=60)
+    assert done.returncode == 2, done.stderr
+    assert f"'{option[2:]}'" in done.stderr and "must be" in done.stderr
+
+
+def test_a_body_over_the_limit_is_a_problem_even_before_the_app(server):
+    """Waitress refuses a declared length over its limit without reading the body: the
+    answer is problem details too."""
+    import socket
+
+    with socket.create_connection(("127.0.0.1", server.port), timeout=30) as sock:
+        sock.sendall(b"POST /records HTTP/1.1\r\nHost: 127.0.0.1\r\n"
+                     b"Content-Type: multipart/form-data; boundary=x\r\n"
+                     b"Content-Length: 100000000000\r\n\r\n")
+        reply = b""
+        while b"\r\n\r\n" not in reply or not reply.rstrip().endswith(b"}"):
+            chunk = sock.recv(65536)
+            if not chunk:
+                break
+            reply += chunk
+    head, _, body = reply.partition(b"\r\n\r\n")
+    assert head.startswith(b"HTTP/1.1 413")
+    assert b"content-type: application/problem+json" in head.lower()
+    assert json.loads(body)["status"] == 413
+
+
+def children(pid):
+    """Processes whose parent is ``pid`` (from /proc)."""
+    from pathlib import Path
+
+    found = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[1]) == pid:
+            found.append(int(stat.parent.name))
+    return found
+
+
+def workers_of(server):
+    """The server's computation workers (spawned pebble processes)."""
+    from pathlib import Path
+
+    out = []
+    for pid in children(server.process.pid):
+        try:
+            if b"spawn_main" in Path(f"/proc/{pid}/cmdline").read_bytes():
+                out.append(pid)
+        except OSError:
+            continue
+    return out
+
+
+def alive(pid):
+    from pathlib import Path
+
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except OSError:
+        return False
+    return state != "Z"
+
+
+SLOW = {"variable": "d18O", "window": [11900, 12500], "age_reference": "b2k",
+        "method": "bayes", "draws": 100_000, "seed": 1}  # tens of seconds of MCMC
+
+
+def _post_in_thread(url, body, into):
+    def go():
+        try:
+            into.append(requests.post(url, json=body, timeout=300))
+        except requests.RequestException as exc:
+            into.append(exc)
+
+    thread = threading.Thread(target=go)
+    thread.start()
+    return thread
+
+
+def test_a_killed_worker_is_a_503_and_the_pool_is_whole_again(tmp_path):
+    import os
+    import signal
+
+    server = Server(tmp_path / "store", "--workers", "1")
+    try:
+        lake = post_file(server.url + "/records", RECORDS / "trv3_lake.nc").json()["entry"]["id"]
+        ice = post_file(server.url + "/records", RECORDS / "hvd1_ice.nc").json()["entry"]["id"]
+        [worker] = workers_of(server)
+        answers = []
+        thread = _post_in_thread(server.url + "/detect/onset", {"record": lake, **SLOW},
+                                 answers)
+        time.sleep(3.0)  # the worker is inside the computation
+        os.kill(worker, signal.SIGKILL)
+        thread.join(timeout=60)
+        [answer] = answers
+        assert answer.status_code == 503, answer.text
+        assert answer.headers["Content-Type"] == "application/problem+json"
+        assert int(answer.headers["Retry-After"]) > 0 and "try again" in answer.json()["detail"]
+        ok = requests.post(server.url + "/detect/event", json={
+            "record": ice, "variable": "sulfate", "window": [12150, 12350]}, timeout=120)
+        assert ok.status_code == 200 and ok.json()["found"]
+        replaced = workers_of(server)
+        assert len(replaced) == 1 and worker not in replaced
+    finally:
+        server.stop()
+
+
+def test_sigterm_during_a_computation_ends_server_and_workers(tmp_path):
+    """Within 15 s of SIGTERM the server has exited and no worker is left."""
+    server = Server(tmp_path / "store", "--workers", "2")
+    lake = post_file(server.url + "/records", RECORDS / "trv3_lake.nc").json()["entry"]["id"]
+    answers = []
+    _post_in_thread(server.url + "/detect/onset", {"record": lake, **SLOW}, answers)
+    time.sleep(3.0)
+    workers = workers_of(server)
+    assert workers
+    start = time.monotonic()
+    server.process.terminate()
+    code = server.process.wait(timeout=15)
+    while any(alive(pid) for pid in workers) and time.monotonic() - start < 15:
+        time.sleep(0.1)
+    assert not [pid for pid in workers if alive(pid)], "workers outlived the server"
+    print(f"server and workers ended {time.monotonic() - start:.1f} s after SIGTERM "
+          f"(exit code {code})")
+    assert code == 143

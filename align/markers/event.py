@@ -155,6 +155,9 @@ def detect_event(record, variable, window=None, *, threshold=None,
     span = float(baseline_years) if baseline_years else BASELINE_SAMPLES * float(np.median(width))
     if not span > 0:
         raise InputError("baseline_years must be positive", field="baseline_years")
+    if span > bounds[-1, 1] - bounds[0, 0]:
+        raise InputError(f"baseline_years ({span:g}) is longer than the record "
+                         f"({bounds[-1, 1] - bounds[0, 0]:g} yr)", field="baseline_years")
     near = (age >= window[0] - span / 2) & (age <= window[1] + span / 2)
     inside = np.flatnonzero((age >= window[0]) & (age <= window[1]))
     if inside.size < 5:
