@@ -309,6 +309,16 @@ def _tabulated_sites_only(spec, pointer):
                                    "POST /synchrony", pointer=f"{pointer}/sites/{k}/{key}")
 
 
+def marker_paths(spec, pointer, paths):
+    """Check a marker spec's limits and add the stored file it names (if it is on a record)
+    to ``paths``."""
+    marker_limits(spec, pointer)
+    if RECORD_KINDS.get(spec.kind) is None:
+        _tabulated_sites_only(spec, pointer)
+    else:
+        paths[spec.record] = record_path(spec.record, f"{pointer}/record")
+
+
 def marker_limits(spec, pointer):
     """The limits on a marker spec's own sizes (kinds that draw)."""
     if getattr(spec, "draws", None) is not None:
@@ -381,12 +391,7 @@ def lag(body):
     limit(body.draws, "MAX_DRAWS", "/draws")
     paths = {}
     for side in ("a", "b"):
-        spec = getattr(body, side)
-        marker_limits(spec, f"/{side}")
-        if RECORD_KINDS.get(spec.kind) is None:
-            _tabulated_sites_only(spec, f"/{side}")
-            continue
-        paths[spec.record] = record_path(spec.record, f"/{side}/record")
+        marker_paths(getattr(body, side), f"/{side}", paths)
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
     sides = {paths[spec.record]: (f"/{side}", spec.variable)
@@ -413,8 +418,7 @@ def survey(body):
         raise Problem(422, "a survey needs pairs, or a table (a stored event table's id) with "
                            "a and b", pointer="/pairs")
     for pointer, spec in markers:
-        marker_limits(spec, pointer)
-        paths[spec.record] = record_path(spec.record, f"{pointer}/record")
+        marker_paths(spec, pointer, paths)
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
     text = compute(tasks.survey, body.model_dump(), paths,

@@ -56,7 +56,7 @@ def test_report_redrawn_from_json_alone_is_the_same(demo_report, tmp_path):
 
 @pytest.mark.parametrize("content, fragment", [
     ('{"lag": 3}', "not a LagResult"),
-    ("[1, 2]", "not a lag, survey or synchrony result"),
+    ("[1, 2]", "not a corealign result"),
     ("not json", "not valid JSON"),
 ])
 def test_report_refuses_what_is_not_a_result(tmp_path, content, fragment):
