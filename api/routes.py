@@ -414,6 +414,9 @@ def survey(body):
                            "a and b", pointer="/pairs")
     for pointer, spec in markers:
         marker_limits(spec, pointer)
+        if RECORD_KINDS.get(spec.kind) is None:  # a marker not found on a record (sites)
+            _tabulated_sites_only(spec, pointer)
+            continue
         paths[spec.record] = record_path(spec.record, f"{pointer}/record")
     if body.ties is not None:
         paths[body.ties] = _ties_path(body.ties, "/ties")
