@@ -346,3 +346,14 @@ def test_concurrent_first_views_render_once(client, app, monkeypatch, tmp_path):
         thread.join()
     assert errors == [] and (folder / "report.html").exists()
     assert not [p for p in folder.parent.iterdir() if p.name.startswith(".")]
+
+
+def test_survey_pairs_of_tabulated_sites_are_not_looked_up_as_records(client):
+    """A pair's marker of the sites kind has no record: the route must not look one up
+    (found by schemathesis: AttributeError, 500)."""
+    sites = {"kind": "sites", "sites": [{"label": "s1", "age": 12200, "sd": 30},
+                                        {"label": "s2", "age": 12240, "sd": 40}]}
+    response = client.post("/survey", json={"pairs": [{"label": "P", "a": sites, "b": sites}],
+                                            "draws": 2000, "seed": 1})
+    assert response.status_code < 500, response.get_data(True)
+    assert response.status_code in (201, 422), response.json
