@@ -6,6 +6,7 @@ import json
 import re
 import tempfile
 import threading
+from contextlib import contextmanager
 from pathlib import Path
 
 from flask import Blueprint, current_app, jsonify, request, send_file
@@ -250,18 +251,13 @@ def record_data(record_id):
 def upload_table():
     from align.tables import read_table
 
-    raw, name = _upload()
-    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
-                                     delete=False) as handle:
-        handle.write(raw)
-    try:
-        with limits_of_service():
-            frame = read_table(Path(handle.name)).frame
-    except InputError as exc:
-        raise locate.problem(exc.with_source(name), Where(default="/file"),
-                             store().root) from None
-    finally:
-        Path(handle.name).unlink(missing_ok=True)
+    with uploaded() as (raw, name, path):
+        try:
+            with limits_of_service():
+                frame = read_table(path).frame
+        except InputError as exc:
+            raise locate.problem(exc.with_source(name), Where(default="/file"),
+                                 store().root) from None
     if frame.empty:
         raise Problem(422, f"{name}: the event table has no rows", pointer="/file")
     object_id = store().add_table(raw, list(frame.columns), len(frame))
@@ -276,19 +272,28 @@ def limits_of_service():
     return use_limits(**current_app.config["LIMITS"])
 
 
-@endpoint(records, "/ties", "POST", summary="Upload a tie table", multipart=TIES_SCHEMA,
-          response=StoredTies, status=201, write=True)
-def upload_ties():
+@contextmanager
+def uploaded(suffix=".csv"):
+    """The upload's bytes, its name and a temporary copy in the store's uploads folder (a
+    path for the readers), removed when the block ends."""
     raw, name = _upload()
-    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
+    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=suffix,
                                      delete=False) as handle:
         handle.write(raw)
     try:
-        ties = read_ties(handle.name)
-    except InputError as exc:
-        raise exc.with_source(name) from None
+        yield raw, name, Path(handle.name)
     finally:
         Path(handle.name).unlink(missing_ok=True)
+
+
+@endpoint(records, "/ties", "POST", summary="Upload a tie table", multipart=TIES_SCHEMA,
+          response=StoredTies, status=201, write=True)
+def upload_ties():
+    with uploaded() as (raw, name, path):
+        try:
+            ties = read_ties(path)
+        except InputError as exc:
+            raise exc.with_source(name) from None
     object_id = store().add_ties(raw, ties)
     return answer({"id": object_id, "labels": list(ties.labels), "ref_kind": ties.ref_kind,
                    "checksum": object_id}, 201, f"/ties/{object_id}")
@@ -459,16 +464,11 @@ def synchrony(body):
 def synchrony_table():
     from align.sites import read_site_table
 
-    raw, name = _upload()
-    with tempfile.NamedTemporaryFile(dir=store().root / "uploads", suffix=".csv",
-                                     delete=False) as handle:
-        handle.write(raw)
-    try:
-        sites = read_site_table(handle.name)
-    except InputError as exc:
-        raise exc.with_source(name) from None
-    finally:
-        Path(handle.name).unlink(missing_ok=True)
+    with uploaded() as (raw, name, path):
+        try:
+            sites = read_site_table(path)
+        except InputError as exc:
+            raise exc.with_source(name) from None
     options = _json_form("options")
     data = {**options, "sites": sites}
     return _synchrony(data, SynchronyRequest.model_validate(data))

@@ -319,20 +319,20 @@ def synthetic_sites(rng, trials, k, shared, truth=12000.0):
 
 @pytest.mark.slow
 @pytest.mark.parametrize("k", [3, 8, 20])
-@pytest.mark.parametrize("shared", [False, True])
-def test_calibration_rejection_and_coverage(k, shared):
+@pytest.mark.parametrize("shared_chronology", [False, True])
+def test_calibration_rejection_and_coverage(k, shared_chronology):
     """Synthetic truth, one common age: the test rejects at nominal 5 % in 3-7 % of trials and
     the combined 95 % interval covers the truth in 93-97 %. Ignoring the correlation of a
     shared chronology (same variances, no covariance) visibly fails the coverage (measured:
     about 90 %, 74 % and 53 % for K = 3, 8, 20)."""
-    rng = np.random.default_rng(100 + k + 7 * shared)
-    x, cov = synthetic_sites(rng, CALIBRATION_TRIALS, k, shared)
+    rng = np.random.default_rng(100 + k + 7 * shared_chronology)
+    x, cov = synthetic_sites(rng, CALIBRATION_TRIALS, k, shared_chronology)
     reject = np.mean(chi2.sf(chi2_statistic(x, cov), k - 1) < 0.05)
     assert 0.03 <= reject <= 0.07
     mean, var, _ = gls(x, cov)
     cover = np.mean(np.abs(mean - 12000.0) <= 1.959963984540054 * np.sqrt(var))
     assert 0.93 <= cover <= 0.97
-    if shared:
+    if shared_chronology:
         naive = np.eye(k) * cov  # the same variances, the correlation dropped
         naive_reject = np.mean(chi2.sf(chi2_statistic(x, naive), k - 1) < 0.05)
         n_mean, n_var, _ = gls(x, naive)
@@ -342,13 +342,13 @@ def test_calibration_rejection_and_coverage(k, shared):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("shared", [False, True])
-def test_calibration_displaced_site_is_the_top_outlier(shared):
+@pytest.mark.parametrize("shared_chronology", [False, True])
+def test_calibration_displaced_site_is_the_top_outlier(shared_chronology):
     """Synthetic truth: one of 8 sites displaced by 4 of its own sd has the highest outlier
     probability (Christen 1994 mixture, Gibbs) in at least 80 % of 400 trials."""
-    rng = np.random.default_rng(7 + shared)
+    rng = np.random.default_rng(7 + shared_chronology)
     trials, k = 400, 8
-    x, cov = synthetic_sites(rng, trials, k, shared)
+    x, cov = synthetic_sites(rng, trials, k, shared_chronology)
     bad = rng.integers(0, k, trials)
     own_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)[np.arange(trials), bad])
     x[np.arange(trials), bad] += 4 * own_sd * rng.choice([-1, 1], trials)
