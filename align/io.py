@@ -284,10 +284,10 @@ def _clean_proxies(ds, mapping, name):
     """Declared missing-value codes to NaN and undeclared sentinels refused, in place."""
     numbers, _ = split_codes(mapping.get("missing_values") or [])
     for var in proxy_variables(ds):
-        values = ds[var].values.astype(float)
-        values, count = mask_codes(values, numbers)
+        variable = ds.variables[var]  # not ds[var], which scans every variable
+        values, count = mask_codes(variable.values.astype(float), numbers)
         if count:
-            ds[var] = ds[var].copy(data=values)
+            variable.data = values
             add_history(ds, f"{count} missing-value code(s) in {var!r} read as missing")
         find = find_sentinel(values)
         if find is not None:
