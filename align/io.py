@@ -218,6 +218,7 @@ def _read_netcdf(path, mapping, meta):
     try:
         with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as opened:
             _check_declared(opened, str(path))
+            _load_values(opened, str(path))
             ds = opened.load()
     except (OSError, ValueError, RuntimeError) as exc:
         if isinstance(exc, InputError):
@@ -257,6 +258,18 @@ def _check_declared(ds, name):
         size = float(np.prod(var.shape, dtype=float)) * var.dtype.itemsize
         limits.check("variable_bytes", size, field=str(var_name), source=name,
                      detail=f" (shape {'x'.join(map(str, var.shape))}, {var.dtype})")
+
+
+def _load_values(ds, name):
+    """Read each variable's values (the header has been read): a variable whose values cannot
+    be read is named, and told apart from a file that is not NetCDF at all."""
+    for var_name, var in ds.variables.items():
+        try:
+            var.load()
+        except (OSError, RuntimeError) as exc:
+            raise InputError(f"the values of this variable cannot be read ({exc}): damaged "
+                             "data, or more memory than this process may hold to decompress "
+                             "them", source=name, field=str(var_name)) from exc
 
 
 def _grid_as_samples(ds):
