@@ -105,7 +105,7 @@ def test_concurrent_load_matches_the_library(server):
 
     def client():
         with requests.Session() as session:
-            for _ in range(50):
+            for _ in range(25):
                 start = time.perf_counter()
                 response = session.post(server.url + "/lag", json=body, timeout=120)
                 times.append(time.perf_counter() - start)
@@ -122,9 +122,9 @@ def test_concurrent_load_matches_the_library(server):
         thread.join()
     elapsed = time.perf_counter() - start
     times.sort()
-    print(f"load: 8 clients x 50 lag requests in {elapsed:.1f} s ({400 / elapsed:.1f} req/s); "
-          f"latency median {times[200] * 1000:.0f} ms, 95th percentile "
-          f"{times[380] * 1000:.0f} ms; failures {len(failures)}")
+    print(f"load: 8 clients x 25 lag requests in {elapsed:.1f} s ({200 / elapsed:.1f} req/s); "
+          f"latency median {times[100] * 1000:.0f} ms, 95th percentile "
+          f"{times[190] * 1000:.0f} ms; failures {len(failures)}")
     assert failures == []
 
 
@@ -347,7 +347,7 @@ def high_water(pid):
 
 
 class Peaks:
-    """The peak resident memory of a server and of each of its workers, polled every 20 ms
+    """The peak resident memory of a server and of each of its workers, polled every 0.1 s
     (a worker replaced meanwhile keeps the peak it reached)."""
 
     def __init__(self, server):
@@ -359,7 +359,7 @@ class Peaks:
     def _poll(self):
         while self.running:
             self.read()
-            time.sleep(0.02)
+            time.sleep(0.1)
 
     def read(self):
         for pid in [self.server.process.pid, *workers_of(self.server)]:
