@@ -322,3 +322,41 @@ def test_service_onset_draws_limit_points_at_draws(tight):
         "record": lake, "variable": "d18O", "window": [12500, 11900], "age_reference": "b2k",
         "draws": 100, "seed": 1}), 422, "/window")
     assert json.dumps(body)  # plain JSON problem
+
+
+def test_reading_does_no_per_column_work_over_all_columns(tmp_path, monkeypatch):
+    """Reading is linear in columns: making an xarray DataArray scans every variable of its
+    Dataset, so reading, describing and re-reading a record make a fixed number of them,
+    however many columns (once one per proxy: 5,000 columns took a minute); and the cells
+    of all text columns are parsed in one pass (tests/benchmarks/bench_columns.py times it)."""
+    import xarray as xr
+
+    from align import columns
+    from align.describe import describe_record
+    from align.io import save_record
+
+    counts = {"dataarrays": 0, "parses": 0}
+    make, parse = xr.Dataset._construct_dataarray, columns._parse_cells
+
+    def counted(name, function):
+        def call(*args, **kwargs):
+            counts[name] += 1
+            return function(*args, **kwargs)
+        return call
+
+    monkeypatch.setattr(xr.Dataset, "_construct_dataarray", counted("dataarrays", make))
+    monkeypatch.setattr(columns, "_parse_cells", counted("parses", parse))
+    seen = {}
+    for n in (20, 200):
+        text = tmp_path / f"wide{n}.csv"
+        text.write_text(wide_table(n))
+        counts.update(dataarrays=0, parses=0)
+        record = open_record(text, age_reference="b2k")
+        assert len(record.data_vars) == n  # n - 1 proxies and the age bounds
+        describe_record(record)
+        save_record(record, tmp_path / f"wide{n}.nc")
+        counts["saved"] = counts["dataarrays"]
+        open_record(tmp_path / f"wide{n}.nc")
+        seen[n] = dict(counts)
+    assert seen[20] == seen[200], seen
+    assert seen[200]["parses"] == 1
