@@ -286,9 +286,10 @@ def numeric_columns(frame, cols, name, locate, texts=(), decimal=None):
         For the first column (in the order of ``cols``) holding a cell that is not a number
         or is infinite, as :func:`numeric_column` words it.
     """
-    text = [col for col in cols if frame[col].dtype.kind not in "fiu"]
+    kinds = frame.dtypes
+    text = [col for col in cols if kinds[col].kind not in "fiu"]
     out = {col: numeric_column(frame[col], col, name, locate) for col in cols
-           if col not in set(text)}
+           if kinds[col].kind in "fiu"}
     if text:
         cells = pd.Series(frame[text].to_numpy(dtype=object).ravel(order="F"))
         values, bad = _parse_cells(cells, texts, decimal)

@@ -52,6 +52,16 @@ def test_defaults_are_documented_in_the_readme():
         row = (f"| `{name}` | {limits.WHAT[name]} | {getattr(limits.DEFAULTS, name):,} | "
                f"{SERVICE['LIMITS'][name]:,} |")
         assert row in section, row
+    from api.server import MIN_WORKER_MEMORY, SERVER_MEMORY, WORKER_CODE, peak_memory
+
+    memory = SERVICE["WORKER_MEMORY"]
+    assert (f"| `WORKER_MEMORY` | bytes of data a worker may hold (`RLIMIT_DATA`); more is "
+            f"answered 413 | none | {memory:,} (`serve --worker-memory {memory // 2**20}`, in "
+            f"MiB, at least {MIN_WORKER_MEMORY}) |") in section
+    assert (f"| peak resident memory | bytes, server process and workers together | none | "
+            f"{SERVER_MEMORY} MiB + workers x (`WORKER_MEMORY` + {WORKER_CODE} MiB): "
+            f"{peak_memory(SERVICE['WORKERS'], memory) / 2**30:g} GiB by default; "
+            f"{peak_memory(2, 600 * 2**20) / 2**20:,.0f} MiB with 2 workers at 600 MiB") in section
 
 
 def test_use_limits_is_scoped_and_checked():
