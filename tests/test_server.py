@@ -194,6 +194,18 @@ def test_serve_refuses_invalid_settings(tmp_path, option, value):
     assert f"'{option[2:]}'" in done.stderr and "must be" in done.stderr
 
 
+def test_worker_memory_at_and_past_its_least_value():
+    from align.errors import InputError
+    from api.server import MIN_WORKER_MEMORY, check_settings
+
+    check_settings(8750, 2, 300.0, 8, MIN_WORKER_MEMORY)
+    check_settings(8750, 2, 300.0, 8, 2**20)
+    for bad in (MIN_WORKER_MEMORY - 1, 2**20 + 1, float("nan")):
+        with pytest.raises(InputError) as caught:
+            check_settings(8750, 2, 300.0, 8, bad)
+        assert caught.value.field == "worker-memory"
+
+
 def test_a_body_over_the_limit_is_a_problem_even_before_the_app(server):
     """Waitress refuses a declared length over its limit without reading the body: the
     answer is problem details too."""
