@@ -22,9 +22,10 @@ FRAMING = 1_000_000
 MIN_WORKER_MEMORY = 512
 
 
-#: Resident memory (MiB) of the server process itself (waitress, Flask and the libraries the
-#: routes import: about 180 MB measured) and, per worker, beyond its memory limit (shared
-#: libraries and code, which ``RLIMIT_DATA`` does not count: about 140 MB measured).
+#: Resident memory (MiB) of the server process with multiprocessing's resource tracker
+#: (waitress, Flask and the libraries the routes import: about 190 MB measured) and, per
+#: worker, beyond its memory limit (shared libraries and code, which ``RLIMIT_DATA`` does not
+#: count: about 140 MB measured).
 SERVER_MEMORY, WORKER_CODE = 512, 256
 
 
