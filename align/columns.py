@@ -293,7 +293,8 @@ def numeric_columns(frame, cols, name, locate, texts=(), decimal=None):
     if text:
         cells = pd.Series(frame[text].to_numpy(dtype=object).ravel(order="F"))
         values, bad = _parse_cells(cells, texts, decimal)
-        values, bad = values.reshape(len(text), -1), (bad | np.isinf(values)).reshape(len(text), -1)
+        shape = (len(text), -1)  # cells were taken column by column
+        values, bad = values.reshape(shape), (bad | np.isinf(values)).reshape(shape)
         for col, row_values, row_bad in zip(text, values, bad):
             if row_bad.any():  # worded, and located, by the one-column reader
                 numeric_column(frame[col], col, name, locate, texts, decimal)
