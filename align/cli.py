@@ -430,6 +430,9 @@ def _serve_parser(commands):
     serve.add_argument("--workers", type=int, help="computation worker processes (default 2)")
     serve.add_argument("--time-limit", type=float, metavar="SECONDS",
                        help="stop a computation after this long (default 300)")
+    serve.add_argument("--worker-memory", type=float, metavar="MIB",
+                       help="memory (MiB) each worker may hold; a computation needing more is "
+                            "refused (default 4096, at least 512)")
     serve.set_defaults(run=_serve)
 
 
@@ -777,7 +780,8 @@ def _report(args):
 def _serve(args):
     from api.server import serve
 
-    serve(args.host, args.port, args.data_dir, args.token_file, args.workers, args.time_limit)
+    serve(args.host, args.port, args.data_dir, args.token_file, args.workers, args.time_limit,
+          worker_memory=args.worker_memory)
 
 
 def _demo(args):

@@ -99,9 +99,10 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
     numbers, texts = split_codes([*declared_missing, *(mapping.get("missing_values") or [])])
     notes = []
     numeric = {}
-    for col in [*roles.values(), *proxies]:
-        values = numeric_column(frame[col], col, name, locate, texts, mapping.get("decimal"))
-        values, count = mask_codes(values, numbers)
+    wanted = [*roles.values(), *proxies]
+    parsed = numeric_columns(frame, wanted, name, locate, texts, mapping.get("decimal"))
+    for col in wanted:
+        values, count = mask_codes(parsed[col], numbers)
         if count:
             notes.append(f"{count} missing-value code(s) in {columns[col].header!r} read as "
                          "missing")
@@ -271,16 +272,53 @@ def _proxy_columns(columns, roles, mapping, name):
     return [c for c in columns if c not in taken]
 
 
+def numeric_columns(frame, cols, name, locate, texts=(), decimal=None):
+    """Parse the columns ``cols`` of ``frame`` as :func:`numeric_column` does, the cells of
+    all text columns in one pass (per-column work made wide tables slow).
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+
+    Raises
+    ------
+    InputError
+        For the first column (in the order of ``cols``) holding a cell that is not a number
+        or is infinite, as :func:`numeric_column` words it.
+    """
+    kinds = frame.dtypes
+    text = [col for col in cols if kinds[col].kind not in "fiu"]
+    out = {col: numeric_column(frame[col], col, name, locate) for col in cols
+           if kinds[col].kind in "fiu"}
+    if text:
+        cells = pd.Series(frame[text].to_numpy(dtype=object).ravel(order="F"))
+        values, bad = _parse_cells(cells, texts, decimal)
+        shape = (len(text), -1)  # cells were taken column by column
+        values, bad = values.reshape(shape), (bad | np.isinf(values)).reshape(shape)
+        for col, row_values, row_bad in zip(text, values, bad):
+            if row_bad.any():  # worded, and located, by the one-column reader
+                numeric_column(frame[col], col, name, locate, texts, decimal)
+            out[col] = row_values
+    return {col: out[col] for col in cols}
+
+
+def _parse_cells(cells, texts, decimal):
+    """Cells (text) to numbers: blank cells and missing-value texts are NaN; also returns
+    where a cell is neither a number nor blank."""
+    text = cells.astype(str).str.strip()
+    blank = (text == "") | text.isin(list(texts)) | text.str.lower().isin(["nan", "na"])
+    parsed = text.str.replace(",", ".", regex=False) if decimal == "," else text
+    values = pd.to_numeric(parsed.where(~blank), errors="coerce").to_numpy(dtype=float)
+    return values, np.isnan(values) & ~blank.to_numpy()
+
+
 def numeric_column(series, col, name, locate, texts=(), decimal=None):
     """Parse one column; empty cells and text codes are NaN, anything else non-numeric fails."""
     if series.dtype.kind in "fiu":
         values = series.to_numpy(dtype=float)
     else:
         text = series.astype(str).str.strip()
-        blank = (text == "") | text.isin(list(texts)) | text.str.lower().isin(["nan", "na"])
-        parsed = text.str.replace(",", ".", regex=False) if decimal == "," else text
-        values = pd.to_numeric(parsed.where(~blank), errors="coerce").to_numpy(dtype=float)
-        bad = np.isnan(values) & ~blank.to_numpy()
+        values, bad = _parse_cells(series, texts, decimal)
         if bad.any():
             i = int(np.argmax(bad))
             kind, row = locate(i)

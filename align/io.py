@@ -218,6 +218,7 @@ def _read_netcdf(path, mapping, meta):
     try:
         with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as opened:
             _check_declared(opened, str(path))
+            _load_values(opened, str(path))
             ds = opened.load()
     except (OSError, ValueError, RuntimeError) as exc:
         if isinstance(exc, InputError):
@@ -259,6 +260,18 @@ def _check_declared(ds, name):
                      detail=f" (shape {'x'.join(map(str, var.shape))}, {var.dtype})")
 
 
+def _load_values(ds, name):
+    """Read each variable's values (the header has been read): a variable whose values cannot
+    be read is named, and told apart from a file that is not NetCDF at all."""
+    for var_name, var in ds.variables.items():
+        try:
+            var.load()
+        except (OSError, RuntimeError) as exc:
+            raise InputError(f"the values of this variable cannot be read ({exc}): damaged "
+                             "data, or more memory than this process may hold to decompress "
+                             "them", source=name, field=str(var_name)) from exc
+
+
 def _grid_as_samples(ds):
     """A grid written by :func:`save_grid` (one ``age`` or ``depth`` dimension with bounds)
     seen as a record: its dimension becomes ``sample``."""
@@ -284,10 +297,10 @@ def _clean_proxies(ds, mapping, name):
     """Declared missing-value codes to NaN and undeclared sentinels refused, in place."""
     numbers, _ = split_codes(mapping.get("missing_values") or [])
     for var in proxy_variables(ds):
-        values = ds[var].values.astype(float)
-        values, count = mask_codes(values, numbers)
+        variable = ds.variables[var]  # not ds[var], which scans every variable
+        values, count = mask_codes(variable.values.astype(float), numbers)
         if count:
-            ds[var] = ds[var].copy(data=values)
+            variable.data = values
             add_history(ds, f"{count} missing-value code(s) in {var!r} read as missing")
         find = find_sentinel(values)
         if find is not None:

@@ -27,7 +27,9 @@ DEFAULTS = {
     "TOKEN": None,  # bearer token (None: no authentication); computing and storing need it
     "TOKEN_READS": True,  # with a token, reads need it too (False: reads are open)
     "ALLOWED_HOSTS": None,  # Host names answered (None: any; serve on loopback: loopback only)
-    "WORKER_MEMORY": None,  # bytes of data a worker process may hold (None: no limit)
+    # bytes of data a worker process may hold (RLIMIT_DATA; None: no limit): above the
+    # 2.4 GB a cross-correlation at the LIMITS above was measured to need
+    "WORKER_MEMORY": 4 * 1024**3,
 }
 
 

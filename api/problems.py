@@ -50,6 +50,7 @@ def pointer_of(location):
 
 def register(app):
     """Install the handlers that turn every error into problem details."""
+    from api.compute import OutOfMemory
 
     @app.errorhandler(Problem)
     def _problem(exc):
@@ -71,6 +72,10 @@ def register(app):
         return problem_response(exc.status if exc.status in TYPES else 422,
                                 words(str(exc), store.root if store else None),
                                 pointer=Where().pointer(exc))
+
+    @app.errorhandler(OutOfMemory)
+    def _memory(exc):  # what the request asks needs more than a worker may hold
+        return problem_response(413, str(exc), title="Computation too large")
 
     @app.errorhandler(HTTPException)
     def _http(exc):

@@ -17,8 +17,30 @@ from align.errors import InputError
 FRAMING = 1_000_000
 
 
-def check_settings(port, workers, time_limit, threads):
-    """Refuse settings the server cannot run with, naming the option."""
+#: The least worker memory limit (MiB): a worker holds about 450 MB of data once its
+#: libraries are loaded and the demo's computations have run (measured).
+MIN_WORKER_MEMORY = 512
+
+
+#: Resident memory (MiB) of the server process with multiprocessing's resource tracker
+#: (waitress, Flask and the libraries the routes import: about 190 MB measured) and, per
+#: worker, beyond its memory limit (shared libraries and code, which ``RLIMIT_DATA`` does not
+#: count: about 140 MB measured).
+SERVER_MEMORY, WORKER_CODE = 512, 256
+
+
+def peak_memory(workers, worker_memory):
+    """The bound (bytes) of the service's peak resident memory: the server process and each
+    worker at its memory limit, ``SERVER_MEMORY + workers * (worker_memory + WORKER_CODE)``
+    MiB (``worker_memory`` in bytes; None when a worker's memory is not limited)."""
+    if worker_memory is None:
+        return None
+    return SERVER_MEMORY * 2**20 + workers * (int(worker_memory) + WORKER_CODE * 2**20)
+
+
+def check_settings(port, workers, time_limit, threads, worker_memory=None):
+    """Refuse settings the server cannot run with, naming the option (``worker_memory`` in
+    MiB)."""
     checks = [
         ("port", port, isinstance(port, int) and 1 <= port <= 65535, "a port from 1 to 65535"),
         ("workers", workers, workers is None or (isinstance(workers, int) and 1 <= workers <= 64),
@@ -28,6 +50,9 @@ def check_settings(port, workers, time_limit, threads):
          "seconds above 0, at most 86400"),
         ("threads", threads, isinstance(threads, int) and 1 <= threads <= 256,
          "a number of request threads from 1 to 256"),
+        ("worker-memory", worker_memory, worker_memory is None or (
+            math.isfinite(worker_memory) and MIN_WORKER_MEMORY <= worker_memory <= 2**20),
+         f"MiB from {MIN_WORKER_MEMORY} to 1048576 (1 TiB)"),
     ]
     for name, value, ok, what in checks:
         if not ok:
@@ -35,7 +60,7 @@ def check_settings(port, workers, time_limit, threads):
 
 
 def serve(host="127.0.0.1", port=8750, data_dir=None, token_file=None, workers=None,
-          time_limit=None, threads=8):
+          time_limit=None, threads=8, worker_memory=None):
     """Serve the app until interrupted (Ctrl-C) or terminated (SIGTERM).
 
     Parameters
@@ -54,8 +79,11 @@ def serve(host="127.0.0.1", port=8750, data_dir=None, token_file=None, workers=N
         Seconds a computation may run before it is stopped, above 0 (default 300).
     threads : int
         Request threads of the WSGI server.
+    worker_memory : float, optional
+        MiB of data each worker may hold (``WORKER_MEMORY``), at least 512 (default 4096); a
+        computation that needs more is answered 413.
     """
-    check_settings(port, workers, time_limit, threads)
+    check_settings(port, workers, time_limit, threads, worker_memory)
     from api import create_app, default_data_dir
     from api.guard import LOOPBACK
 
@@ -66,11 +94,15 @@ def serve(host="127.0.0.1", port=8750, data_dir=None, token_file=None, workers=N
         config["WORKERS"] = workers
     if time_limit is not None:
         config["TIME_LIMIT"] = time_limit
+    if worker_memory is not None:
+        config["WORKER_MEMORY"] = int(worker_memory * 2**20)
     if host in LOOPBACK or host.startswith("127."):
         config["ALLOWED_HOSTS"] = (*LOOPBACK, host)
     app = create_app(config)
     server = _server(app, host, port, threads)
-    print(f"corealign service on http://{host}:{port} (data in {config['DATA_DIR']})",
+    bound = peak_memory(app.config["WORKERS"], app.config["WORKER_MEMORY"])
+    memory = f"; memory at most {bound / 2**30:.1f} GiB" if bound else ""
+    print(f"corealign service on http://{host}:{port} (data in {config['DATA_DIR']}{memory})",
           flush=True)
     _run(server)
 

@@ -22,7 +22,8 @@ from api.problems import CONTENT_TYPE, Problem
 ROUTES = []
 ERRORS = {400: "malformed request", 401: "a token is needed",
           403: "the token is wrong, or the request's Host or Origin is not this service's",
-          404: "unknown id or path", 405: "method not allowed", 413: "body over the size limit",
+          404: "unknown id or path", 405: "method not allowed",
+          413: "body over the size limit, or a computation over the worker memory limit",
           415: "unsupported media type", 422: "content fails validation",
           503: "computation stopped (time limit, or its worker ended): try again later"}
 

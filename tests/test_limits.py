@@ -52,6 +52,16 @@ def test_defaults_are_documented_in_the_readme():
         row = (f"| `{name}` | {limits.WHAT[name]} | {getattr(limits.DEFAULTS, name):,} | "
                f"{SERVICE['LIMITS'][name]:,} |")
         assert row in section, row
+    from api.server import MIN_WORKER_MEMORY, SERVER_MEMORY, WORKER_CODE, peak_memory
+
+    memory = SERVICE["WORKER_MEMORY"]
+    assert (f"| `WORKER_MEMORY` | bytes of data a worker may hold (`RLIMIT_DATA`); more is "
+            f"answered 413 | none | {memory:,} (`serve --worker-memory {memory // 2**20}`, in "
+            f"MiB, at least {MIN_WORKER_MEMORY}) |") in section
+    assert (f"| peak resident memory | bytes, server process and workers together | none | "
+            f"{SERVER_MEMORY} MiB + workers x (`WORKER_MEMORY` + {WORKER_CODE} MiB): "
+            f"{peak_memory(SERVICE['WORKERS'], memory) / 2**30:g} GiB by default; "
+            f"{peak_memory(2, 600 * 2**20) / 2**20:,.0f} MiB with 2 workers at 600 MiB") in section
 
 
 def test_use_limits_is_scoped_and_checked():
@@ -322,3 +332,41 @@ def test_service_onset_draws_limit_points_at_draws(tight):
         "record": lake, "variable": "d18O", "window": [12500, 11900], "age_reference": "b2k",
         "draws": 100, "seed": 1}), 422, "/window")
     assert json.dumps(body)  # plain JSON problem
+
+
+def test_reading_does_no_per_column_work_over_all_columns(tmp_path, monkeypatch):
+    """Reading is linear in columns: making an xarray DataArray scans every variable of its
+    Dataset, so reading, describing and re-reading a record make a fixed number of them,
+    however many columns (once one per proxy: 5,000 columns took a minute); and the cells
+    of all text columns are parsed in one pass (tests/benchmarks/bench_columns.py times it)."""
+    import xarray as xr
+
+    from align import columns
+    from align.describe import describe_record
+    from align.io import save_record
+
+    counts = {"dataarrays": 0, "parses": 0}
+    make, parse = xr.Dataset._construct_dataarray, columns._parse_cells
+
+    def counted(name, function):
+        def call(*args, **kwargs):
+            counts[name] += 1
+            return function(*args, **kwargs)
+        return call
+
+    monkeypatch.setattr(xr.Dataset, "_construct_dataarray", counted("dataarrays", make))
+    monkeypatch.setattr(columns, "_parse_cells", counted("parses", parse))
+    seen = {}
+    for n in (20, 200):
+        text = tmp_path / f"wide{n}.csv"
+        text.write_text(wide_table(n))
+        counts.update(dataarrays=0, parses=0)
+        record = open_record(text, age_reference="b2k")
+        assert len(record.data_vars) == n  # n - 1 proxies and the age bounds
+        describe_record(record)
+        save_record(record, tmp_path / f"wide{n}.nc")
+        counts["saved"] = counts["dataarrays"]
+        open_record(tmp_path / f"wide{n}.nc")
+        seen[n] = dict(counts)
+    assert seen[20] == seen[200], seen
+    assert seen[200]["parses"] == 1

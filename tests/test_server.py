@@ -105,7 +105,7 @@ def test_concurrent_load_matches_the_library(server):
 
     def client():
         with requests.Session() as session:
-            for _ in range(50):
+            for _ in range(25):
                 start = time.perf_counter()
                 response = session.post(server.url + "/lag", json=body, timeout=120)
                 times.append(time.perf_counter() - start)
@@ -122,9 +122,9 @@ def test_concurrent_load_matches_the_library(server):
         thread.join()
     elapsed = time.perf_counter() - start
     times.sort()
-    print(f"load: 8 clients x 50 lag requests in {elapsed:.1f} s ({400 / elapsed:.1f} req/s); "
-          f"latency median {times[200] * 1000:.0f} ms, 95th percentile "
-          f"{times[380] * 1000:.0f} ms; failures {len(failures)}")
+    print(f"load: 8 clients x 25 lag requests in {elapsed:.1f} s ({200 / elapsed:.1f} req/s); "
+          f"latency median {times[100] * 1000:.0f} ms, 95th percentile "
+          f"{times[190] * 1000:.0f} ms; failures {len(failures)}")
     assert failures == []
 
 
@@ -183,13 +183,27 @@ def _quietly(function, *args):
 
 @pytest.mark.parametrize("option, value", [("--port", "70000"), ("--port", "0"),
                                            ("--workers", "-1"), ("--workers", "0"),
-                                           ("--time-limit", "0"), ("--time-limit", "nan")])
+                                           ("--time-limit", "0"), ("--time-limit", "nan"),
+                                           ("--worker-memory", "511"),
+                                           ("--worker-memory", "inf")])
 def test_serve_refuses_invalid_settings(tmp_path, option, value):
     from conftest import run_cli
 
     done = run_cli("serve", "--data-dir", tmp_path, option, value, timeout=60)
     assert done.returncode == 2, done.stderr
     assert f"'{option[2:]}'" in done.stderr and "must be" in done.stderr
+
+
+def test_worker_memory_at_and_past_its_least_value():
+    from align.errors import InputError
+    from api.server import MIN_WORKER_MEMORY, check_settings
+
+    check_settings(8750, 2, 300.0, 8, MIN_WORKER_MEMORY)
+    check_settings(8750, 2, 300.0, 8, 2**20)
+    for bad in (MIN_WORKER_MEMORY - 1, 2**20 + 1, float("nan")):
+        with pytest.raises(InputError) as caught:
+            check_settings(8750, 2, 300.0, 8, bad)
+        assert caught.value.field == "worker-memory"
 
 
 def test_a_body_over_the_limit_is_a_problem_even_before_the_app(server):
@@ -314,3 +328,165 @@ def test_sigterm_during_a_computation_ends_server_and_workers(tmp_path):
     print(f"server and workers ended {time.monotonic() - start:.1f} s after SIGTERM "
           f"(exit code {code})")
     assert code == 143
+
+
+# --------------------------------------------------------------------------------------------
+# memory: the worker memory limit and the service's peak resident memory
+
+#: The worker memory limit of the tests below (MiB): low enough that a cross-correlation just
+#: under the service's size limits (2.4 GB measured without a limit) cannot fit.
+WORKER_MIB = 600
+
+
+@pytest.fixture(scope="module")
+def bounded(tmp_path_factory):
+    running = Server(tmp_path_factory.mktemp("store"), "--workers", "2", "--worker-memory",
+                     str(WORKER_MIB))
+    yield running
+    running.stop()
+
+
+def high_water(pid):
+    """A process's peak resident memory in bytes (``VmHWM``), or None once it has ended."""
+    from pathlib import Path
+
+    try:
+        status = Path(f"/proc/{pid}/status").read_text()
+    except OSError:
+        return None
+    line = next(row for row in status.splitlines() if row.startswith("VmHWM:"))
+    return int(line.split()[1]) * 1024
+
+
+class Peaks:
+    """The peak resident memory of a server, of each of its workers and of its other child
+    processes (multiprocessing's resource tracker), polled every 0.1 s (a worker replaced
+    meanwhile keeps the peak it reached)."""
+
+    def __init__(self, server):
+        self.server, self.peaks, self.workers = server, {}, set()
+        self.running = True
+        self.thread = threading.Thread(target=self._poll)
+        self.thread.start()
+
+    def _poll(self):
+        while self.running:
+            self.read()
+            time.sleep(0.1)
+
+    def read(self):
+        self.workers.update(workers_of(self.server))
+        for pid in [self.server.process.pid, *children(self.server.process.pid)]:
+            peak = high_water(pid)
+            if peak is not None:
+                self.peaks[pid] = max(peak, self.peaks.get(pid, 0))
+
+    def stop(self):
+        """Stop polling; return the peaks of the server with its other children (bytes)
+        and of each worker (by process id)."""
+        self.running = False
+        self.thread.join()
+        self.read()
+        workers = {pid: peak for pid, peak in self.peaks.items() if pid in self.workers}
+        return sum(self.peaks.values()) - sum(workers.values()), workers
+
+
+def zlib_bomb(path, length=2**24):
+    """A 1.5 MB NetCDF record whose two variables hold 128 MiB each (zeros and a ramp,
+    compressed): each just under the service's ``variable_bytes`` limit."""
+    import netCDF4
+    import numpy as np
+
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("sample", length)
+        age = ds.createVariable("age", "f8", ("sample",), zlib=True, shuffle=True,
+                                complevel=1, chunksizes=(2**20,))
+        age.units, age.age_reference = "yr", "b2k"
+        age[:] = np.arange(1.0, length + 1.0)
+        ca = ds.createVariable("Ca", "f8", ("sample",), zlib=True, complevel=1,
+                               chunksizes=(2**20,))
+        ca[:] = np.zeros(length)
+    return path
+
+
+def test_peak_memory_under_the_corpus_stays_below_the_bound(bounded, tmp_path):
+    """Every bad-input case of the corpus uploaded (as the library and CLI read them), the
+    reading keywords of the wrong type, requests whose sizes are over the limits, and a zlib
+    bomb: none is an internal error, and the peak resident memory of the server and of each
+    worker stays below the bound the service documents (api.server.peak_memory)."""
+    from api.server import SERVER_MEMORY, WORKER_CODE, peak_memory
+    from corpus import CASES, MAPPING_CASES
+
+    peaks = Peaks(bounded)
+    statuses = []
+    try:
+        for name, content, suffix, mapping, _ in CASES:
+            path = tmp_path / f"{name}{suffix}"
+            path.write_bytes(content if isinstance(content, bytes) else content.encode())
+            statuses.append((name, post_file(bounded.url + "/records", path, mapping)))
+        good = tmp_path / "good.csv"
+        good.write_text("depth,age,x\n1,100,1\n2,110,2\n")
+        for name, mapping, _, _ in MAPPING_CASES:
+            statuses.append((name, post_file(bounded.url + "/records", good, mapping)))
+        statuses.append(("zlib-bomb", post_file(bounded.url + "/records",
+                                                zlib_bomb(tmp_path / "bomb.nc"))))
+        ice = post_file(bounded.url + "/records", RECORDS / "hvd1_ice.nc").json()["entry"]["id"]
+        lake = post_file(bounded.url + "/records",
+                         RECORDS / "trv3_lake.nc").json()["entry"]["id"]
+        pair = {"a": {"record": ice, "variable": "d18O"}, "b": {"record": lake,
+                                                                 "variable": "d18O"}}
+        for route, body in [
+                ("/resample", {"record": ice, "step": 1e-6}),
+                ("/xcorr", {**pair, "max_lag": 1e12}),
+                ("/xcorr", {**pair, "max_lag": 100, "step": 1e-6}),
+                ("/detect/onset", {"record": lake, "variable": "d18O", "draws": 10**9,
+                                   "window": [11900, 12500], "age_reference": "b2k"}),
+                ("/detect/onset", {"record": lake, "variable": "d18O", "seed": -1,
+                                   "window": [11900, 12500], "age_reference": "b2k"}),
+                ("/resample", {"record": ice, "step": 10, "stop": 1e308})]:
+            statuses.append((route, requests.post(bounded.url + route, json=body, timeout=120)))
+    finally:
+        server, workers = peaks.stop()
+    errors = [(name, r.status_code, r.text[:200]) for name, r in statuses
+              if r.status_code >= 500 or (r.status_code >= 400 and r.headers["Content-Type"]
+                                          != "application/problem+json")]
+    assert errors == []
+    assert all(400 <= r.status_code < 500 for name, r in statuses if name != "zlib-bomb")
+    limit = WORKER_MIB * 2**20
+    bound = peak_memory(len(workers), limit)
+    total = server + sum(workers.values())
+    print(f"peak resident memory under the corpus: server (with its resource tracker) "
+          f"{server / 2**20:.0f} MiB, workers "
+          + ", ".join(f"{w / 2**20:.0f}" for w in workers.values())
+          + f" MiB; total {total / 2**20:.0f} MiB, bound {bound / 2**20:.0f} MiB "
+          f"(zlib bomb answered {dict(statuses)['zlib-bomb'].status_code})")
+    assert workers, "no worker was seen"
+    assert server < SERVER_MEMORY * 2**20
+    assert all(peak < limit + WORKER_CODE * 2**20 for peak in workers.values())
+    assert total < bound
+
+
+def test_a_computation_over_the_worker_memory_limit_is_a_413_and_the_pool_stays(bounded):
+    """A cross-correlation just under the service's size limits (20 million lags x cells and
+    surrogates x cells) needs more than a 600 MiB worker may hold: 413 naming the limit, the
+    same workers, and the next request succeeds."""
+    from api import DEFAULTS
+
+    ice = post_file(bounded.url + "/records", RECORDS / "hvd1_ice.nc").json()["entry"]["id"]
+    lake = post_file(bounded.url + "/records", RECORDS / "trv3_lake.nc").json()["entry"]["id"]
+    # window 1000 yr by 0.3 yr: 3,334 cells; max_lag 899: 5,995 lags
+    body = {"a": {"record": ice, "variable": "d18O"}, "b": {"record": lake, "variable": "d18O"},
+            "max_lag": 899, "step": 0.3, "window": [11400, 12400], "surrogates": 5990,
+            "bootstrap": 5990, "seed": 1, "age_reference": "b2k"}
+    cells, lags = 3334, 5995
+    assert lags * cells <= DEFAULTS["LIMITS"]["lags_x_length"]
+    assert 5990 * cells <= DEFAULTS["LIMITS"]["surrogates_x_length"]
+    before = set(workers_of(bounded))
+    over = requests.post(bounded.url + "/xcorr", json=body, timeout=300)
+    assert over.status_code == 413, over.text
+    assert over.headers["Content-Type"] == "application/problem+json"
+    assert f"worker memory limit of {WORKER_MIB} MiB" in over.json()["detail"]
+    ok = requests.post(bounded.url + "/detect/event", json={
+        "record": ice, "variable": "sulfate", "window": [12150, 12350]}, timeout=120)
+    assert ok.status_code == 200 and ok.json()["found"]
+    assert set(workers_of(bounded)) == before and len(before) == 2
