@@ -1,7 +1,9 @@
 """Reports: one object behind JSON, Markdown and HTML; redrawn from JSON alone; the demo."""
 
 import json
+import os
 import re
+from pathlib import Path
 
 import pytest
 
@@ -121,3 +123,70 @@ def test_report_on_any_saved_result(tmp_path, command, title):
     assert f"<h1>{title}</h1>" in page and page.count("<svg") == 1
     assert json.loads((tmp_path / "report" / "report.json").read_text()) == json.loads(
         done.stdout)
+
+
+def _files(folder):
+    return {p.name: p.read_bytes() for p in folder.iterdir()}
+
+
+@pytest.fixture(scope="module")
+def demo_result(demo_report):
+    from align.report import load_result
+
+    return load_result(demo_report / "report.json")
+
+
+def test_a_failed_rewrite_leaves_the_old_report_and_no_temporary_folder(
+        demo_report, demo_result, tmp_path, monkeypatch):
+    """A figure that fails mid-write (the third of five) leaves the old folder as it was."""
+    from matplotlib.figure import Figure
+
+    folder = tmp_path / "report"
+    folder.mkdir()
+    for name, data in _files(demo_report).items():
+        (folder / name).write_bytes(data)
+    before = _files(folder)
+    saved = []
+    real = Figure.savefig
+
+    def failing(self, *args, **kwargs):
+        saved.append(args[0])
+        if len(saved) == 5:  # the third figure's SVG
+            raise OSError("disk full (simulated)")
+        return real(self, *args, **kwargs)
+
+    monkeypatch.setattr(Figure, "savefig", failing)
+    with pytest.raises(OSError, match="simulated"):
+        write_report(demo_result, folder, overwrite=True)
+    assert len(saved) == 5 and all(Path(p).parent != folder for p in saved)
+    assert _files(folder) == before
+    assert [p.name for p in tmp_path.iterdir()] == ["report"]
+
+
+@pytest.mark.parametrize("exchange", [True, False], ids=["swap", "rename-aside"])
+def test_an_overwrite_replaces_the_whole_folder(demo_result, tmp_path, monkeypatch, exchange):
+    """No file of the old report survives beside the new one (a survey figure in a lag
+    report's folder is a mix of two runs); with or without the atomic swap."""
+    if not exchange:
+        monkeypatch.setattr("align.folders._exchange", lambda a, b: False)
+    folder = tmp_path / "report"
+    folder.mkdir()
+    (folder / "survey.svg").write_text("<svg/>")
+    (folder / "report.md").write_text("an older report")
+    write_report(demo_result, folder, overwrite=True)
+    names = {p.name for p in folder.iterdir()}
+    assert "survey.svg" not in names and "budget.svg" in names
+    assert (folder / "report.md").read_text().startswith("# Lag report")
+    assert [p.name for p in tmp_path.iterdir()] == ["report"]
+    umask = os.umask(0)
+    os.umask(umask)
+    assert folder.stat().st_mode & 0o777 == 0o777 & ~umask  # not the temporary folder's 0o700
+
+
+def test_a_folder_with_other_files_is_not_replaced(demo_result, tmp_path):
+    from align.errors import InputError
+
+    (tmp_path / "notes.txt").write_text("mine")
+    with pytest.raises(InputError, match="not part of a report.*notes.txt"):
+        write_report(demo_result, tmp_path, overwrite=True)
+    assert [p.name for p in tmp_path.iterdir()] == ["notes.txt"]
