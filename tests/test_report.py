@@ -88,18 +88,101 @@ def test_demo_json_truth_inside_the_interval(tmp_path):
     assert (tmp_path / "demo" / "report.html").exists()
 
 
-def test_survey_report(tmp_path):
+@pytest.fixture(scope="module")
+def demo_survey():
     from align import read_survey, survey
 
-    result = survey(read_survey(RECORDS / "demo_survey.json"))
-    folder = write_report(result, tmp_path)
+    return survey(read_survey(RECORDS / "demo_survey.json"))
+
+
+def test_survey_report(demo_survey, tmp_path):
+    result = demo_survey
+    folder = write_report(result, tmp_path / "survey")
     page = (folder / "report.html").read_text()
-    assert "X1 cooling" in page and page.count("<svg") == 1
+    assert "X1 cooling" in page and page.count("<svg") == 2  # the lags, the pairs' fits
+    assert {"pairs-1.svg", "pairs-1.png"} <= {p.name for p in folder.iterdir()}
     md = (folder / "report.md").read_text()
     assert f"{result.combined.median:.1f} yr" in md
     assert f"{result.heterogeneity.q:.2f} ({result.heterogeneity.dof}," in md
     for pair in result.pairs:
         assert pair.label in md
+    headline = md.split("\n\n")[1]
+    assert headline.startswith("a, d18O onset (hvd1_ice.nc), against b, d18O onset "
+                               "(trv3_lake.nc), over 2 pairs: ")
+    assert result.systematic in headline
+
+
+def test_survey_provenance_lists_every_record_with_its_checksum(demo_survey):
+    """Checksums against hashlib on the files' bytes (not the project's helper)."""
+    import hashlib
+
+    inputs = {Path(i.source).name: i for i in demo_survey.provenance.inputs}
+    assert set(inputs) == {"hvd1_ice.nc", "trv3_lake.nc", "hvd1_trv3_ties.csv",
+                           "demo_transitions.csv"}
+    assert (inputs["hvd1_ice.nc"].role, inputs["trv3_lake.nc"].role) == ("record a", "record b")
+    for name, item in inputs.items():
+        assert item.sha256 == hashlib.sha256((RECORDS / name).read_bytes()).hexdigest(), name
+
+
+def test_survey_pairs_whose_markers_differ_say_so(tmp_path):
+    """Explicit pairs with different markers: the pair table and the text name each pair's."""
+    from align import survey, text
+
+    ice, lake = str(RECORDS / "hvd1_ice.nc"), str(RECORDS / "trv3_lake.nc")
+    spec = {"pairs": [
+        {"label": "X1", "a": {"kind": "onset", "record": ice, "variable": "d18O",
+                              "window": [11900, 12400]},
+         "b": {"kind": "onset", "record": lake, "variable": "d18O", "window": [11900, 12400]}},
+        {"label": "X2", "a": {"kind": "onset", "record": ice, "variable": "d18O",
+                              "window": [11380, 11880], "position": "midpoint"},
+         "b": {"kind": "onset", "record": lake, "variable": "d18O",
+               "window": [11380, 11880]}}],
+        "ties": str(RECORDS / "hvd1_trv3_ties.csv"), "draws": 2000, "seed": 3}
+    result = survey(spec, workers=1)
+    md = (write_report(result, tmp_path / "r") / "report.md").read_text()
+    assert "| pair | a | b | lag a - b (yr) |" in md
+    assert ("| X2 | d18O transition midpoint (hvd1_ice.nc) | d18O onset (trv3_lake.nc) |"
+            in md)
+    assert "d18O onset (hvd1_ice.nc) or d18O transition midpoint (hvd1_ice.nc)" in md
+    lines = text.survey(result).splitlines()
+    assert lines[lines.index(next(x for x in lines if x.startswith("X2"))) + 1].split() == [
+        "a:", "d18O", "transition", "midpoint", "(hvd1_ice.nc);", "b:", "d18O", "onset",
+        "(trv3_lake.nc)"]
+
+
+def test_survey_keeps_each_pairs_marker_fit_outlying_first(greenland):
+    """Every sample of each window is kept (values to 4 significant digits) with a thinned
+    fit, and the fits' pages put the largest share of Cochran's Q first; shares computed here
+    from Cochran (1954): w_i (y_i - ybar_w)^2 / Q."""
+    import numpy as np
+    import pandas as pd
+
+    from align import survey
+    from align.figures import FIT_POINTS, fit_pages, pair_fit_figure
+    from test_survey import greenland_spec
+
+    result = survey(greenland_spec(greenland, rows=["Holocene", "GI-1e", "GI-8c", "GI-12c",
+                                                     "GI-14e"], draws=2000), workers=1)
+    table = pd.read_csv(greenland / "NGRIP_10yr.csv", comment="#")
+    age_b2k = table["Age_BP"].to_numpy() + 50.0  # BP = b2k - 50
+    for pair in result.pairs:
+        for marker in (pair.a, pair.b):
+            assert len(marker.trace.curve_age) <= FIT_POINTS
+            values = table[marker.variable].to_numpy()
+            inside = ((age_b2k >= marker.window[0]) & (age_b2k <= marker.window[1])
+                      & np.isfinite(values))
+            assert sorted(marker.trace.value) == pytest.approx(sorted(values[inside]),
+                                                               rel=1e-3)
+    used = [k for k, p in enumerate(result.pairs) if p.clear]
+    y = np.array([result.pairs[k].lag.median for k in used])
+    w = 1 / np.array([result.pairs[k].lag.sd for k in used]) ** 2
+    part = w * (y - (w * y).sum() / w.sum()) ** 2
+    order = [used[i] for i in np.argsort(-part)]
+    pages = fit_pages(result, per_page=2)
+    assert [k for page in pages for k in page][:len(used)] == order
+    assert [len(p) for p in pages] == [2, 2, 1]
+    fig = pair_fit_figure(result, pages[0])
+    assert len(fig.axes) == 4
 
 
 @pytest.mark.parametrize("command, title", [
