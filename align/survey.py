@@ -241,14 +241,11 @@ def survey_provenance(spec, rows, sources, seed):
                 found.setdefault((item["source"], item["sha256"]), (item, set()))[1].add(label)
     inputs = [{**item, "role": f"record {' and '.join(sorted(sides))}"}
               if item["role"] == "record" else item for item, sides in found.values()]
-    if spec.ties:
-        ties = sources.ties(spec.ties)
-        inputs.append({"role": "ties", "source": ties.source, "sha256": ties.checksum,
-                       "timescale": ""})
-    if spec.table:
-        table_path = sources.path(spec.table.path)
-        inputs.append({"role": "event table", "source": str(table_path),
-                       "sha256": sha256_file(table_path), "timescale": ""})
+    for role, name in (("ties", spec.ties), ("event table", spec.table and spec.table.path)):
+        if name:
+            path = sources.path(name)
+            inputs.append({"role": role, "source": str(path), "sha256": sha256_file(path),
+                           "timescale": ""})
     return provenance(inputs=inputs, parameters=spec.model_dump(exclude={"seed"}), seed=seed)
 
 
