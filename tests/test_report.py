@@ -212,6 +212,15 @@ def _files(folder):
     return {p.name: p.read_bytes() for p in folder.iterdir()}
 
 
+def _old_report(like, folder):
+    """A folder holding the files of the report in ``like``, each with other content (so that
+    any file rewritten in place shows)."""
+    folder.mkdir()
+    for name in _files(like):
+        (folder / name).write_text(f"old {name}")
+    return folder
+
+
 @pytest.fixture(scope="module")
 def demo_result(demo_report):
     from align.report import load_result
@@ -224,10 +233,7 @@ def test_a_failed_rewrite_leaves_the_old_report_and_no_temporary_folder(
     """A figure that fails mid-write (the third of five) leaves the old folder as it was."""
     from matplotlib.figure import Figure
 
-    folder = tmp_path / "report"
-    folder.mkdir()
-    for name, data in _files(demo_report).items():
-        (folder / name).write_bytes(data)
+    folder = _old_report(demo_report, tmp_path / "report")
     before = _files(folder)
     saved = []
     real = Figure.savefig
@@ -273,3 +279,43 @@ def test_a_folder_with_other_files_is_not_replaced(demo_result, tmp_path):
     with pytest.raises(InputError, match="not part of a report.*notes.txt"):
         write_report(demo_result, tmp_path, overwrite=True)
     assert [p.name for p in tmp_path.iterdir()] == ["notes.txt"]
+
+
+def test_a_terminated_rewrite_leaves_the_old_report(demo_report, tmp_path):
+    """SIGTERM while ``corealign report --overwrite`` fills its new folder: exit 143, the old
+    report as it was, no temporary folder left."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from conftest import ROOT
+
+    folder = _old_report(demo_report, tmp_path / "report")
+    before = _files(folder)
+    process = subprocess.Popen([sys.executable, "-m", "align", "report",
+                                str(demo_report / "report.json"), "-o", str(folder),
+                                "--overwrite"], cwd=ROOT, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 120
+    while not any(p.suffix == ".part" and any(p.iterdir()) for p in tmp_path.iterdir()):
+        assert process.poll() is None and time.monotonic() < deadline, process.stderr.read()
+        time.sleep(0.005)
+    process.send_signal(signal.SIGTERM)
+    assert process.wait(timeout=60) == 143
+    assert _files(folder) == before
+    assert [p.name for p in tmp_path.iterdir()] == ["report"]
+
+
+def test_survey_headline_puts_a_disagreement_first(demo_survey):
+    """When the pairs disagree significantly, the headline opens with it (as the result's
+    statement does) and still names both series."""
+    from align.report import survey_headline
+
+    disagree = "the pairs disagree more than their uncertainties allow (Q = 9.0 on 1 dof)"
+    het = demo_survey.heterogeneity.model_copy(update={"significant": True})
+    result = demo_survey.model_copy(update={"heterogeneity": het, "systematic": disagree})
+    headline = survey_headline(result)
+    assert headline.startswith(disagree + ". Compared: a, d18O onset (hvd1_ice.nc), against "
+                               "b, d18O onset (trv3_lake.nc), over 2 pairs.")
+    calm = survey_headline(demo_survey)
+    assert calm.startswith("a, d18O onset (hvd1_ice.nc)") and demo_survey.systematic in calm
