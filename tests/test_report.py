@@ -247,8 +247,8 @@ def test_a_failed_rewrite_leaves_the_old_report_and_no_temporary_folder(
     monkeypatch.setattr(Figure, "savefig", failing)
     with pytest.raises(OSError, match="simulated"):
         write_report(demo_result, folder, overwrite=True)
-    assert len(saved) == 5 and all(Path(p).parent != folder for p in saved)
     assert _files(folder) == before
+    assert len(saved) == 5 and all(Path(p).parent != folder for p in saved)
     assert [p.name for p in tmp_path.iterdir()] == ["report"]
 
 
