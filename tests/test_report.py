@@ -319,3 +319,12 @@ def test_survey_headline_puts_a_disagreement_first(demo_survey):
                                "b, d18O onset (trv3_lake.nc), over 2 pairs.")
     calm = survey_headline(demo_survey)
     assert calm.startswith("a, d18O onset (hvd1_ice.nc)") and demo_survey.systematic in calm
+
+
+def test_a_survey_saved_without_markers_still_renders(demo_survey, tmp_path):
+    """A survey result saved before pairs kept their markers: no fits section, no empty page."""
+    pairs = [p.model_copy(update={"a": None, "b": None}) for p in demo_survey.pairs]
+    folder = write_report(demo_survey.model_copy(update={"pairs": pairs}), tmp_path / "old")
+    page = (folder / "report.html").read_text()
+    assert page.count("<svg") == 1 and "Each pair&#x27;s markers" not in page
+    assert not list(folder.glob("pairs-*"))
