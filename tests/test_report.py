@@ -254,7 +254,7 @@ def test_a_failed_rewrite_leaves_the_old_report_and_no_temporary_folder(
 
 @pytest.mark.parametrize("exchange", [True, False], ids=["swap", "rename-aside"])
 def test_an_overwrite_replaces_the_whole_folder(demo_result, tmp_path, monkeypatch, exchange):
-    """No file of the old report survives beside the new one (a survey figure in a lag
+    """No file of the old report survives beside the new one (a survey figure in a marker
     report's folder is a mix of two runs); with or without the atomic swap."""
     if not exchange:
         monkeypatch.setattr("align.folders._exchange", lambda a, b: False)
@@ -262,10 +262,10 @@ def test_an_overwrite_replaces_the_whole_folder(demo_result, tmp_path, monkeypat
     folder.mkdir()
     (folder / "survey.svg").write_text("<svg/>")
     (folder / "report.md").write_text("an older report")
-    write_report(demo_result, folder, overwrite=True)
+    write_report(demo_result.a, folder, overwrite=True)  # one figure: quick
     names = {p.name for p in folder.iterdir()}
-    assert "survey.svg" not in names and "budget.svg" in names
-    assert (folder / "report.md").read_text().startswith("# Lag report")
+    assert names == {"marker.svg", "marker.png", "report.json", "report.md", "report.html"}
+    assert (folder / "report.md").read_text().startswith("# Marker report")
     assert [p.name for p in tmp_path.iterdir()] == ["report"]
     umask = os.umask(0)
     os.umask(umask)
@@ -328,3 +328,21 @@ def test_a_survey_saved_without_markers_still_renders(demo_survey, tmp_path):
     page = (folder / "report.html").read_text()
     assert page.count("<svg") == 1 and "Each pair&#x27;s markers" not in page
     assert not list(folder.glob("pairs-*"))
+
+
+def test_two_folders_swap_in_one_step(tmp_path):
+    """The swap that puts a new report folder in place (renameat2 with RENAME_EXCHANGE, Linux):
+    each path then holds the other's files."""
+    import sys
+
+    from align.folders import _exchange
+
+    old, new = tmp_path / "old", tmp_path / "new"
+    for folder in (old, new):
+        folder.mkdir()
+        (folder / folder.name).write_text(folder.name)
+    swapped = _exchange(new, old)
+    assert swapped or sys.platform != "linux"
+    if swapped:
+        assert [p.name for p in old.iterdir()] == ["new"]
+        assert [p.name for p in new.iterdir()] == ["old"]
