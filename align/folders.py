@@ -54,11 +54,23 @@ def new_folder(target):
         os.umask(umask)
         tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; a report folder is not
         yield tmp
+        _sync(tmp)
         with _HeldSignals() as held:
             _swap_in(tmp, target)
         held.deliver()
     finally:
         shutil.rmtree(tmp, ignore_errors=True)  # the new folder on failure, else the old one
+
+
+def _sync(folder):
+    """Flush the folder's files and the folder itself to disk (as :func:`align.io.atomic_write`
+    does for one file), so that what is swapped in is whole even after a power cut."""
+    for path in [*folder.iterdir(), folder]:
+        fd = os.open(path, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
 
 
 def _swap_in(tmp, target):
