@@ -231,6 +231,109 @@ def _draw_survey(result, ax):
     ax.set_title("Survey: each pair's lag (95 %) and the combination", loc="left")
 
 
+
+
+#: Pairs drawn on one page of a survey's marker fits.
+PAIRS_PER_PAGE = 6
+
+
+def q_shares(result):
+    """Each combined pair's share of Cochran's Q, by its index in ``result.pairs`` (pairs not
+    combined have none); see :func:`align.heterogeneity.q_shares`."""
+    from align.heterogeneity import q_shares as shares
+
+    used = [k for k, p in enumerate(result.pairs) if p.lag is not None and p.clear]
+    if len(used) < 2:
+        return {}
+    lags = [result.pairs[k].lag for k in used]
+    return dict(zip(used, shares([g.median for g in lags], [g.sd ** 2 for g in lags])))
+
+
+def fit_pages(result, per_page=PAIRS_PER_PAGE):
+    """The pairs with markers, outlying first (largest share of Q first, then pairs not
+    combined), as pages of at most ``per_page`` indices into ``result.pairs``."""
+    shares = q_shares(result)
+    drawn = [k for k, p in enumerate(result.pairs) if p.a is not None and p.b is not None]
+    drawn.sort(key=lambda k: -shares.get(k, -1.0))
+    return [drawn[i:i + per_page] for i in range(0, len(drawn), per_page)]
+
+
+def pair_fit_figure(result, indices):
+    """Small multiples: for each pair (a row), how its markers a (left) and b (right) were
+    picked in their windows, titled with the pair's lag and its share of Q."""
+    shares = q_shares(result)
+    largest = ({s.label for s in result.heterogeneity.largest}
+               if result.heterogeneity is not None and result.heterogeneity.significant
+               else set())
+    with styled((8.5, 1.45 * len(indices) + 0.9), nrows=len(indices), ncols=2,
+                squeeze=False) as (fig, axes):
+        for row, k in zip(axes, indices):
+            pair = result.pairs[k]
+            share = f"; {shares[k]:.0%} of Q" if k in shares else "; not combined"
+            lag = (f"lag {pair.lag.median:.1f} yr (95 %: {pair.lag.ci95[0]:.1f} to "
+                   f"{pair.lag.ci95[1]:.1f})" if pair.lag is not None else "no lag")
+            unclear = [side for side in ("a", "b")
+                       if not getattr(getattr(pair, side), "clear_transition", True)]
+            for ax, side in zip(row, ("a", "b")):
+                _draw_fit(ax, getattr(pair, side), side)
+            row[0].set_title(f"{pair.label}: {lag}{share}"
+                             + "".join(f"; {side} NOT clear" for side in unclear),
+                             loc="left", fontsize=8,
+                             color=COLOURS["b"] if pair.label in largest else COLOURS["ink"])
+        for ax in axes[-1]:
+            ax.set_xlabel(f"age (yr {result.age_reference})", fontsize=7)
+    return fig
+
+
+def _draw_fit(ax, marker, side):
+    """One marker's fit in a small panel (samples as steps; the kind draws its fit)."""
+    from align.markers import kind_of
+
+    colour = COLOURS[side]
+    trace = marker.trace
+    _steps(ax, trace.age_top, trace.age_bottom, trace.value, colour)
+    kind_of(marker.kind).draw(ax, marker, colour)
+    label = (with_units(marker.variable, marker.units, marker.reference_scale)
+             if trace.age_top else marker.kind)
+    ax.set_ylabel(f"{side}: {label}", fontsize=7, color=colour)
+    ax.tick_params(labelsize=6)
+    if not ax.xaxis_inverted():
+        ax.invert_xaxis()
+
+
+def pair_fit_figures(result):
+    """The survey's marker fits, page by page: ``{"pairs-1": Figure, ...}``."""
+    return {f"pairs-{n}": pair_fit_figure(result, page)
+            for n, page in enumerate(fit_pages(result), start=1)}
+
+
+#: Points a marker's fitted curves keep in a survey (its samples are all kept).
+FIT_POINTS = 40
+
+
+def compact_marker(marker, points=FIT_POINTS):
+    """A copy of ``marker`` small enough to keep for every pair of a survey: its fitted curves
+    thinned to at most ``points`` points, ages rounded to 0.1 yr and values to 4 significant
+    digits (enough to draw its fit in a small panel; its estimates are kept as they are)."""
+    trace = marker.trace
+    n = len(trace.curve_age)
+    keep = np.unique(np.linspace(0, n - 1, min(n, points)).round().astype(int)) if n else []
+
+    def ages(values, pick=None):
+        return [round(values[i], 1) for i in (range(len(values)) if pick is None else pick)]
+
+    def values(data, pick=None):
+        chosen = data if pick is None or not data else [data[i] for i in pick]
+        return [None if v is None else float(f"{v:.4g}") for v in chosen]
+
+    thin = trace.model_copy(update={
+        "age_top": ages(trace.age_top), "age_bottom": ages(trace.age_bottom),
+        "value": values(trace.value), "curve_age": ages(trace.curve_age, keep),
+        **{name: values(getattr(trace, name), keep)
+           for name in ("curve", "band_low", "band_high", "threshold")}})
+    return marker.model_copy(update={"trace": thin})
+
+
 def xcorr_figure(result, ax=None):
     """Correlation against lag with the surrogates' pointwise 95 % band, the peak lag and its
     95 % interval."""

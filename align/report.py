@@ -12,15 +12,19 @@ from __future__ import annotations
 
 import html
 import json
+import re
 from pathlib import Path
 
 from align.choices import ReportFormat, options
 from align.errors import InputError
-from align.figures import (AGE_NOTE, STYLE, lag_figures, marker_figure, survey_figure,
-                           synchrony_figure, xcorr_figure)
-from align.io import atomic_write, read_json
+from align.figures import (AGE_NOTE, STYLE, fit_pages, lag_figures, marker_figure,
+                           pair_fit_figures, q_shares, survey_figure, synchrony_figure,
+                           xcorr_figure)
+from align.folders import new_folder
+from align.io import read_json
 from align.lag import what_if_for
 from align.references import cite
+from align.text import pair_sides, survey_subject
 from align.schema import (LagResult, MarkerBase, SurveyResult, SynchronyResult, XcorrResult,
                           validate_as)
 
@@ -40,11 +44,24 @@ CAPTIONS = {
              "surrogates' central 95 % at each lag; purple: the peak lag with its 95 % "
              "interval.",
     "marker": "How the marker was picked.",
+    "pairs": "Each pair's markers as picked in their windows (a left, b right; samples as "
+             "steps, the fit with its 95 % band in grey, the marker's 95 % interval shaded); "
+             "pairs with the largest share of Cochran's Q first (orange title: named in the "
+             "headline), then pairs not combined.",
     "synchrony": "Each site's age: thin line 95 %, thick line 68 %, dot median (orange: "
                  "outlier probability above 0.5; grey squares: not independent, not "
                  "counted); the purple band is the combined age's 95 % interval, hatched "
                  "when a combined age is not supported; right: outlier probability.",
 }
+
+#: The files a report folder holds: ``report.*`` and each figure as SVG and PNG.
+_REPORT_FILE = re.compile(r"report\.(json|md|html)|({}|pairs-\d+)\.(svg|png)".format(
+    "|".join(CAPTIONS)))
+
+
+def _caption(name):
+    """A figure's caption (the pages of a survey's pair fits share one)."""
+    return CAPTIONS.get(name) or CAPTIONS[name.split("-")[0]]
 
 
 def result_model(data):
@@ -77,13 +94,13 @@ def load_result(path):
 
 
 def write_report(result, directory, formats=FORMATS, *, overwrite=False):
-    """Write a report folder for a lag, survey or synchrony result.
+    """Write a report folder for a lag, survey, synchrony, cross-correlation or marker result.
 
     Parameters
     ----------
-    result : LagResult, SurveyResult or SynchronyResult
+    result : LagResult, SurveyResult, SynchronyResult, XcorrResult or a marker result
     directory : str or os.PathLike
-        Created if missing; files in it are replaced atomically.
+        The report folder: created, or replaced as a whole (see Notes).
     formats : sequence of {"html", "md", "json"}
     overwrite : bool
         Replace a report already in ``directory`` (refused otherwise, so a report is never
@@ -93,38 +110,61 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
     -------
     pathlib.Path
         The folder, holding ``report.*`` and each figure as ``<name>.svg`` and ``<name>.png``.
+
+    Notes
+    -----
+    The files are written into a new folder beside ``directory`` that then takes its place
+    (:func:`align.folders.new_folder`): a failure or a kill at any point leaves the old report
+    or the new one, never a mix. A folder holding files a report does not write is refused
+    rather than replaced.
     """
     unknown = set(formats) - set(FORMATS)
     if unknown:
         raise InputError(f"unknown report format {sorted(unknown)[0]!r}", field="formats")
-    import matplotlib
-
     folder = Path(directory)
+    _check_target(folder, overwrite)
+    figures, blocks = _contents(result)
+    with new_folder(folder) as tmp:
+        _write_files(tmp, result, figures, blocks, formats)
+    return folder
+
+
+def _check_target(folder, overwrite):
+    """Refuse a file, a folder holding a report (unless ``overwrite``) and a folder holding
+    anything a report does not write (replacing the folder would delete it)."""
     if folder.exists() and not folder.is_dir():
         raise InputError("the report folder is an existing file", source=str(folder),
                          field="output")
-    if not overwrite and any((folder / f"report.{f}").exists() for f in FORMATS):
+    if not folder.is_dir():
+        return
+    names = {p.name for p in folder.iterdir()}
+    foreign = sorted(n for n in names if not _REPORT_FILE.fullmatch(n))
+    if foreign:
+        raise InputError(f"this folder holds files that are not part of a report "
+                         f"({foreign[0]!r}); choose a new or empty folder", source=str(folder),
+                         field="output")
+    if names and not overwrite:
         raise InputError("this folder already holds a report; choose another or overwrite "
                          "it", source=str(folder), field="output")
-    folder.mkdir(parents=True, exist_ok=True)
-    figures, blocks = _contents(result)
+
+
+def _write_files(folder, result, figures, blocks, formats):
+    """Every file of a report into ``folder`` (a new, empty folder)."""
+    import matplotlib
+
     svgs = {}
     for name, fig in figures.items():
         with matplotlib.rc_context(STYLE):  # fixed SVG ids: a redrawn report is byte-identical
-            atomic_write(folder / f"{name}.svg", lambda tmp, f=fig: f.savefig(
-                tmp, format="svg", metadata={"Date": None}))
-        atomic_write(folder / f"{name}.png", lambda tmp, f=fig: f.savefig(
-            tmp, format="png", dpi=150))
+            fig.savefig(folder / f"{name}.svg", format="svg", metadata={"Date": None})
+        fig.savefig(folder / f"{name}.png", format="png", dpi=150)
         svgs[name] = (folder / f"{name}.svg").read_text()
     if "json" in formats:
-        atomic_write(folder / "report.json", lambda tmp: Path(tmp).write_text(
-            json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n"))
+        (folder / "report.json").write_text(
+            json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n")
     if "md" in formats:
-        atomic_write(folder / "report.md", lambda tmp: Path(tmp).write_text(markdown(blocks)))
+        (folder / "report.md").write_text(markdown(blocks))
     if "html" in formats:
-        atomic_write(folder / "report.html",
-                     lambda tmp: Path(tmp).write_text(page(blocks, svgs)))
-    return folder
+        (folder / "report.html").write_text(page(blocks, svgs))
 
 
 def _contents(result):
@@ -132,7 +172,8 @@ def _contents(result):
     if isinstance(result, LagResult):
         return lag_figures(result), lag_blocks(result)
     if isinstance(result, SurveyResult):
-        return {"survey": survey_figure(result)}, survey_blocks(result)
+        return ({"survey": survey_figure(result), **pair_fit_figures(result)},
+                survey_blocks(result))
     if isinstance(result, SynchronyResult):
         return {"synchrony": synchrony_figure(result)}, synchrony_blocks(result)
     if isinstance(result, XcorrResult):
@@ -238,13 +279,20 @@ def lag_blocks(result):
 
 def survey_blocks(result):
     """The blocks of a survey report."""
+    sides = pair_sides(result)
+    differ = len(set(sides)) > 1
+    shares = q_shares(result)
     rows = []
-    for p in result.pairs:
+    for k, (p, (a, b)) in enumerate(zip(result.pairs, sides)):
+        named = [p.label] + ([a, b] if differ else [])
         if p.lag is None:
-            rows.append([p.label, "-", "-", p.error or ""])
+            rows.append(named + ["-", "-", p.error or "", "-"])
         else:
-            rows.append([p.label, _fmt(p.lag.median), _interval(p.lag.ci95),
-                         "combined" if p.clear else "not combined (unclear marker)"])
+            rows.append(named + [_fmt(p.lag.median), _interval(p.lag.ci95),
+                                 "combined" if p.clear else "not combined (unclear marker)",
+                                 f"{shares[k]:.0%}" if k in shares else "-"])
+    header = ["pair"] + (["a", "b"] if differ else []) + [
+        "lag a - b (yr)", "95 % interval (yr)", "use", "share of Q"]
     combined = result.combined
     table = [] if combined is None else [
         ("table", ["quantity", "value"], [
@@ -263,13 +311,25 @@ def survey_blocks(result):
                 [] if result.prediction95 is None else [
                     ["new pair, 95 % prediction interval",
                      f"{_fmt(result.prediction95[0])} to {_fmt(result.prediction95[1])} yr"]]))]
-    return [("h1", "Survey report"), ("p", result.systematic + ". " + result.assumptions[-1]),
+    pages = [("figure", f"pairs-{n}") for n in range(1, len(fit_pages(result)) + 1)]
+    return [("h1", "Survey report"), ("p", survey_headline(result)),
             ("h2", "Combined"), *table, ("figure", "survey"),
-            ("h2", "Pairs"), ("table", ["pair", "lag (yr)", "95 % interval (yr)", "use"], rows),
+            ("h2", "Pairs"), ("table", header, rows),
+            *([("h2", "Each pair's markers"), *pages] if pages else []),
             ("h2", "Assumptions"), ("list", result.assumptions),
             ("h2", "References"),
             ("list", [cite(k) for k in result.references]),
             *_provenance_blocks(result.provenance)]
+
+
+def survey_headline(result):
+    """The survey's opening paragraph: what it compares and its verdict (the pairs'
+    disagreement first when it is significant), then the caution."""
+    subject = survey_subject(result)
+    significant = result.heterogeneity is not None and result.heterogeneity.significant
+    text = (f"{result.systematic}. Compared: {subject}." if significant
+            else f"{subject}: {result.systematic}.")
+    return f"{text} {result.assumptions[-1]}"
 
 
 def synchrony_blocks(result):
@@ -397,7 +457,7 @@ def markdown(blocks):
         elif kind == "pre":
             out.append(f"```json\n{block[1]}\n```")
         elif kind == "figure":
-            out.append(f"![{CAPTIONS[block[1]]}]({block[1]}.png)\n\n*{CAPTIONS[block[1]]}*")
+            out.append(f"![{_caption(block[1])}]({block[1]}.png)\n\n*{_caption(block[1])}*")
         elif kind == "table":
             header, rows = block[1], block[2]
             lines = ["| " + " | ".join(header) + " |", "|" + " --- |" * len(header)]
@@ -441,7 +501,7 @@ def page(blocks, svgs):
         elif kind == "figure":
             svg = _inline_svg(svgs[block[1]])
             body.append(f'<figure id="figure-{block[1]}">{svg}<figcaption>'
-                        f"{html.escape(CAPTIONS[block[1]])}</figcaption></figure>")
+                        f"{html.escape(_caption(block[1]))}</figcaption></figure>")
         elif kind == "table":
             head = "".join(f"<th>{html.escape(h)}</th>" for h in block[1])
             rows = "".join("<tr>" + "".join(f"<td>{html.escape(str(c))}</td>" for c in row)

@@ -316,6 +316,10 @@ class SurveyPair(Model):
     verdict: str | None = None
     clear: bool = False
     error: str | None = None
+    a: Marker | None = Field(None, description="marker a as found for this pair, its curves "
+                                               "thinned for figures")
+    b: Marker | None = Field(None, description="marker b as found for this pair, its curves "
+                                               "thinned for figures")
 
 
 class QShare(Model):

@@ -42,6 +42,7 @@ from align.synchrony import chi2_statistic, dl_tau2, q_profile
 
 from align.ages import convert_age
 from align.errors import InputError
+from align.figures import compact_marker
 from align.lag import CAUTION, Sources, estimate_lag, lag_summary
 from align.provenance import dataset_checksum, provenance, resolve_seed, sha256_file
 from align.schema import (Heterogeneity, PairSpec, QShare, SurveyPair, SurveyResult,
@@ -147,7 +148,8 @@ def _one_pair(pair, spec, sources, seed):
         return SurveyPair(label=pair.label, error=str(exc)), None
     clear = all(getattr(m, "clear_transition", True) for m in (result.a, result.b))
     return SurveyPair(label=pair.label, lag=result.lag, a_age=result.a.age, b_age=result.b.age,
-                      verdict=result.verdict, clear=clear), pair_draws(result)
+                      verdict=result.verdict, clear=clear, a=compact_marker(result.a),
+                      b=compact_marker(result.b)), pair_draws(result)
 
 
 def pair_draws(result):
@@ -203,11 +205,6 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
     draws = [(row, d) for row, d in outcomes if d is not None and row.clear]
     combined, prediction, heterogeneity, statement = combine(draws,
                                                              np.random.default_rng(seed))
-    inputs = [{"role": "survey", "source": "inline", "sha256": "", "timescale": ""}]
-    if spec.table:
-        table_path = sources.path(spec.table.path)
-        inputs.append({"role": "event table", "source": str(table_path),
-                       "sha256": sha256_file(table_path), "timescale": ""})
     return SurveyResult(
         pairs=rows, combined=combined, prediction95=prediction, heterogeneity=heterogeneity,
         systematic=statement,
@@ -223,8 +220,33 @@ def survey(spec, *, scheduler=None, progress=None, sources=None, age_reference=N
                      "full Monte Carlo lag distribution.", CAUTION],
         references=["dersimonian1986", "cochran1954", "viechtbauer2007", "higgins2009",
                     "mudelsee2000"],
-        provenance=provenance(inputs=inputs, parameters=spec.model_dump(exclude={"seed"}),
-                              seed=seed))
+        provenance=survey_provenance(spec, rows, sources, seed))
+
+
+def survey_provenance(spec, rows, sources, seed):
+    """The survey's provenance: every record its markers were found on (once, with the pairs'
+    sides that use it), the tie table and the event table, each with its SHA-256; the spec's
+    values as parameters."""
+    from align.markers import kind_of
+
+    found = {}
+    for row in rows:
+        for label, marker in (("a", row.a), ("b", row.b)):
+            if marker is None:
+                continue
+            kind = kind_of(marker.kind)
+            items = ([i.model_dump() for i in marker.provenance.inputs] if kind.on_record
+                     else kind.inputs(marker, label))
+            for item in items:
+                found.setdefault((item["source"], item["sha256"]), (item, set()))[1].add(label)
+    inputs = [{**item, "role": f"record {' and '.join(sorted(sides))}"}
+              if item["role"] == "record" else item for item, sides in found.values()]
+    for role, name in (("ties", spec.ties), ("event table", spec.table and spec.table.path)):
+        if name:
+            path = sources.path(name)
+            inputs.append({"role": role, "source": str(path), "sha256": sha256_file(path),
+                           "timescale": ""})
+    return provenance(inputs=inputs, parameters=spec.model_dump(exclude={"seed"}), seed=seed)
 
 
 def _run(pairs, spec, sources, seeds, scheduler, progress, workers):

@@ -98,15 +98,20 @@ def xcorr(result):
 
 
 def survey(result):
-    """A survey: one line per pair, then the combination."""
-    lines = []
-    for pair in result.pairs:
+    """A survey: what it compares, one line per pair (with its markers when they differ
+    between pairs), then the combination."""
+    sides = pair_sides(result)
+    differ = len(set(sides)) > 1
+    lines = [survey_subject(result)]
+    for pair, (a, b) in zip(result.pairs, sides):
         if pair.lag is None:
             lines.append(f"{pair.label:<12} no lag: {pair.error}")
         else:
             flag = "" if pair.clear else "  (unclear marker: not combined)"
             lines.append(f"{pair.label:<12} {pair.lag.median:8.1f} yr (95 %: "
                          f"{pair.lag.ci95[0]:.1f} to {pair.lag.ci95[1]:.1f}){flag}")
+        if differ:
+            lines.append(f"{'':<12} a: {a}; b: {b}")
     lines.append(f"{result.systematic} ({result.n_used} pairs combined)")
     if result.heterogeneity:
         h = result.heterogeneity
@@ -153,3 +158,47 @@ def synchrony(result):
     lines.append("cautions:")
     lines += [f"  - {c}" for c in result.cautions]
     return "\n".join(lines)
+
+
+def marker_words(spec):
+    """A marker spec (a dict, as a survey's provenance keeps it) in a few words:
+    ``Ca onset (NGRIP_10yr.csv)``, ``log(Na) transition midpoint (x.nc)``, ``event ...``."""
+    from pathlib import PurePath
+
+    kind = spec.get("kind", "marker")
+    if kind == "sites":
+        return f"combined age of {len(spec.get('sites') or [])} dated sites"
+    variable = str(spec.get("variable", "?"))
+    if spec.get("transform"):
+        variable = f"{spec['transform']}({variable})"
+    position = spec.get("position") or "onset"
+    what = (kind if kind != "onset" else "onset" if position == "onset"
+            else f"transition {position}")
+    record = PurePath(str(spec.get("record", "?"))).name
+    return f"{variable} {what} ({record})"
+
+
+def pair_sides(result):
+    """Each pair's markers in words, ``[(a, b), ...]`` in the order of ``result.pairs``, from
+    the survey's parameters (the pairs, or the event table's templates)."""
+    params = result.provenance.parameters
+    pairs = params.get("pairs")
+    if pairs:
+        return [(marker_words(p["a"]), marker_words(p["b"])) for p in pairs]
+    return [(marker_words(params.get("a") or {}), marker_words(params.get("b") or {}))
+            ] * len(result.pairs)
+
+
+def survey_subject(result):
+    """What a survey compares, for its headline: ``a, A, against b, B, over N pairs``; when
+    the pairs' markers differ, the distinct ones (or how many there are)."""
+    sides = pair_sides(result)
+
+    def one(words):
+        distinct = list(dict.fromkeys(words))
+        if len(distinct) <= 2:
+            return " or ".join(distinct)
+        return f"{len(distinct)} different markers (see the pairs)"
+
+    a, b = (one([s[k] for s in sides]) for k in (0, 1))
+    return f"a, {a}, against b, {b}, over {len(sides)} pairs"

@@ -1,13 +1,17 @@
-"""The HTML report in a real browser: every figure renders, no console errors, summary shown.
+"""The HTML reports in a real browser: every figure renders, no console errors, summary shown,
+no figure text cut at a figure's edge, every budget label whole, the survey's headline naming
+both series.
 
 Needs Debian's chromium and chromium-driver (.ci/run installs them when missing).
 """
 
+import json
 import shutil
+from pathlib import Path
 
 import pytest
 
-from conftest import run_cli
+from conftest import RECORDS, run_cli
 
 pytestmark = pytest.mark.browser
 
@@ -31,13 +35,63 @@ def chrome():
     return webdriver.Chrome(service=Service(driver), options=options)
 
 
-def test_report_renders_in_chromium(tmp_path):
-    folder = tmp_path / "report"
-    done = run_cli("demo", "-o", folder)
+#: Every text of a figure (matplotlib writes each as a group ``text_N`` holding, per line, a
+#: comment with the line's text and its glyphs as paths) with its rendered box relative to the
+#: figure's box (positive margins: inside).
+TEXTS = """
+const out = [];
+for (const figure of document.querySelectorAll('figure')) {
+  const svg = figure.querySelector('svg');
+  const box = svg.getBoundingClientRect();
+  for (const g of svg.querySelectorAll('g[id^="text_"]')) {
+    const lines = [...g.childNodes].filter(n => n.nodeType === Node.COMMENT_NODE)
+      .map(n => n.textContent.trim());
+    if (!lines.length) continue;
+    const r = g.getBoundingClientRect();
+    out.push([figure.id, lines.join(' '), r.left - box.left, box.right - r.right,
+              r.top - box.top, box.bottom - r.bottom]);
+  }
+}
+return out;
+"""
+
+
+def texts_inside(browser):
+    """The figures' texts (figure id, text); fails for any text not wholly inside its figure."""
+    found = browser.execute_script(TEXTS)
+    assert found
+    cut = [(fig, text) for fig, text, *margins in found if min(margins) < -0.5]
+    assert cut == [], cut
+    return [(fig, text) for fig, text, *_ in found]
+
+
+
+
+def quick_demo_survey(folder):
+    """The demo survey with fewer draws (quicker; the report reads the same), as a file."""
+    spec = json.loads((RECORDS / "demo_survey.json").read_text())
+    for where in (spec["table"], spec["a"], spec["b"]):
+        key = "path" if "path" in where else "record"
+        where[key] = str(RECORDS / where[key])
+    spec["a"]["draws"] = spec["b"]["draws"] = 400
+    spec.update(ties=str(RECORDS / spec["ties"]), draws=4000)
+    path = folder / "survey.json"
+    path.write_text(json.dumps(spec))
+    return path
+
+
+def test_reports_render_in_chromium(tmp_path):
+    lag = tmp_path / "report"
+    done = run_cli("demo", "-o", lag)
     assert done.returncode == 0, done.stderr
+    survey = tmp_path / "survey"
+    done = run_cli("survey", quick_demo_survey(tmp_path), "-o", survey)
+    assert done.returncode == 0, done.stderr
+    result = json.loads((lag / "report.json").read_text())
+    spec = json.loads((survey / "report.json").read_text())["provenance"]["parameters"]
     browser = chrome()
     try:
-        browser.get((folder / "report.html").resolve().as_uri())
+        browser.get((lag / "report.html").resolve().as_uri())
         figures = browser.find_elements("css selector", "figure svg")
         assert len(figures) == 5
         for svg in figures:
@@ -45,9 +99,22 @@ def test_report_renders_in_chromium(tmp_path):
             assert size["width"] > 100 and size["height"] > 100, size
         summary = browser.find_element("id", "summary").text
         assert "precedes" in summary or "indistinguishable" in summary
-        errors = [entry for entry in browser.get_log("browser") if entry["level"] == "SEVERE"]
-        assert errors == []
+        budget = [text for fig, text in texts_inside(browser) if fig == "figure-budget"]
+        labels = ([b["component"] for b in result["budget"]] + ["as it is"]
+                  + [w["change"] for w in result["what_if"]])
+        assert [label for label in labels if label not in budget] == []
         browser.save_screenshot(str(tmp_path / "report.png"))
         assert (tmp_path / "report.png").stat().st_size > 10_000
+
+        browser.get((survey / "report.html").resolve().as_uri())
+        assert len(browser.find_elements("css selector", "figure svg")) == 2
+        texts_inside(browser)
+        headline = browser.find_element("id", "summary").text
+        for side in ("a", "b"):
+            marker = spec[side]
+            named = f"{marker['variable']} {marker['kind']} ({Path(marker['record']).name})"
+            assert f"{side}, {named}," in headline
+        errors = [entry for entry in browser.get_log("browser") if entry["level"] == "SEVERE"]
+        assert errors == []
     finally:
         browser.quit()
