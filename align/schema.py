@@ -11,7 +11,7 @@ Conventions: ages are in years in the named ``age_reference``; intervals are
 
 from __future__ import annotations
 
-from typing import Any, Literal
+from typing import Any, ClassVar, Literal
 
 from pydantic import ConfigDict, Field, PrivateAttr, create_model
 
@@ -316,6 +316,8 @@ class SurveyPair(Model):
     verdict: str | None = None
     clear: bool = False
     error: str | None = None
+    table_exclude: ClassVar[frozenset[str]] = frozenset({"a", "b"})  # markers: tables of their own
+
     a: Marker | None = Field(None, description="marker a as found for this pair, its curves "
                                                "thinned for figures")
     b: Marker | None = Field(None, description="marker b as found for this pair, its curves "

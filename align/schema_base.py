@@ -9,7 +9,7 @@ name here.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Annotated, Any
+from typing import Annotated, Any, ClassVar
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, PrivateAttr
@@ -24,6 +24,8 @@ class Model(BaseModel):
     """Base of every schema class: strict about unknown fields, JSON-ready."""
 
     model_config = ConfigDict(extra="forbid")
+    #: Fields left out of a table row by :meth:`to_dataframe` (whole results of their own).
+    table_exclude: ClassVar[frozenset[str]] = frozenset()
 
     def to_dict(self):
         """The JSON-ready dictionary (the shape of ``--json`` and of the API)."""
@@ -49,7 +51,8 @@ class Model(BaseModel):
 
             raise InputError(f"no table {name!r} in this result (tables: "
                              f"{', '.join(tables) or 'none'})", field="table")
-        return pd.json_normalize([row.to_dict() for row in getattr(self, name)])
+        return pd.json_normalize([row.model_dump(mode="json", exclude=row.table_exclude)
+                                  for row in getattr(self, name)])
 
 
 class InputRef(Model):

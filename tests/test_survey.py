@@ -37,6 +37,12 @@ def test_survey_of_greenland_transitions(greenland):
     bound = 1.0 / np.sqrt(sum(1.0 / p.lag.sd**2 for p in used))
     assert combined.sd >= 0.95 * bound
     assert 0 <= result.heterogeneity.p_value <= 1 and result.heterogeneity.dof == len(used) - 1
+    # the pair table is one row per pair with the lag's columns; the kept markers are tables
+    # of their own, not hundreds of flattened columns
+    table = result.to_dataframe("pairs")
+    assert list(table["label"]) == [p.label for p in result.pairs]
+    assert {"lag.median", "a_age.median", "clear"} <= set(table.columns)
+    assert not [c for c in table.columns if c.split(".")[0] in ("a", "b")]
 
 
 def test_survey_on_a_local_cluster_equals_serial(greenland):
