@@ -37,9 +37,9 @@ def new_folder(target):
     folder; then the old one is deleted. Where the swap is not supported (another kernel or
     file system), the old folder is renamed aside and the new one renamed in: a kill between
     those two renames leaves both complete folders under their temporary names. SIGINT and
-    SIGTERM are held during the swap and delivered after it (:class:`align.io._HeldSignals`).
+    SIGTERM are held during the swap and delivered after it (:class:`align.io.HeldSignals`).
     """
-    from align.io import _HeldSignals
+    from align.io import HeldSignals
 
     target = Path(target).absolute()
     try:
@@ -55,7 +55,7 @@ def new_folder(target):
         tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; a report folder is not
         yield tmp
         _sync(tmp)
-        with _HeldSignals() as held:
+        with HeldSignals() as held:
             _swap_in(tmp, target)
         held.deliver()
     finally:

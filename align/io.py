@@ -388,7 +388,7 @@ def atomic_write(path, write):
         raise InputError("the output folder does not exist", source=str(folder), status=404)
     if path.is_dir():
         raise InputError("is a folder; name a file to write", source=str(path))
-    with _HeldSignals() as held:
+    with HeldSignals() as held:
         try:
             fd, tmp = tempfile.mkstemp(prefix=f".{path.name[:200]}.", suffix=".part",
                                        dir=folder)
@@ -410,7 +410,7 @@ def atomic_write(path, write):
     return path
 
 
-class _HeldSignals:
+class HeldSignals:
     """SIGINT and SIGTERM held (main thread only) and delivered after the block."""
 
     SIGNALS = ("SIGINT", "SIGTERM")
