@@ -113,3 +113,10 @@ def check_choice(value, choice, field):
         raise InputError(f"{field} must be one of {', '.join(map(str, allowed))} "
                          f"(got {value!r})", field=field)
     return value
+
+
+#: False-positive rate of the "clear transition" decision of an onset marker under red noise
+#: without a transition (the p-value of the fitted step against AR(1) surrogates with the
+#: record's own sd and persistence, :func:`align.detect.transition_p`); a choice (common
+#: practice: 5 %).
+CLEAR_TRANSITION_RATE = 0.05

@@ -13,8 +13,9 @@ from typing import Literal
 import numpy as np
 from pydantic import Field
 
-from align.choices import (DEFAULT_ONSET_DIRECTION, DEFAULT_ONSET_DRAWS, DEFAULT_ONSET_METHOD,
-                           DEFAULT_ONSET_POSITION, MAX_ONSET_DRAWS, MIN_ONSET_DRAWS,
+from align.choices import (CLEAR_TRANSITION_RATE, DEFAULT_ONSET_DIRECTION,
+                           DEFAULT_ONSET_DRAWS, DEFAULT_ONSET_METHOD, DEFAULT_ONSET_POSITION,
+                           MAX_ONSET_DRAWS, MIN_ONSET_DRAWS,
                            EventDirection, OnsetDirection, OnsetMethod, OnsetPosition,
                            check_choice)
 from align.errors import InputError
@@ -72,6 +73,12 @@ class OnsetResult(MarkerBase):
     noise: NoiseModel
     direction: EventDirection
     clear_transition: bool
+    clear_transition_p: float | None = Field(None, description="p-value of the fitted step "
+                                             "against AR(1) noise with the record's sd and "
+                                             "persistence and no transition")
+    clear_transition_rate: float = Field(CLEAR_TRANSITION_RATE, description="the false-"
+                                         "positive rate (under red noise) at which a step is "
+                                         "called a clear transition")
     reason: str | None = None
     draws_used: int
     position: OnsetPosition = DEFAULT_ONSET_POSITION
@@ -134,7 +141,8 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     doi:10.5194/cp-15-811-2019 (keys ``mudelsee2000`` and ``erhardt2019`` of
     :mod:`align.references`).
     """
-    from align.detect import estimate, onset_bootstrap, prepare_window, variable_units
+    from align.detect import (estimate, onset_bootstrap, prepare_window, transition_p,
+                              variable_units)
     from align.provenance import provenance, record_input, resolve_seed
     from align.record import age_reference as reference_of
     from align.record import record_name
@@ -175,7 +183,8 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     end_t = np.maximum(samples[:, 1] + rng.uniform(-0.5, 0.5, len(samples)) * h_end, onset_t)
     onset_age, end_age = -onset_t, -end_t
     amplitude = samples[:, 3] - samples[:, 2]
-    clear, reason = _clarity(fit, noise)
+    p_value = transition_p(t, x, w, sign)
+    clear, reason = _clarity(fit, p_value)
     point = {"onset": fit.t1, "end": fit.t2, "midpoint": 0.5 * (fit.t1 + fit.t2)}[position]
     depth = record["depth"].values if "depth" in record.coords else None
     result = OnsetResult(
@@ -190,7 +199,8 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         end=estimate(end_age), duration=estimate(onset_age - end_age),
         levels=Levels(before=estimate(samples[:, 2]), after=estimate(samples[:, 3])),
         amplitude=estimate(amplitude), noise=noise,
-        direction="up" if fit.x2 > fit.x1 else "down", clear_transition=clear, reason=reason,
+        direction="up" if fit.x2 > fit.x1 else "down", clear_transition=clear,
+        clear_transition_p=p_value, reason=reason,
         draws_used=int(len(samples)), position=position,
         trace=_onset_trace(bounds[keep], values[keep], window, fit, samples),
         provenance=provenance(inputs=[record_input(record, "record")], parameters={
@@ -202,11 +212,11 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     return result.with_draws(MarkerDraws(age=age_draws, fit=fit_draws))
 
 
-def _clarity(fit, noise):
-    step = abs(fit.x2 - fit.x1)
-    if step <= 2.0 * noise.sd:
-        return False, (f"no clear transition: the step ({step:.3g}) is not larger than twice "
-                       f"the noise sd ({noise.sd:.3g})")
+def _clarity(fit, p_value):
+    if p_value > CLEAR_TRANSITION_RATE:
+        return False, (f"no clear transition: a step this large arises in red noise without a "
+                       f"transition with p = {p_value:.2g} (more than "
+                       f"{CLEAR_TRANSITION_RATE:g})")
     if fit.edge:
         return False, ("no clear transition: a corner of the fitted ramp sits at the window "
                        "edge; widen the window to include both plateaus")
