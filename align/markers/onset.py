@@ -176,11 +176,8 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         from align.bayes import posterior_ramps
 
         samples, fit, noise = posterior_ramps(t, x, w, sign, draws, rng)
-    # resolution: a corner is placed no more finely than the sample interval where it sits
-    h_onset = np.interp(samples[:, 0], t, width)
-    h_end = np.interp(samples[:, 1], t, width)
-    onset_t = samples[:, 0] + rng.uniform(-0.5, 0.5, len(samples)) * h_onset
-    end_t = np.maximum(samples[:, 1] + rng.uniform(-0.5, 0.5, len(samples)) * h_end, onset_t)
+    onset_t, end_t = within_samples(samples[:, 0], samples[:, 1], -bounds[order, 1],
+                                    -bounds[order, 0], rng)
     onset_age, end_age = -onset_t, -end_t
     amplitude = samples[:, 3] - samples[:, 2]
     p_value = transition_p(t, x, w, sign)
@@ -210,6 +207,38 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
             "midpoint": (0.5 * (onset_age + end_age), -0.5 * (samples[:, 0] + samples[:, 1]))}
     age_draws, fit_draws = ages[position]
     return result.with_draws(MarkerDraws(age=age_draws, fit=fit_draws))
+
+
+def within_samples(t1, t2, lo, hi, rng):
+    """Onset and end draws placed inside the sample intervals that can hold them.
+
+    Parameters
+    ----------
+    t1, t2 : numpy.ndarray (B,)
+        Fitted corners (forward time).
+    lo, hi : numpy.ndarray (n,)
+        Forward-time bounds of the samples (older, younger), in forward order.
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    onset, end : numpy.ndarray (B,)
+        Each corner drawn uniformly over the whole sample interval that holds it, aligned to
+        the sample's bounds (a sample is a mean over its interval: the fit cannot tell where
+        inside it the change began). When at most one sample lies between the two corners'
+        samples, the transition is shorter than the sampling resolves: a step inside one
+        sample makes that sample's mean intermediate and the fitted corners sit at the
+        samples on either side, so the onset is drawn over the corner's sample and the next
+        one, and the end likewise over its own and the one before. The end is kept no older
+        than the onset.
+    """
+    n = lo.size
+    j = np.clip(np.searchsorted(hi, t1, side="right"), 0, n - 1)
+    m = np.maximum(np.clip(np.searchsorted(lo, t2, side="right") - 1, 0, n - 1), j)
+    short = m - j <= 2
+    onset = rng.uniform(lo[j], hi[np.where(short, np.minimum(j + 1, m), j)])
+    end = rng.uniform(lo[np.where(short, np.maximum(m - 1, j), m)], hi[m])
+    return onset, np.maximum(end, onset)
 
 
 def _clarity(fit, p_value):
