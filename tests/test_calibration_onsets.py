@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 from align.lag import estimate_lag
+from align.markers.onset import KIND
 from align.record import build_record
 
 MID = 10_500.0
@@ -160,3 +161,73 @@ def test_a_step_inside_coarse_slices_is_covered():
           f"error {np.sqrt(np.mean(np.square(errors))):.1f} yr")
     assert 0.90 <= coverage <= 0.99
     assert np.median(resolution) >= 50.0 / np.sqrt(12.0)
+
+
+# --------------------------------------------------------------------------------------------
+# plausibility flags on published data (issue 13, item 4)
+
+
+def ngrip_transition(greenland, event, variable):
+    """NGRIP ``variable`` around ``event`` (about 2-yr samples; Erhardt et al. 2019,
+    doi:10.5194/cp-15-811-2019), placed at the event's GICC05 age from the GIS table
+    (Rasmussen et al. 2014, doi:10.1016/j.quascirev.2014.09.007; tests/data/greenland).
+    The files count years after the event; Ca is in ln(ng/g). Returns (record, window)."""
+    rows = [line.split("\t") for line in (greenland / "GIS_table.txt").read_text().splitlines()
+            if not line.startswith("#")]
+    age0 = next(float(row[1]) for row in rows if row[0] == event)
+    t, v = np.genfromtxt(greenland / "transitions" / f"NGRIP_{event}_{variable}.csv",
+                         delimiter=",", unpack=True)
+    keep = np.isfinite(v)
+    age = age0 - t[keep]
+    order = np.argsort(age)
+    record = build_record(age=age[order], age_reference="b2k",
+                          attrs={"core": "NGRIP", "timescale": "GICC05"},
+                          proxies={variable: (v[keep][order], {"units": "1"})})
+    return record, [age0 - 250.0, age0 + 250.0]
+
+
+def ngrip_lag(greenland, event):
+    spec = {}
+    for variable in ("Ca", "d18O"):
+        record, window = ngrip_transition(greenland, event, variable)
+        spec[variable] = {"kind": "onset", "record": record, "variable": variable,
+                          "window": window, "draws": 200}
+    return estimate_lag(spec["Ca"], spec["d18O"], draws=2000, seed=5)
+
+
+@pytest.mark.slow
+def test_gi11_onsets_are_flagged_and_a_clean_transition_is_not(greenland):
+    """GI-11: the d18O ramp (about 155 yr) starts on a gradual pre-rise, 120 yr before the
+    tabulated age, with its onset's interval running to the window's old edge; Ca changes
+    in about 40 yr, so the onset lag Ca - d18O (about -100 yr, 'resolved') rests on where the
+    long ramp is said to start. GI-12c: both ramps about 60 yr, well inside the window."""
+    gi11 = ngrip_lag(greenland, "GI-11")
+    print(f"GI-11 Ca - d18O onset lag {gi11.lag.median:.0f} yr {gi11.lag.ci95}; durations "
+          f"{gi11.a.duration.median:.0f} and {gi11.b.duration.median:.0f} yr; flags "
+          f"{gi11.a.flags} {gi11.b.flags}")
+    assert "short_plateau" in gi11.b.flags and "short_plateau" not in gi11.a.flags
+    assert "ramp_ratio" in gi11.a.flags and "ramp_ratio" in gi11.b.flags
+    note = next(line for line in gi11.assumptions if "midpoints" in line)
+    print(note)
+    assert any("pre-rise" in line for line in gi11.assumptions)
+    gi12 = ngrip_lag(greenland, "GI-12c")
+    print(f"GI-12c Ca - d18O onset lag {gi12.lag.median:.0f} yr {gi12.lag.ci95}; durations "
+          f"{gi12.a.duration.median:.0f} and {gi12.b.duration.median:.0f} yr")
+    assert gi12.a.flags == [] and gi12.b.flags == []
+    assert not any("midpoints" in line for line in gi12.assumptions)
+    assert gi12.a.clear_transition and gi12.b.clear_transition
+
+
+def test_gi11_calcium_in_decadal_ngrip_is_flagged(ngrip_csv):
+    """NGRIP decadal Ca at GI-11 (43,340 b2k, Rasmussen et al. 2014; window +-250 yr): a
+    ramp of about 165 yr starting about 120 yr before the tabulated age, on a gradual
+    pre-rise."""
+    from align import detect_onset, open_record
+
+    record = open_record(ngrip_csv, age_column="Age_BP", age_reference="BP")
+    result = detect_onset(record, "Ca", [43_090, 43_590], age_reference="b2k", draws=200,
+                          seed=1)
+    print(f"GI-11 decadal Ca: onset {result.onset.median:.0f} b2k, duration "
+          f"{result.duration.median:.0f} yr, flags {result.flags}")
+    assert "short_plateau" in result.flags
+    assert any("pre-rise" in line for line in KIND.text(result))

@@ -15,9 +15,9 @@ from pydantic import Field
 
 from align.choices import (CLEAR_TRANSITION_RATE, DEFAULT_ONSET_DIRECTION,
                            DEFAULT_ONSET_DRAWS, DEFAULT_ONSET_METHOD, DEFAULT_ONSET_POSITION,
-                           MAX_ONSET_DRAWS, MIN_ONSET_DRAWS,
-                           EventDirection, OnsetDirection, OnsetMethod, OnsetPosition,
-                           check_choice)
+                           EDGE_SHARE, LONG_RAMP_SHARE, MAX_ONSET_DRAWS, MIN_ONSET_DRAWS,
+                           RAMP_RATIO, EventDirection, OnsetDirection, OnsetFlag, OnsetMethod,
+                           OnsetPosition, check_choice)
 from align.errors import InputError
 from align.markers.base import MarkerKind, Part
 from align.schema_base import Estimate, MarkerBase, MarkerDraws, Model
@@ -82,6 +82,10 @@ class OnsetResult(MarkerBase):
     reason: str | None = None
     draws_used: int
     position: OnsetPosition = DEFAULT_ONSET_POSITION
+    flags: list[OnsetFlag] = Field([], description="plausibility flags (keys): a ramp long "
+                                   "relative to the window, a plateau shorter than the ramp, "
+                                   "the marker's interval near a window edge, ramps of very "
+                                   "different lengths in a lag")
 
     @property
     def age(self):
@@ -199,6 +203,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         direction="up" if fit.x2 > fit.x1 else "down", clear_transition=clear,
         clear_transition_p=p_value, reason=reason,
         draws_used=int(len(samples)), position=position,
+        flags=_flags(window, onset_age, end_age, position),
         trace=_onset_trace(bounds[keep], values[keep], window, fit, samples),
         provenance=provenance(inputs=[record_input(record, "record")], parameters={
             "variable": variable, "window": window, "direction": direction, "method": method,
@@ -239,6 +244,78 @@ def within_samples(t1, t2, lo, hi, rng):
     onset = rng.uniform(lo[j], hi[np.where(short, np.minimum(j + 1, m), j)])
     end = rng.uniform(lo[np.where(short, np.maximum(m - 1, j), m)], hi[m])
     return onset, np.maximum(end, onset)
+
+
+def _flags(window, onset_age, end_age, position):
+    """Plausibility flags of an onset marker from its draws (see ``OnsetFlag``)."""
+    span = window[1] - window[0]
+    point = {"onset": onset_age, "end": end_age,
+             "midpoint": 0.5 * (onset_age + end_age)}[position]
+    lo, hi = np.percentile(point, [2.5, 97.5])
+    flags = []
+    duration = np.median(onset_age - end_age)
+    if duration > LONG_RAMP_SHARE * span:
+        flags.append("long_ramp")
+    if min(window[1] - np.median(onset_age), np.median(end_age) - window[0]) < duration:
+        flags.append("short_plateau")
+    if lo < window[0] + EDGE_SHARE * span or hi > window[1] - EDGE_SHARE * span:
+        flags.append("near_edge")
+    return flags
+
+
+def flag_ramp_ratio(marker_a, marker_b):
+    """Flag both onset markers of a lag ``ramp_ratio`` when one ramp is more than
+    ``RAMP_RATIO`` times as long as the other; True when flagged."""
+    if marker_a.kind != "onset" or marker_b.kind != "onset":
+        return False
+    long, short = sorted([marker_a.duration.median, marker_b.duration.median], reverse=True)
+    if long <= RAMP_RATIO * max(short, 0.0):
+        return False
+    for marker in (marker_a, marker_b):
+        if "ramp_ratio" not in marker.flags:
+            marker.flags.append("ramp_ratio")
+    return True
+
+
+def midpoint_lag_note(request, sources):
+    """The lag of ``request`` taken at both transitions' midpoints, as a caution (a list of
+    one sentence; none when it already is)."""
+    from align.lag import estimate_lag
+
+    if request.a.position == request.b.position == "midpoint":
+        return []
+    at_midpoints = request.model_copy(update={
+        key: getattr(request, key).model_copy(update={"position": "midpoint"})
+        for key in ("a", "b")})
+    lag = estimate_lag(at_midpoints, sources=sources).lag
+    return [f"Caution: the two ramps differ in length more than {RAMP_RATIO:g}-fold, so the "
+            f"lag depends on the point chosen on them; at both midpoints a - b would be "
+            f"{lag.median:.0f} years (95 %: {lag.ci95[0]:.0f} to {lag.ci95[1]:.0f})."]
+
+
+#: What each flag means, for people (code uses the keys).
+FLAG_TEXT = {
+    "long_ramp": "the ramp ({duration:.0f} yr) is longer than {share:.0%} of the window; "
+                 "a gradual change at its start may be noise or a pre-rise, so its onset is "
+                 "uncertain beyond its interval",
+    "short_plateau": "a plateau inside the window is shorter than the ramp ({duration:.0f} "
+                     "yr): the level it is measured from is not established, and a gradual "
+                     "pre-rise cannot be told from the ramp; widen the window",
+    "near_edge": "the 95 % interval of the {position} comes within {edge:.0%} of the window "
+                 "({distance:.0f} yr) of an edge, where the fit is cut; widen the window",
+    "ramp_ratio": "its ramp and the other marker's differ in length more than "
+                  "{ratio:g}-fold, so the lag depends on the point chosen on them (onset, "
+                  "midpoint or end)",
+}
+
+
+def flag_sentences(marker):
+    """The marker's flags as sentences."""
+    span = marker.window[1] - marker.window[0]
+    values = {"duration": marker.duration.median, "share": LONG_RAMP_SHARE,
+              "position": marker.position, "edge": EDGE_SHARE, "distance": EDGE_SHARE * span,
+              "ratio": RAMP_RATIO}
+    return [FLAG_TEXT[flag].format(**values) for flag in marker.flags]
 
 
 def _clarity(fit, p_value):
@@ -317,8 +394,13 @@ class Onset(MarkerKind):
                f"transition's {marker.position}"
                + (" (the older end of the ramp)" if marker.position == "onset" else "")
                + ", placed no more finely than its sample interval."]
+        out.append(f"Marker {label}: a 'clear transition' is a step whose p-value against "
+                   f"AR(1) noise without a transition (with the record's own persistence) is "
+                   f"at most {marker.clear_transition_rate:g}, the false-positive rate under "
+                   "red noise.")
         if not marker.clear_transition:
             out.append(f"Caution, marker {label}: {marker.reason}.")
+        out += [f"Caution, marker {label}: {text}." for text in flag_sentences(marker)]
         return out
 
     def draw(self, ax, marker, colour):
@@ -346,7 +428,14 @@ class Onset(MarkerKind):
                 f"duration    {estimate_line(marker.duration)}",
                 f"amplitude   {marker.amplitude.median:.3g}{unit} ({marker.direction}); noise "
                 f"sd {marker.noise.sd:.3g}{unit}, AR(1) {marker.noise.ar1:.2f}",
-                "clear transition" if marker.clear_transition else marker.reason]
+                _clarity_line(marker)] + [f"caution: {text}" for text in flag_sentences(marker)]
+
+
+def _clarity_line(marker):
+    if not marker.clear_transition:
+        return marker.reason
+    p = marker.clear_transition_p
+    return "clear transition" + ("" if p is None else f" (p = {p:.2g})")
 
 
 KIND = Onset()
