@@ -194,13 +194,13 @@ NULL_PER_TAU = 400
 NULL_NEIGHBOURS = 200
 
 
-def transition_p(t, x, w, sign):
+def transition_p(t, x, sign):
     """P-value of a fitted step under red noise with no transition.
 
     Parameters
     ----------
-    t, w : numpy.ndarray (n,)
-        Forward times and weights (as for :func:`align.ramp.fit_ramp`).
+    t : numpy.ndarray (n,)
+        Increasing forward times.
     x : numpy.ndarray (n,) or (B, n)
         Values: one series or many on the same axis.
     sign : {1, -1, 0}
@@ -221,16 +221,18 @@ def transition_p(t, x, w, sign):
     the redder), but still some. The fitted ramp's residuals cannot tell ``tau`` (the ramp
     soaks up the slow part of the noise), so the test conditions on the AR(1) coefficient
     ``r`` of the demeaned series, which estimates ``tau`` when there is no transition: AR(1)
-    surrogates on the record's own axis, with ``tau`` log-uniform over ``NULL_TAUS`` times the
-    window and white noise, are fitted like the record, and among the ``NULL_NEIGHBOURS``
-    surrogates whose ``ln(1 - r)`` is nearest the record's, the share with a ratio at least the
-    record's is the p-value (a conditional parametric bootstrap test; Efron & Tibshirani
+    surrogates, with ``tau`` log-uniform over ``NULL_TAUS`` times the window and white noise,
+    are fitted like the record, and among the ``NULL_NEIGHBOURS`` surrogates whose
+    ``ln(1 - r)`` is nearest the record's, the share with a ratio at least the record's is
+    the p-value (a conditional parametric bootstrap test; Efron & Tibshirani
     1993, ch. 16). The price is power: a real transition raises ``r`` too, so it is compared
-    with redder surrogates. The surrogates depend only on the axis, the weights and the
-    direction (their seed is derived from them), so records on one axis share them.
+    with redder surrogates. The surrogates are drawn on an evenly spaced axis of as many
+    samples as the record, with equal weights (persistence and window in units of the mean
+    spacing), from a seed fixed by the sample count and direction, so records with as many
+    samples share them; an uneven axis is thereby approximated by an even one.
     """
-    t_null, r_null = _null_steps(t.tobytes(), w.tobytes(), int(sign))
-    stat, r = _step_statistic(t, w, np.atleast_2d(x), sign)
+    t_null, r_null = _null_steps(t.size, int(sign))
+    stat, r = _step_statistic(t, np.ones(t.size), np.atleast_2d(x), sign)
     near = np.argsort(np.abs(np.log1p(-r_null)[None, :] - np.log1p(-r)[:, None]), axis=1,
                       kind="stable")[:, :NULL_NEIGHBOURS]
     p = (1 + np.sum(t_null[near] >= stat[:, None], axis=1)) / (1 + near.shape[1])
@@ -248,16 +250,13 @@ def _step_statistic(t, w, series, sign):
     return np.where(ok, ratio, -np.inf), np.atleast_1d(ar1_persistence(t, series))
 
 
-@functools.lru_cache(maxsize=8)
-def _null_steps(t_bytes, w_bytes, sign):
-    """Statistics and lag-1 coefficients of the no-transition surrogates on one axis."""
-    import hashlib
-
-    t, w = np.frombuffer(t_bytes), np.frombuffer(w_bytes)
-    digest = hashlib.sha256(t_bytes + w_bytes + bytes([sign % 256])).digest()
-    rng = np.random.default_rng(int.from_bytes(digest[:8], "little"))
-    taus = np.repeat(np.concatenate([[0.0], NULL_TAUS * (t[-1] - t[0])]), NULL_PER_TAU)
-    stat, r = _step_statistic(t, w, simulate_ar1(t, taus, 1.0, taus.size, rng), sign)
+@functools.lru_cache(maxsize=32)
+def _null_steps(n, sign):
+    """Statistics and lag-1 coefficients of no-transition surrogates of ``n`` samples."""
+    t = np.arange(float(n))
+    rng = np.random.default_rng([n, sign % 3, 13])
+    taus = np.repeat(np.concatenate([[0.0], NULL_TAUS * (n - 1.0)]), NULL_PER_TAU)
+    stat, r = _step_statistic(t, np.ones(n), simulate_ar1(t, taus, 1.0, taus.size, rng), sign)
     stat.flags.writeable = r.flags.writeable = False
     return stat, r
 

@@ -184,7 +184,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
                                     -bounds[order, 0], rng)
     onset_age, end_age = -onset_t, -end_t
     amplitude = samples[:, 3] - samples[:, 2]
-    p_value = transition_p(t, x, w, sign)
+    p_value = transition_p(t, x, sign)
     clear, reason = _clarity(fit, p_value)
     point = {"onset": fit.t1, "end": fit.t2, "midpoint": 0.5 * (fit.t1 + fit.t2)}[position]
     depth = record["depth"].values if "depth" in record.coords else None
