@@ -56,7 +56,7 @@ def test_published_onsets_on_ngrip_decadal_d18o(ngrip_csv, event, age):
 def test_onset_intervals_cover_the_truth(phi):
     rng = np.random.default_rng(11)
     hits = 0
-    trials = 300
+    trials = 200  # binomial sd 0.015 at 0.95
     for _ in range(trials):
         edges, values, onset = synthetic_ramp(rng, phi)
         result = detect_onset(interval_record(edges, values), "x", [edges[0], edges[-1]],
