@@ -279,11 +279,12 @@ def flag_ramp_ratio(marker_a, marker_b):
 
 def midpoint_lag_note(request, sources):
     """The lag of ``request`` taken at both transitions' midpoints, as a caution (a list of
-    one sentence; none when it already is)."""
+    one sentence; when the lag already is at the midpoints, the caution alone)."""
     from align.lag import estimate_lag
 
     if request.a.position == request.b.position == "midpoint":
-        return []
+        return [f"Caution: the two ramps differ in length more than {RAMP_RATIO:g}-fold; the "
+                "lag is taken at their midpoints, where the difference matters least."]
     at_midpoints = request.model_copy(update={
         key: getattr(request, key).model_copy(update={"position": "midpoint"})
         for key in ("a", "b")})
@@ -309,13 +310,13 @@ FLAG_TEXT = {
 }
 
 
-def flag_sentences(marker):
-    """The marker's flags as sentences."""
+def flag_sentences(marker, skip=()):
+    """The marker's flags as sentences (leaving out the keys in ``skip``)."""
     span = marker.window[1] - marker.window[0]
     values = {"duration": marker.duration.median, "share": LONG_RAMP_SHARE,
               "position": marker.position, "edge": EDGE_SHARE, "distance": EDGE_SHARE * span,
               "ratio": RAMP_RATIO}
-    return [FLAG_TEXT[flag].format(**values) for flag in marker.flags]
+    return [FLAG_TEXT[flag].format(**values) for flag in marker.flags if flag not in skip]
 
 
 def _clarity(fit, p_value):
@@ -395,12 +396,14 @@ class Onset(MarkerKind):
                + (" (the older end of the ramp)" if marker.position == "onset" else "")
                + ", placed no more finely than its sample interval."]
         out.append(f"Marker {label}: a 'clear transition' is a step whose p-value against "
-                   f"AR(1) noise without a transition (with the record's own persistence) is "
-                   f"at most {marker.clear_transition_rate:g}, the false-positive rate under "
-                   "red noise.")
+                   f"AR(1) noise without a transition, as persistent as the record, is at most "
+                   f"{marker.clear_transition_rate:g} (the false-positive rate under red "
+                   "noise).")
         if not marker.clear_transition:
             out.append(f"Caution, marker {label}: {marker.reason}.")
-        out += [f"Caution, marker {label}: {text}." for text in flag_sentences(marker)]
+        # unequal ramps are the lag's caution, stated once with the lag at the midpoints
+        out += [f"Caution, marker {label}: {text}."
+                for text in flag_sentences(marker, skip=("ramp_ratio",))]
         return out
 
     def draw(self, ax, marker, colour):
