@@ -116,9 +116,9 @@ def check_choice(value, choice, field):
 
 
 #: False-positive rate of the "clear transition" decision of an onset marker under red noise
-#: without a transition (the p-value of the fitted step against AR(1) surrogates with the
-#: record's own sd and persistence, :func:`align.detect.transition_p`); a choice (common
-#: practice: 5 %).
+#: without a transition (the p-value of the fitted step against AR(1) surrogates as
+#: persistent as the record, :func:`align.detect.transition_p`); a choice (common practice:
+#: 5 %).
 CLEAR_TRANSITION_RATE = 0.05
 #: Plausibility flags of an onset marker (keys; the sentences are in ``align.markers.onset``):
 #: a ramp long relative to the window, a plateau inside the window shorter than the ramp (the

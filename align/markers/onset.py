@@ -74,8 +74,8 @@ class OnsetResult(MarkerBase):
     direction: EventDirection
     clear_transition: bool
     clear_transition_p: float | None = Field(None, description="p-value of the fitted step "
-                                             "against AR(1) noise with the record's sd and "
-                                             "persistence and no transition")
+                                             "against AR(1) noise without a transition, as "
+                                             "persistent as the record")
     clear_transition_rate: float = Field(CLEAR_TRANSITION_RATE, description="the false-"
                                          "positive rate (under red noise) at which a step is "
                                          "called a clear transition")
@@ -123,10 +123,12 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     -------
     OnsetResult
         Onset, midpoint and end (ages, yr), duration (yr), levels and amplitude (units of the
-        variable), the noise model, ``clear_transition`` with a reason when the step is not
-        larger than twice the noise sd or a corner sits at the window edge; the onset draws
-        are attached as :class:`~align.schema_base.MarkerDraws` (``result.draws``, not
-        serialised) for the lag stage.
+        variable), the noise model, ``clear_transition`` with its p-value
+        (:func:`align.detect.transition_p`; clear at most ``CLEAR_TRANSITION_RATE`` and no
+        corner at the window edge) and a reason when not clear, and plausibility ``flags``;
+        the draws of the marker's point are attached as
+        :class:`~align.schema_base.MarkerDraws` (``result.draws``, not serialised) for the
+        lag stage.
 
     Notes
     -----
@@ -135,9 +137,16 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     noise with the residuals' sd and persistence (:func:`align.noise.ar1_persistence`) to the
     fitted ramp and refits; both noise parameters are first bias-corrected by a pilot
     bootstrap (a fitted ramp soaks up part of red noise, so residuals look whiter and quieter
-    than the noise was); each draw of the onset (and end) is then displaced uniformly within the
-    age interval of the sample at that point, because a fit cannot place a corner more
-    finely than the sampling.
+    than the noise was); each draw of the onset (and end) is then drawn uniformly over the
+    whole age interval of the sample holding it, or of it and the next sample when the
+    transition is shorter than the sampling resolves (:func:`within_samples`), because a fit
+    cannot place a corner more finely than the sampling.
+
+    Known limitation (measured, not corrected): under red noise at low signal-to-noise (AR(1)
+    persistence 100 yr, step 2 noise sd, 10-yr samples) the least-squares ramp often absorbs
+    a noise excursion beside a short ramp (20-50 yr) into a much longer one; the onset is then
+    too old (mean -45 to -50 yr) and 95 % intervals cover it in about 0.8 of cases. Such
+    records are mostly flagged (``long_ramp``, ``short_plateau``) or not a clear transition.
 
     References
     ----------
