@@ -224,12 +224,13 @@ def transition_p(t, x, sign):
     surrogates, with ``tau`` log-uniform over ``NULL_TAUS`` times the window and white noise,
     are fitted like the record, and among the ``NULL_NEIGHBOURS`` surrogates whose
     ``ln(1 - r)`` is nearest the record's, the share with a ratio at least the record's is
-    the p-value (a conditional parametric bootstrap test; Efron & Tibshirani
-    1993, ch. 16). The price is power: a real transition raises ``r`` too, so it is compared
-    with redder surrogates. The surrogates are drawn on an evenly spaced axis of as many
-    samples as the record, with equal weights (persistence and window in units of the mean
-    spacing), from a seed fixed by the sample count and direction, so records with as many
-    samples share them; an uneven axis is thereby approximated by an even one.
+    the p-value (a conditional parametric bootstrap test; Efron & Tibshirani 1993,
+    doi:10.1201/9780429246593, key ``efron1993``). The price is power: a real transition
+    raises ``r`` too, so it is compared with redder surrogates. The surrogates are drawn on
+    an evenly spaced axis of as many samples as the record, with equal weights (persistence
+    and window in units of the mean spacing), from a seed fixed by the sample count and
+    direction, so records with as many samples share them; an uneven axis is thereby
+    approximated by an even one.
     """
     t_null, r_null = _null_steps(t.size, int(sign))
     stat, r = _step_statistic(t, np.ones(t.size), np.atleast_2d(x), sign)
