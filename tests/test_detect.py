@@ -104,6 +104,28 @@ def test_noise_free_ramp_matches_scipy_least_squares():
                                atol=1e-6)
 
 
+def test_ar1_profile_likelihood_matches_scipy():
+    """The profiled AR(1) log-likelihood behind the transition test against the exact
+    Gaussian density (scipy.stats.multivariate_normal, covariance sd^2 a^(|t_i - t_j| / d)),
+    maximised over the same grid of coefficients: equal up to the constants n/2 ln(2 pi) +
+    n/2."""
+    from scipy.stats import multivariate_normal
+
+    from align.noise import ar1_profile_loglik
+
+    rng = np.random.default_rng(14)
+    t = np.cumsum(rng.uniform(1.0, 3.0, 20))
+    z = simulate_ar1(t, 8.0, 2.0, 1, rng)[0]
+    d = np.diff(t).mean()
+    best = -np.inf
+    for a in np.linspace(0.0, 0.999, 200):
+        corr = a ** (np.abs(t[:, None] - t[None, :]) / d)
+        var = z @ np.linalg.solve(corr, z) / t.size
+        best = max(best, multivariate_normal(np.zeros(t.size), var * corr).logpdf(z))
+    expected = best + 0.5 * t.size * (np.log(2 * np.pi) + 1.0)
+    assert ar1_profile_loglik(t, z)[0] == pytest.approx(expected, abs=1e-6)
+
+
 def test_resolution_floor_of_an_abrupt_step():
     """A noise-free step between two 20-year samples: the onset can be anywhere in them."""
     edges = np.arange(10_000.0, 11_001.0, 20.0)
