@@ -113,3 +113,25 @@ def check_choice(value, choice, field):
         raise InputError(f"{field} must be one of {', '.join(map(str, allowed))} "
                          f"(got {value!r})", field=field)
     return value
+
+
+#: False-positive rate of the "clear transition" decision of an onset marker under red noise
+#: without a transition (the p-value of the fitted step against AR(1) surrogates as
+#: persistent as the record, :func:`align.detect.transition_p`); a choice (common practice:
+#: 5 %).
+CLEAR_TRANSITION_RATE = 0.05
+#: Plausibility flags of an onset marker (keys; the sentences are in ``align.markers.onset``):
+#: a ramp long relative to the window, a plateau inside the window shorter than the ramp (the
+#: onset or end sits within one ramp length of the window's edge), the marker's 95 % interval
+#: near a window edge, and (in a lag) ramps of very different lengths, so that the point
+#: chosen on them matters.
+OnsetFlag = Literal["long_ramp", "short_plateau", "near_edge", "ramp_ratio"]
+#: A ramp longer than this share of the window is flagged ``long_ramp`` (a choice).
+LONG_RAMP_SHARE = 1.0 / 3.0
+#: A marker whose 95 % interval comes within this share of the window of an edge is flagged
+#: ``near_edge`` (a choice: the fit cannot put a corner beyond the window, so the interval is
+#: cut there).
+EDGE_SHARE = 0.1
+#: Ramps whose durations differ more than this factor are flagged ``ramp_ratio`` in a lag (a
+#: choice).
+RAMP_RATIO = 3.0

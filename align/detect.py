@@ -7,12 +7,14 @@ The kinds themselves (detection, Monte Carlo parts, figures, text) live in
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from align.errors import InputError
 from align.progress import steps
 from align.markers.onset import NoiseModel
-from align.noise import ar1_persistence, persistence_time, simulate_ar1
+from align.noise import ar1_persistence, ar1_profile_loglik, persistence_time, simulate_ar1
 from align.ramp import bootstrap_ramps, fit_ramp, ramp, ramps
 from align.record import age_reference as reference_of
 from align.record import with_age_reference
@@ -182,6 +184,82 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     samples = np.vstack(chunks)
     samples = samples[np.all(np.isfinite(samples), axis=1)]
     return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
+
+
+#: Persistence times of the no-transition surrogates behind a step's p-value, as fractions
+#: of the window (log-spaced; white noise is added), and surrogates per persistence time.
+NULL_TAUS = np.geomspace(0.01, 3.0, 12)
+NULL_PER_TAU = 400
+#: Surrogates nearest the record in lag-1 autocorrelation that a step is compared with.
+NULL_NEIGHBOURS = 200
+
+
+def transition_p(t, x, sign):
+    """P-value of a fitted step under red noise with no transition.
+
+    Parameters
+    ----------
+    t : numpy.ndarray (n,)
+        Increasing forward times.
+    x : numpy.ndarray (n,) or (B, n)
+        Values: one series or many on the same axis.
+    sign : {1, -1, 0}
+
+    Returns
+    -------
+    float or numpy.ndarray (B,)
+        ``(1 + k) / (1 + NULL_NEIGHBOURS)``, ``k`` the surrogates (among those about as
+        persistent as the record) whose statistic is at least the record's.
+
+    Notes
+    -----
+    The statistic is the log-likelihood ratio of the fitted ramp against a constant, both
+    with AR(1) noise whose coefficient and variance are profiled out
+    (:func:`align.noise.ar1_profile_loglik`; the ramp is the least-squares one, and every
+    sample counts once). It does not depend on the noise's scale, and less on its persistence
+    ``tau`` than the step itself (a ramp fitted to red noise always finds a step, the larger
+    the redder), but still some. The fitted ramp's residuals cannot tell ``tau`` (the ramp
+    soaks up the slow part of the noise), so the test conditions on the AR(1) coefficient
+    ``r`` of the demeaned series, which estimates ``tau`` when there is no transition: AR(1)
+    surrogates, with ``tau`` log-uniform over ``NULL_TAUS`` times the window and white noise,
+    are fitted like the record, and among the ``NULL_NEIGHBOURS`` surrogates whose
+    ``ln(1 - r)`` is nearest the record's, the share with a ratio at least the record's is
+    the p-value (a conditional parametric bootstrap test; Efron & Tibshirani 1993,
+    doi:10.1201/9780429246593, key ``efron1993``). The price is power: a real transition
+    raises ``r`` too, so it is compared with redder surrogates. The surrogates are drawn on
+    an evenly spaced axis of as many samples as the record, with equal weights (persistence
+    and window in units of the mean spacing), from a seed fixed by the sample count and
+    direction, so records with as many samples share them; an uneven axis is thereby
+    approximated by an even one.
+    """
+    t_null, r_null = _null_steps(t.size, int(sign))
+    stat, r = _step_statistic(t, np.ones(t.size), np.atleast_2d(x), sign)
+    near = np.argsort(np.abs(np.log1p(-r_null)[None, :] - np.log1p(-r)[:, None]), axis=1,
+                      kind="stable")[:, :NULL_NEIGHBOURS]
+    p = (1 + np.sum(t_null[near] >= stat[:, None], axis=1)) / (1 + near.shape[1])
+    return float(p[0]) if np.ndim(x) == 1 else p
+
+
+def _step_statistic(t, w, series, sign):
+    """Log-likelihood ratio of a ramp under AR(1) noise, and the lag-1 coefficient of the
+    demeaned series, per series."""
+    fits = bootstrap_ramps(t, w, np.zeros_like(t), series, sign)
+    ok = np.all(np.isfinite(fits), axis=1)
+    fits = np.where(ok[:, None], fits, [t[0], t[-1], 0.0, 0.0])
+    demeaned = series - series.mean(axis=1, keepdims=True)
+    ratio = ar1_profile_loglik(t, series - ramps(t, fits)) - ar1_profile_loglik(t, demeaned)
+    return np.where(ok, ratio, -np.inf), np.atleast_1d(ar1_persistence(t, series))
+
+
+@functools.lru_cache(maxsize=32)
+def _null_steps(n, sign):
+    """Statistics and lag-1 coefficients of no-transition surrogates of ``n`` samples."""
+    t = np.arange(float(n))
+    rng = np.random.default_rng([n, sign % 3, 13])
+    taus = np.repeat(np.concatenate([[0.0], NULL_TAUS * (n - 1.0)]), NULL_PER_TAU)
+    stat, r = _step_statistic(t, np.ones(n), simulate_ar1(t, taus, 1.0, taus.size, rng), sign)
+    stat.flags.writeable = r.flags.writeable = False
+    return stat, r
 
 
 def check_draws(draws, samples):

@@ -27,6 +27,7 @@ from align.transforms import marker_variable
 from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
 from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
 from align.markers import Part, kind_of
+from align.markers.onset import flag_ramp_ratio, midpoint_lag_note
 from align.schema import (BudgetItem, Histogram, LagFigures, LagRequest, LagResult, LagSummary,
                           Model, RecordExcerpt, WhatIf, validate_as)
 from align.ties import bridge_variance, read_ties, transfer
@@ -165,8 +166,11 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     parts = (kind_a.parts(marker_a, "a", +1.0, n, rng) + kind_b.parts(marker_b, "b", -1.0, n, rng)
              + _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng))
     lag = center + sum(p.draws for p in parts)
+    unequal_ramps = flag_ramp_ratio(marker_a, marker_b)
     result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
                      tie_table, seed)
+    if unequal_ramps:
+        result.assumptions[-1:-1] = midpoint_lag_note(request, sources)
     result._draws = lag
     result._shared = [term for p in parts if isinstance(p, JointPart) for term in p.terms]
     return result

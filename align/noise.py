@@ -105,3 +105,36 @@ def lag1_autocorrelation(x):
     x = np.asarray(x, dtype=float)
     d = x - x.mean()
     return float(np.dot(d[1:], d[:-1]) / np.dot(d, d))
+
+
+def ar1_profile_loglik(t, z, grid=200):
+    """Gaussian AR(1) log-likelihood of zero-mean series, maximised over the coefficient and
+    the innovation variance, for many series at once.
+
+    Parameters
+    ----------
+    t : numpy.ndarray (n,)
+        Increasing times.
+    z : numpy.ndarray (B, n)
+        Zero-mean series on ``t``.
+    grid : int
+        Values of the coefficient ``a`` at the mean spacing searched in [0, 0.999].
+
+    Returns
+    -------
+    numpy.ndarray (B,)
+        ``max_a [-(n/2) ln(S(a)/n) - (1/2) sum_i ln(1 - a_i^2)]`` (constants dropped), with
+        ``a_i = a^((t_i - t_{i-1}) / d)`` and ``S(a) = z_0^2 + sum_i (z_i - a_i z_{i-1})^2 /
+        (1 - a_i^2)``: the exact likelihood of a stationary AR(1) process on an irregular
+        axis (Robinson 1977) with the variance profiled out.
+    """
+    t = np.asarray(t, dtype=float)
+    z = np.atleast_2d(np.asarray(z, dtype=float))
+    n = z.shape[1]
+    dt = np.diff(t)
+    coef = np.linspace(0.0, 0.999, grid)[:, None] ** (dt / dt.mean())[None, :]  # (G, n - 1)
+    inv = 1.0 / (1.0 - coef**2)
+    s = (z[:, :1] ** 2 + (z[:, 1:] ** 2) @ inv.T - 2.0 * (z[:, 1:] * z[:, :-1]) @ (coef * inv).T
+         + (z[:, :-1] ** 2) @ (coef**2 * inv).T)  # (B, G)
+    ll = -0.5 * n * np.log(np.maximum(s, 1e-300) / n) + 0.5 * np.log(inv).sum(axis=1)[None, :]
+    return ll.max(axis=1)

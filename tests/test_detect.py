@@ -56,7 +56,7 @@ def test_published_onsets_on_ngrip_decadal_d18o(ngrip_csv, event, age):
 def test_onset_intervals_cover_the_truth(phi):
     rng = np.random.default_rng(11)
     hits = 0
-    trials = 300
+    trials = 200  # binomial sd 0.015 at 0.95
     for _ in range(trials):
         edges, values, onset = synthetic_ramp(rng, phi)
         result = detect_onset(interval_record(edges, values), "x", [edges[0], edges[-1]],
@@ -102,6 +102,28 @@ def test_noise_free_ramp_matches_scipy_least_squares():
                               xtol=1e-15, ftol=1e-15, gtol=1e-15)
     np.testing.assert_allclose([fit.t1, fit.t2, fit.x1, fit.x2], reference.x, rtol=0,
                                atol=1e-6)
+
+
+def test_ar1_profile_likelihood_matches_scipy():
+    """The profiled AR(1) log-likelihood behind the transition test against the exact
+    Gaussian density (scipy.stats.multivariate_normal, covariance sd^2 a^(|t_i - t_j| / d)),
+    maximised over the same grid of coefficients: equal up to the constants n/2 ln(2 pi) +
+    n/2."""
+    from scipy.stats import multivariate_normal
+
+    from align.noise import ar1_profile_loglik
+
+    rng = np.random.default_rng(14)
+    t = np.cumsum(rng.uniform(1.0, 3.0, 20))
+    z = simulate_ar1(t, 8.0, 2.0, 1, rng)[0]
+    d = np.diff(t).mean()
+    best = -np.inf
+    for a in np.linspace(0.0, 0.999, 200):
+        corr = a ** (np.abs(t[:, None] - t[None, :]) / d)
+        var = z @ np.linalg.solve(corr, z) / t.size
+        best = max(best, multivariate_normal(np.zeros(t.size), var * corr).logpdf(z))
+    expected = best + 0.5 * t.size * (np.log(2 * np.pi) + 1.0)
+    assert ar1_profile_loglik(t, z)[0] == pytest.approx(expected, abs=1e-6)
 
 
 def test_resolution_floor_of_an_abrupt_step():
