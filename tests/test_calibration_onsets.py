@@ -57,6 +57,14 @@ def test_the_report_names_the_point(tmp_path):
     assert result.a.age == result.a.midpoint
     md = (write_report(result, tmp_path, formats=("md",)) / "report.md").read_text()
     assert "marker a (onset: midpoint)" in md
+    # the marker figure shades the point the lag is taken at, not the onset
+    from align.figures import marker_figure
+
+    ax = marker_figure(result.a, "a").axes[0]
+    shaded = [p for p in ax.patches if p.get_label() == "midpoint 95 %"]
+    assert len(shaded) == 1
+    assert np.allclose(sorted(shaded[0].get_x() + np.array([0, shaded[0].get_width()])),
+                       sorted(result.a.midpoint.ci95))
 
 
 # --------------------------------------------------------------------------------------------

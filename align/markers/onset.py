@@ -423,7 +423,7 @@ class Onset(MarkerKind):
                         [np.nan if v is None else v for v in trace.band_high],
                         color=COLOURS["band"], alpha=0.6, lw=0, label="ramp 95 % band")
         ax.plot(trace.curve_age, trace.curve, color=COLOURS["ink"], lw=1.5, label="fitted ramp")
-        interval_span(ax, marker.onset, colour, "onset")
+        interval_span(ax, marker.age, colour, marker.position)
         state = "clear transition" if marker.clear_transition else "NO clear transition"
         return f"Onset fit: {marker.variable} in {marker.record} ({state})"
 
