@@ -96,3 +96,19 @@ def spike_in_samples(rng, step, amplitude, *, years=600, start=10_000, duration=
                         age_bounds=np.column_stack([edges[:-1], edges[1:]]),
                         age_reference="b2k",
                         proxies={"s": (values, {"units": "ng/g"})}), onset
+
+
+def ou_age_error(rng, sd, scale, span=(9_900.0, 11_100.0), step=50.0):
+    """An age-model error of a known age scale: an Ornstein-Uhlenbeck process (sd ``sd`` yr,
+    correlation ``exp(-|dt| / scale)``) drawn exactly at knots ``step`` yr apart by its AR(1)
+    recursion, linear between them (so the ages stay monotonic: the error's slope has sd
+    ``sd sqrt(2 / (scale step))``); exact at the knots, slightly smoother between. Returns a
+    function of true age."""
+    t = np.arange(span[0], span[1] + step, step)
+    rho = np.exp(-step / scale)
+    from scipy.signal import lfilter
+
+    shocks = rng.normal(0.0, sd * np.sqrt(1.0 - rho**2), t.size)
+    shocks[0] = rng.normal(0.0, sd)
+    path = lfilter([1.0], [1.0, -rho], shocks)
+    return lambda age: np.interp(age, t, path)
