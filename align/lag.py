@@ -299,8 +299,13 @@ def _shared_parts(rec_a, rec_b, age_a, age_b, request, n, rng):
     carries = [uncertainty_kind(r) != "none" for r in (rec_a, rec_b)]
     profile_a = rec_a if carries[0] or not carries[1] else rec_b
     profile_b = rec_b if carries[1] else profile_a
-    sig = [_sigma_at(profile_a, age_a), _sigma_at(profile_b, age_b)]
-    e = _bivariate(mce_covariance(2.0 * np.array(sig), request.timescale_model), n, rng)
+    sig = np.array([_sigma_at(profile_a, age_a), _sigma_at(profile_b, age_b)])
+    counted = all(uncertainty_kind(p) == "mce" for p in (profile_a, profile_b))
+    # an sd profile (a record synchronised onto the timescale) keeps its sd at each marker
+    cov = (mce_covariance(2.0 * sig, request.timescale_model) if counted
+           else np.outer(sig, sig) if request.timescale_model == "correlated"
+           else np.minimum.outer(sig, sig) ** 2)
+    e = _bivariate(cov, n, rng)
     return [Part(f"shared timescale ({rec_a.attrs.get('timescale')}): error between the "
                  "markers", "timescale", None, e[:, 0] - e[:, 1]),
             Part(f"synchronisation of {record_name(rec_a)} and {record_name(rec_b)} "
@@ -577,7 +582,9 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, request):
     for label, marker in (("a", marker_a), ("b", marker_b)):
         out += kind_of(marker.kind).assumptions(marker, label)
     out.append("What-if rows scale only the named term (halving a sample interval halves the "
-               "resolution terms; the fit noise is kept).")
+               "resolution terms; the fit noise is kept); rows for another counting-error model "
+               "or timescale correlation redraw the timescale terms from the same random "
+               "numbers.")
     out.append(CAUTION)
     return out
 

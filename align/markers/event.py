@@ -449,6 +449,11 @@ class Event(MarkerKind):
             lo, hi = marker.sample.age_interval
             lines.append(f"event       {estimate_line(marker.event, ref)}; sample {lo:.1f} to "
                          f"{hi:.1f} (z = {marker.sample.z:.1f})")
+            if marker.older_sample is not None:
+                o_lo, o_hi = marker.older_sample.age_interval
+                lines.append(f"            begins in that sample with probability "
+                             f"{marker.p_in_sample:.2f}, else in the older one {o_lo:.1f} to "
+                             f"{o_hi:.1f} (z = {marker.older_sample.z:.1f})")
         for c in marker.candidates:
             lines.append(f"  candidate {c.age_span[0]:.1f} to {c.age_span[1]:.1f} {ref}: peak z "
                          f"{c.peak_z:.1f}, {c.n_samples} sample(s)")
