@@ -1,20 +1,20 @@
 """Events: where a spike begins.
 
-An *event* is the moment an event signal begins: the age at which the anomalous deposit
-starts (the beginning of its first year), found from the oldest sample of the first anomalous
-run in forward time. That sample need not hold the beginning: a deposit that begins late in a
-sample (in forward time) fills only part of it, and the diluted anomaly may stay below the
-threshold, so the first anomalous sample is the next younger one. The event's age is
+An *event* is the moment an event signal begins: the age at which the anomalous deposit starts
+(a moment within the first year of the deposit), found from the oldest sample of the first
+anomalous run in forward time. That sample need not hold the beginning: a deposit that begins
+late in a sample (in forward time) fills only part of it, and the diluted anomaly may stay
+below the threshold, so the first anomalous sample is the next younger one. The event's age is
 therefore spread over the first anomalous sample (uniformly) and over the older neighbour,
 weighted by how much of the spike that neighbour's own anomaly allows (see
 :func:`onset_spread`). With ``pick="peak"`` the event is the run's peak sample, uniform over
-it. Anomalies are robust z-scores: a
-running-median baseline and a MAD scale (x 1.4826) over a span of the record, on the log of a
-positive proxy by default (sulfate, dust and sea salt are skewed: on their log a spike-free
-background is close to Gaussian). The threshold is calibrated so that the background, modelled
-as Gaussian AR(1) anomalies with the window's own lag-1 autocorrelation, gives the requested
-number of false events per 1000 years (:func:`align.anomaly.calibrated_threshold`); a fixed
-threshold may be given instead, and the false-alarm rate it implies is stated.
+it. Anomalies are robust z-scores: a running-median baseline and a MAD scale (x 1.4826) over a
+span of the record, on the log of a positive proxy by default (sulfate, dust and sea salt are
+skewed: on their log a spike-free background is close to Gaussian). The threshold is calibrated
+so that the background, modelled as Gaussian AR(1) anomalies with the window's own lag-1
+autocorrelation, gives the requested number of false events per 1000 years
+(:func:`align.anomaly.calibrated_threshold`); a fixed threshold may be given instead, and the
+false-alarm rate it implies is stated.
 """
 
 from __future__ import annotations
@@ -416,9 +416,9 @@ class Event(MarkerKind):
             return (f"Marker {label}: the event's age is uniform over the age interval of its "
                     f"{'peak' if marker.pick == 'peak' else 'first anomalous'} sample.")
         return (f"Marker {label}: the event's age is the moment the anomalous deposit begins "
-                "(the start of its first year). It lies in the first anomalous sample "
-                f"(probability {marker.p_in_sample:.2f}, uniform over it) or in the older "
-                "sample, into which a spike of the run's peak height "
+                "(a moment within the first year of the deposit). It lies in the first "
+                f"anomalous sample (probability {marker.p_in_sample:.2f}, uniform over it) or "
+                "in the older sample, into which a spike of the run's peak height "
                 f"({marker.spike_height:.3g} robust sd, full strength from its start) may "
                 "reach no further than that sample's own anomaly "
                 f"(z = {marker.older_sample.z:.2f}) allows.")
