@@ -388,7 +388,8 @@ class Event(MarkerKind):
                              "threshold or move the window)", field=f"{label}.window")
 
     def center(self, marker):
-        return float(np.mean(marker.sample.age_interval))
+        # the median of where the deposit begins (the sample's mid-point when uniform over it)
+        return float(marker.event.median)
 
     def parts(self, marker, label, sign, n, rng):
         lo, hi = marker.sample.age_interval
