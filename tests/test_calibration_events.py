@@ -130,16 +130,16 @@ def event_trials(step, amplitude, trials, seed):
 @pytest.mark.slow
 @pytest.mark.parametrize("step, amplitude, seed", [(1, 12.0, 31), (2, 20.0, 32), (5, 20.0, 33)])
 def test_event_interval_covers_where_the_deposit_begins(step, amplitude, seed):
-    """Nominal 95 %; tolerance 0.90-0.99 over 200 trials (binomial sd 1.5 %). Before the fix
+    """Nominal 95 %; tolerance 0.90-0.99 over 160 trials (binomial sd 1.7 %). Before the fix
     the interval was uniform over the first anomalous sample, which covered the beginning in
     0.35-0.78 of trials: a deposit beginning late in a sample (in forward time) dilutes it
     below the threshold, and the next younger sample is the first anomalous one. That old
     interval is computed here too and must visibly under-cover."""
-    hits = event_trials(step, amplitude, 200, seed)
+    hits = event_trials(step, amplitude, 160, seed)
     cover, old = hits.mean(axis=0)
-    print(f"{step}-yr samples, spike {amplitude:g} sd: found {hits.shape[0]} of 200, coverage "
+    print(f"{step}-yr samples, spike {amplitude:g} sd: found {hits.shape[0]} of 160, coverage "
           f"{cover:.3f} (uniform over the first anomalous sample: {old:.3f})")
-    assert hits.shape[0] >= 190
+    assert hits.shape[0] >= 150
     assert 0.90 <= cover <= 0.99
     assert old <= 0.85
 
