@@ -54,7 +54,9 @@ BudgetKind = Literal["resolution", "detection", "timescale", "tie", "bridge", "c
                      "sync"]
 #: Machine keys of the what-if rows (the sentences shown to people are in ``align.lag``).
 WhatIfKey = Literal["halve_resolution_a", "halve_resolution_b", "halve_ties", "double_ties",
-                    "no_timescale", "halve_sync"]
+                    "no_timescale", "halve_sync", "other_counting_model", "bridge_rate_half",
+                    "bridge_rate_double", "timescale_fully_correlated",
+                    "timescale_independent"]
 #: Machine keys of a synchrony result's what-if rows (the sentences are in ``align.synchrony``).
 SynchronyWhatIfKey = Literal["without_top_outlier", "independent_chronologies_only",
                              "each_chronology_once"]
@@ -96,6 +98,13 @@ DEFAULT_OUTLIER_PRIOR = 0.05
 #: Bounds on counts (also the schema's ``ge``/``le``).
 MIN_ONSET_DRAWS, MAX_ONSET_DRAWS = 100, 100_000
 MIN_LAG_DRAWS, MAX_LAG_DRAWS = 1000, 1_000_000
+
+#: Age scale (yr) over which the errors of a modelled timescale given only as an sd stay
+#: correlated (correlation ``exp(-|age1 - age2| / scale)``), when the request gives none: about
+#: the spacing of the dated levels behind a modelled age-depth relation (common practice);
+#: the lag states it as an assumption and shows fully correlated and independent errors as
+#: what-if rows.
+DEFAULT_AGE_ERROR_SCALE = 1000.0
 
 
 def options(choice):

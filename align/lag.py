@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from align.detect import detect_marker
-from align.choices import DEFAULT_SYNC_SD
+from align.choices import DEFAULT_AGE_ERROR_SCALE, DEFAULT_SYNC_SD
 from align.errors import InputError
 from align.io import open_record
 from align.transforms import marker_variable
@@ -31,7 +31,7 @@ from align.markers.onset import flag_ramp_ratio, midpoint_lag_note
 from align.schema import (BudgetItem, Histogram, LagFigures, LagRequest, LagResult, LagSummary,
                           Model, RecordExcerpt, WhatIf, validate_as)
 from align.ties import bridge_variance, read_ties, transfer
-from align.timescale import ensemble_at, error_covariance, mce_covariance
+from align.timescale import ensemble_at, error_covariance, layer_sd, mce_covariance
 
 CAUTION = ("A lag within its uncertainty does not establish cause or its absence; even a "
            "resolved lag shows order, not cause.")
@@ -102,7 +102,8 @@ def lag_request(a, b=None, **options):
 
 
 def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=None,
-                 timescale_model=None, bridge_rate=None, sync_sd=None, sources=None):
+                 timescale_model=None, bridge_rate=None, sync_sd=None, age_error_scale=None,
+                 sources=None):
     """Estimate the lag between two markers with a full uncertainty budget.
 
     Parameters
@@ -126,6 +127,10 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     sync_sd : float, optional
         Synchronisation error (1 sd, yr) between two cores on one shared timescale (default
         :data:`align.choices.DEFAULT_SYNC_SD`, stated in the assumptions).
+    age_error_scale : float, optional
+        Age scale (yr) over which the errors of a timescale given only as an sd stay
+        correlated (default :data:`align.choices.DEFAULT_AGE_ERROR_SCALE`, stated in the
+        assumptions; see :func:`align.timescale.sd_covariance`).
     sources : Sources, optional
         Where records and ties come from (the HTTP service passes its store).
 
@@ -138,7 +143,8 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     """
     request, found = lag_request(a, b, ties=ties, draws=draws, seed=seed,
                                  age_reference=age_reference, timescale_model=timescale_model,
-                                 bridge_rate=bridge_rate, sync_sd=sync_sd)
+                                 bridge_rate=bridge_rate, sync_sd=sync_sd,
+                                 age_error_scale=age_error_scale)
     sources = sources or found
     seed = resolve_seed(request.seed)
     request = request.model_copy(update={"seed": seed})
@@ -163,13 +169,17 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     n = request.draws
     age_a, age_b = kind_a.center(marker_a), kind_b.center(marker_b)
     center = age_a - age_b
-    parts = (kind_a.parts(marker_a, "a", +1.0, n, rng) + kind_b.parts(marker_b, "b", -1.0, n, rng)
-             + _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng))
+    own = kind_a.parts(marker_a, "a", +1.0, n, rng) + kind_b.parts(marker_b, "b", -1.0, n, rng)
+    state = rng.bit_generator.state  # the timescale parts' draws, repeated by the what-ifs
+    timing = (relation, rec_a, rec_b, age_a, age_b)
+    parts = own + _timescale_parts(*timing, request, n, rng)
     lag = center + sum(p.draws for p in parts)
-    unequal_ramps = flag_ramp_ratio(marker_a, marker_b)
+    others = [(key, change, center + sum(p.draws for p in own + _timescale_parts(
+        *timing, other, n, _generator(state))))
+        for key, change, other in _other_timescales(relation, rec_a, rec_b, parts, request)]
     result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
-                     tie_table, seed)
-    if unequal_ramps:
+                     tie_table, seed, others)
+    if flag_ramp_ratio(marker_a, marker_b):
         result.assumptions[-1:-1] = midpoint_lag_note(request, sources)
     result._draws = lag
     result._shared = [term for p in parts if isinstance(p, JointPart) for term in p.terms]
@@ -273,10 +283,10 @@ def _timescale_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng):
 def _error_parts(relation, rec_a, rec_b, age_a, age_b, request, n, rng):
     model = request.timescale_model
     if relation in ("same record", "same timescale"):
-        return _within_one(rec_a, age_a, age_b, model, n, rng,
+        return _within_one(rec_a, age_a, age_b, request, n, rng,
                            "timescale: error between the two markers")
     if relation == "tied":
-        return (_within_one(rec_a, age_a, age_b, model, n, rng,
+        return (_within_one(rec_a, age_a, age_b, request, n, rng,
                             f"timescale of {record_name(rec_a)}: error between the markers")
                 + _tie_parts(rec_b, age_b, n, rng))
     if relation == "shared timescale":
@@ -292,8 +302,13 @@ def _shared_parts(rec_a, rec_b, age_a, age_b, request, n, rng):
     carries = [uncertainty_kind(r) != "none" for r in (rec_a, rec_b)]
     profile_a = rec_a if carries[0] or not carries[1] else rec_b
     profile_b = rec_b if carries[1] else profile_a
-    sig = [_sigma_at(profile_a, age_a), _sigma_at(profile_b, age_b)]
-    e = _bivariate(mce_covariance(2.0 * np.array(sig), request.timescale_model), n, rng)
+    sig = np.array([_sigma_at(profile_a, age_a), _sigma_at(profile_b, age_b)])
+    counted = all(uncertainty_kind(p) == "mce" for p in (profile_a, profile_b))
+    # an sd profile (a record synchronised onto the timescale) keeps its sd at each marker
+    cov = (mce_covariance(2.0 * sig, request.timescale_model) if counted
+           else np.outer(sig, sig) if request.timescale_model == "correlated"
+           else np.minimum.outer(sig, sig) ** 2)
+    e = _bivariate(cov, n, rng)
     return [Part(f"shared timescale ({rec_a.attrs.get('timescale')}): error between the "
                  "markers", "timescale", None, e[:, 0] - e[:, 1]),
             Part(f"synchronisation of {record_name(rec_a)} and {record_name(rec_b)} "
@@ -311,8 +326,9 @@ def _bivariate(cov, n, rng):
     return rng.standard_normal((n, 2)) @ (vecs * np.sqrt(np.clip(vals, 0, None))).T
 
 
-def _within_one(record, age_a, age_b, model, n, rng, name):
-    """Errors of one timescale at two positions: only their difference enters the lag."""
+def _within_one(record, age_a, age_b, request, n, rng, name):
+    """Errors of one timescale at two positions: only their difference enters the lag (an
+    sd-only timescale's errors correlated over ``request.age_error_scale``)."""
     kind = uncertainty_kind(record)
     if kind == "none":
         return []
@@ -321,7 +337,8 @@ def _within_one(record, age_a, age_b, model, n, rng, name):
         pick = rng.integers(0, members.shape[0], n)
         diff = (members[pick, 0] - age_a) - (members[pick, 1] - age_b)
         return [Part(f"{name} (age ensemble, member-paired)", "timescale", None, diff)]
-    e = _bivariate(error_covariance(record, [age_a, age_b], model), n, rng)
+    e = _bivariate(error_covariance(record, [age_a, age_b], request.timescale_model,
+                                    request.age_error_scale), n, rng)
     return [Part(name, "timescale", None, e[:, 0] - e[:, 1])]
 
 
@@ -335,10 +352,51 @@ def _absolute(record, age, label, sign, n, rng, model):
         return Part(name + ", age ensemble", "timescale", label,
                     sign * (members[rng.integers(0, members.size, n)] - age))
     ident = record.attrs.get("source_checksum") or record_name(record)
-    per_core = uncertainty_kind(record) == "mce" and model == "correlated"
+    counted = uncertainty_kind(record) == "mce"
+    per_core = counted and model == "correlated"
     key = ("timescale", ident) if per_core else ("timescale", ident, round(float(age), 1))
-    return joint_part(name, "timescale", label,
-                      [(key, sign * _sigma_at(record, age), rng.standard_normal(n))])
+    sd = (float(np.sqrt(mce_covariance([2.0 * _sigma_at(record, age)], model)[0, 0]))
+          if counted else _sigma_at(record, age))
+    return joint_part(name, "timescale", label, [(key, sign * sd, rng.standard_normal(n))])
+
+
+def _generator(state):
+    """A generator at a saved ``bit_generator.state``: the same draws again."""
+    rng = np.random.default_rng()
+    rng.bit_generator.state = state
+    return rng
+
+
+def _other_timescales(relation, rec_a, rec_b, parts, request):
+    """The what-if rows that redraw the timescale parts under another assumption, as
+    ``(key, change, request)``: the other counting-error model when a counted timescale
+    enters the lag; fully correlated and independent errors of an sd-only timescale within
+    one core."""
+    kinds = {p.kind for p in parts}
+    records = [r for r in (rec_a, rec_b) if r is not None]
+    out = []
+    if "timescale" in kinds and any(uncertainty_kind(r) == "mce" for r in records):
+        other = OTHER_MODEL[request.timescale_model]
+        out.append(("other_counting_model", f"the {other} counting-error model instead of the "
+                    f"{request.timescale_model} one",
+                    request.model_copy(update={"timescale_model": other})))
+    if "timescale" in kinds and _sd_within_one(relation, rec_a):
+        out += [("timescale_fully_correlated", "errors of the sd-only timescale fully "
+                 "correlated (one shift of the whole core)",
+                 request.model_copy(update={"age_error_scale": np.inf})),
+                ("timescale_independent", "errors of the sd-only timescale independent "
+                 "between depths", request.model_copy(update={"age_error_scale": 0.0}))]
+    return out
+
+
+#: The other layer-counting error model of each.
+OTHER_MODEL = {"correlated": "random-walk", "random-walk": "correlated"}
+
+
+def _sd_within_one(relation, record):
+    """True when one sd-only timescale's errors at both markers enter the lag."""
+    return (relation in ("same record", "same timescale", "tied") and record is not None
+            and uncertainty_kind(record) == "sd" and "age_ensemble" not in record)
 
 
 def _tie_parts(moved, age_b, n, rng):
@@ -410,11 +468,17 @@ WHAT_IFS = {
                      lambda p: 0.0 if p.kind == "timescale" else 1.0),
     "halve_sync": ("halve the synchronisation error between the cores",
                    lambda p: 0.5 if p.kind == "sync" else 1.0),
+    # the bridge variance is proportional to its rate (align.ties.bridge_variance)
+    "bridge_rate_half": ("halve the bridge rate between ties",
+                         lambda p: np.sqrt(0.5) if p.kind == "bridge" else 1.0),
+    "bridge_rate_double": ("double the bridge rate between ties",
+                           lambda p: np.sqrt(2.0) if p.kind == "bridge" else 1.0),
 }
 #: The budget kind each what-if row acts on (rows for kinds absent from a lag are left out).
 WHAT_IF_KIND = {"halve_resolution_a": "resolution", "halve_resolution_b": "resolution",
                 "halve_ties": "tie", "double_ties": "bridge", "no_timescale": "timescale",
-                "halve_sync": "sync"}
+                "halve_sync": "sync", "bridge_rate_half": "bridge",
+                "bridge_rate_double": "bridge"}
 
 
 def what_if_for(kind, owner):
@@ -424,17 +488,51 @@ def what_if_for(kind, owner):
     return next((key for key, k in WHAT_IF_KIND.items() if k == kind), None)
 
 
-def _what_ifs(center, parts):
+def _what_ifs(center, parts, others=()):
+    """What-if rows: each scaling row of :data:`WHAT_IFS` whose kind is present, then the
+    ``others`` (``(key, change, lag draws)``) redrawn under another timescale assumption."""
     present = {(p.kind, p.owner) for p in parts} | {(p.kind, None) for p in parts}
-    out = []
+    rows = []
     for key, (change, scale) in WHAT_IFS.items():
         owner = key[-1] if WHAT_IF_KIND[key] == "resolution" else None
-        if (WHAT_IF_KIND[key], owner) not in present:
-            continue
-        lag = center + sum(scale(p) * p.draws for p in parts)
+        if (WHAT_IF_KIND[key], owner) in present:
+            rows.append((key, change, center + sum(scale(p) * p.draws for p in parts)))
+    out = []
+    for key, change, lag in rows + list(others):
         lo, hi = np.percentile(lag, [2.5, 97.5])
         out.append(WhatIf(key=key, change=change, ci95=[float(lo), float(hi)],
                           width=float(hi - lo)))
+    return out
+
+
+def _side(ci95):
+    """+1, -1 or 0: an interval above zero, below it, or holding it."""
+    return 1 if ci95[0] > 0 else -1 if ci95[1] < 0 else 0
+
+
+def _sensitivity(what_if, summary, request):
+    """Sentences for the what-if rows that redraw or rescale an assumption of the model."""
+    rows = {w.key: w for w in what_if}
+    out = []
+    if "other_counting_model" in rows:
+        w = rows["other_counting_model"]
+        other = OTHER_MODEL[request.timescale_model]
+        out.append(f"Under the other counting-error model ({other}) the 95 % "
+                   f"interval would be {w.ci95[0]:.0f} to {w.ci95[1]:.0f} years.")
+    if "bridge_rate_half" in rows:
+        half, double = rows["bridge_rate_half"], rows["bridge_rate_double"]
+        out.append(f"With the bridge rate halved the 95 % interval would be {half.ci95[0]:.0f} "
+                   f"to {half.ci95[1]:.0f} years; doubled, {double.ci95[0]:.0f} to "
+                   f"{double.ci95[1]:.0f} years.")
+    if "timescale_fully_correlated" in rows:
+        full, free = rows["timescale_fully_correlated"], rows["timescale_independent"]
+        out.append(f"With the sd-only timescale's errors fully correlated the 95 % interval "
+                   f"would be {full.ci95[0]:.0f} to {full.ci95[1]:.0f} years; independent "
+                   f"between depths, {free.ci95[0]:.0f} to {free.ci95[1]:.0f} years.")
+        if len({_side(summary.ci95), _side(full.ci95), _side(free.ci95)}) > 1:
+            out.append("The verdict changes between fully correlated and independent timescale "
+                       "errors: an age ensemble from the age model (age_ensemble) would carry "
+                       "the real correlation and decide it.")
     return out
 
 
@@ -458,10 +556,7 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, request):
     if "mce" in kinds:
         out.append("The maximum counting error of a layer-counted timescale is taken as 2 sigma "
                    "(Andersen et al. 2006; common practice).")
-        out.append(f"Counting errors follow the {model} model: "
-                   + ("one systematic bias growing with depth, so two nearby depths share "
-                      "almost all of it." if model == "correlated" else
-                      "independent increments between depths."))
+        out.append(_counting_sentence(model, rec_a, rec_b))
     if relation == "tied":
         out.append(f"{record_name(rec_b)} is on the timescale of {record_name(rec_a)} through "
                    f"tie points; between ties a Brownian bridge with rate "
@@ -479,15 +574,37 @@ def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, request):
                        "its counting error is not included.")
     if relation == "independent":
         out.append("The two timescales are independent: both absolute timescale errors count.")
-    if "sd" in kinds and relation in ("same record", "same timescale"):
-        out.append("A modelled timescale given only as an sd is treated as independent between "
-                   "depths (conservative); an age ensemble would carry its real correlation.")
+    if _sd_within_one(relation, rec_a):
+        scale = request.age_error_scale
+        how = ("default, common practice: about the spacing of dated levels; set "
+               "age_error_scale" if scale == DEFAULT_AGE_ERROR_SCALE
+               and "age_error_scale" not in request.model_fields_set else "as requested")
+        out.append(f"The timescale of {record_name(rec_a)} is given only as an sd: its errors "
+                   f"at two depths are correlated as exp(-|age difference| / {scale:g} yr) "
+                   f"({how}); an age ensemble would carry the age model's real correlation.")
     for label, marker in (("a", marker_a), ("b", marker_b)):
         out += kind_of(marker.kind).assumptions(marker, label)
     out.append("What-if rows scale only the named term (halving a sample interval halves the "
-               "resolution terms; the fit noise is kept).")
+               "resolution terms; the fit noise is kept); rows for another counting-error model "
+               "or timescale correlation redraw the timescale terms from the same random "
+               "numbers.")
     out.append(CAUTION)
     return out
+
+
+def _counting_sentence(model, rec_a, rec_b):
+    """The counting-error model in words, with the miscount per year of ice it implies."""
+    if model == "correlated":
+        return (f"Counting errors follow the {model} model: one systematic bias growing with "
+                "depth, so two nearby depths share almost all of it.")
+    per_layer = [float(np.median(layer_sd(r["age_mce"].values, r["age"].values)))
+                 for r in (rec_a, rec_b)
+                 if r is not None and "age_mce" in r and r.sizes["sample"] > 1]
+    implied = (f" (a miscount sd of {max(per_layer):.2g} yr per year of ice on this record's "
+               "MCE profile, median over its samples)" if per_layer else "")
+    return (f"Counting errors follow the {model} model: each uncertain layer (counted as "
+            "0.5 +- 0.5 yr, Andersen et al. 2006) is an independent error of sd 0.5 yr, so the "
+            f"variance grows by half the MCE's increase{implied}.")
 
 
 def _shared_assumptions(rec_a, rec_b, request):
@@ -536,7 +653,7 @@ def _excerpt(record, marker, label):
 
 
 def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b, ties,
-            seed):
+            seed, others=()):
     summary = lag_summary(lag)
     variances = np.array([np.var(p.draws) for p in parts])
     total = float(variances.sum()) or 1.0
@@ -557,11 +674,14 @@ def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, re
     if ties is not None:
         inputs.append({"role": "ties", "source": ties.source, "sha256": ties.checksum,
                        "timescale": ""})
+    what_if = _what_ifs(center, parts, others)
+    assumptions = _assumptions(relation, rec_a, rec_b, marker_a, marker_b, request)
+    assumptions[-1:-1] = _sensitivity(what_if, summary, request)  # before the caution
     return LagResult(
         request=request, lag=summary, a=marker_a, b=marker_b, relation=relation, budget=budget,
         budget_total_sd=float(np.sqrt(total)), resolution_floor=floor,
-        what_if=_what_ifs(center, parts), verdict=text, resolvable_lag=resolvable,
-        assumptions=_assumptions(relation, rec_a, rec_b, marker_a, marker_b, request),
+        what_if=what_if, verdict=text, resolvable_lag=resolvable,
+        assumptions=assumptions,
         references=_references(relation, rec_a, rec_b, marker_a, marker_b),
         age_reference=request.age_reference,
         figures=LagFigures(lag_histogram=Histogram(edges=edges.tolist(),

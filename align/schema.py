@@ -18,7 +18,7 @@ from pydantic import ConfigDict, Field, PrivateAttr, create_model
 from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_CORRELATION_METHOD,
                            DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
                            DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_SYNC_SD,
-                           DEFAULT_TIMESCALE_MODEL,
+                           DEFAULT_TIMESCALE_MODEL, DEFAULT_AGE_ERROR_SCALE,
                            DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MAX_SITES, MIN_LAG_DRAWS,
                            AgeConvention, BudgetKind, CorrelationMethod, EventPick, GridAxis,
                            OnsetDirection,
@@ -167,6 +167,9 @@ class LagRequest(Model):
     sync_sd: float = Field(DEFAULT_SYNC_SD, ge=0, description="synchronisation error (1 sd, "
                            "yr) between two cores on one shared timescale; the shared "
                            "timescale's error cancels, this one does not")
+    age_error_scale: float = Field(DEFAULT_AGE_ERROR_SCALE, gt=0, description="age scale "
+                                   "(yr) over which the errors of a timescale given only as "
+                                   "an sd stay correlated: exp(-|age difference| / scale)")
 
 
 class LagSummary(Model):

@@ -67,3 +67,48 @@ def spike_core(rng, event, age_error, *, name, timescale, kind=None, mce=None, s
                         age_bounds=np.column_stack([stated[:-1], stated[1:]]),
                         age_reference="b2k", proxies={"s": (values, {"units": "1"})},
                         attrs=attrs, **uncertainty)
+
+
+
+def spike_in_samples(rng, step, amplitude, *, years=600, start=10_000, duration=(2, 5)):
+    """A record of ``step``-yr samples (exact means of an annual series) holding a spike that
+    begins at a known moment.
+
+    Generator: annual values ``100 + N(0, 1)``, year ``k`` (an integer, b2k) covering the
+    ages ``[k, k + 1]``. The anomalous deposit begins at the age ``T``, uniform over the middle
+    third of the record (so uniformly random within its year and within its sample), and
+    lasts ``d`` yr (``d`` uniform in ``duration``): each year gets the spike in proportion to
+    the part of it inside ``[T - d, T]``. The spike's height is ``amplitude`` sd *of one
+    sample* (``amplitude / sqrt(step)`` annual sd), so a sample it fills stands out alike at
+    every step. Samples are the means of ``step`` consecutive years; their age bounds are
+    the years' outer bounds. Returns ``(record, T)``.
+    """
+    annual = 100.0 + rng.normal(0.0, 1.0, years)  # index j: the year start + j
+    onset = rng.uniform(start + years / 3, start + 2 * years / 3)
+    d = rng.uniform(*duration)
+    year = start + np.arange(years)
+    inside = np.clip(np.minimum(year + 1, onset) - np.maximum(year, onset - d), 0.0, 1.0)
+    annual += inside * amplitude / np.sqrt(step)
+    n = years // step
+    values = annual[:n * step].reshape(n, step).mean(axis=1)
+    edges = start + step * np.arange(n + 1, dtype=float)
+    return build_record(age=0.5 * (edges[1:] + edges[:-1]),
+                        age_bounds=np.column_stack([edges[:-1], edges[1:]]),
+                        age_reference="b2k",
+                        proxies={"s": (values, {"units": "ng/g"})}), onset
+
+
+def ou_age_error(rng, sd, scale, span=(9_900.0, 11_100.0), step=50.0):
+    """An age-model error of a known age scale: an Ornstein-Uhlenbeck process (sd ``sd`` yr,
+    correlation ``exp(-|dt| / scale)``) drawn exactly at knots ``step`` yr apart by its AR(1)
+    recursion, linear between them (so the ages stay monotonic: the error's slope has sd
+    ``sd sqrt(2 / (scale step))``); exact at the knots, slightly smoother between. Returns a
+    function of true age."""
+    t = np.arange(span[0], span[1] + step, step)
+    rho = np.exp(-step / scale)
+    from scipy.signal import lfilter
+
+    shocks = rng.normal(0.0, sd * np.sqrt(1.0 - rho**2), t.size)
+    shocks[0] = rng.normal(0.0, sd)
+    path = lfilter([1.0], [1.0, -rho], shocks)
+    return lambda age: np.interp(age, t, path)

@@ -102,3 +102,70 @@ def test_false_alarms_on_ngrip_stadial_ice_match_the_nominal_rate(greenland):
           f"nominal {nominal}; at the default rate a false event in {hit:.3f} of segments")
     assert nominal / 2 <= rate <= nominal * 2
     assert hit <= 0.15  # before: 0.73 (Ca) and 0.31 (Na) of windows (issue 13)
+
+
+# --------------------------------------------------------------------------------------------
+# the event's age (issue 13, item 3)
+
+
+def event_trials(step, amplitude, trials, seed):
+    """Generator ``synthetic.spike_in_samples`` (a spike beginning at a uniformly random
+    moment, ``step``-yr means of an annual series, ``amplitude`` sample sd): per trial in which
+    an event was found, (truth inside the 95 % interval, truth inside the picked sample)."""
+    from synthetic import spike_in_samples
+
+    rng = np.random.default_rng(seed)
+    out = []
+    for _ in range(trials):
+        record, onset = spike_in_samples(rng, step, amplitude, years=240)
+        result = detect_event(record, "s")
+        if result.found:
+            lo, hi = result.event.ci95
+            s_lo, s_hi = result.sample.age_interval
+            out.append((lo <= onset <= hi, s_lo + 0.025 * (s_hi - s_lo) <= onset
+                        <= s_hi - 0.025 * (s_hi - s_lo)))
+    return np.array(out)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("step, amplitude, seed", [(1, 12.0, 31), (2, 20.0, 32), (5, 20.0, 33)])
+def test_event_interval_covers_where_the_deposit_begins(step, amplitude, seed):
+    """Nominal 95 %; tolerance 0.90-0.99 over 160 trials (binomial sd 1.7 %). Before the fix
+    the interval was uniform over the first anomalous sample, which covered the beginning in
+    0.35-0.78 of trials: a deposit beginning late in a sample (in forward time) dilutes it
+    below the threshold, and the next younger sample is the first anomalous one. That old
+    interval is computed here too and must visibly under-cover."""
+    hits = event_trials(step, amplitude, 160, seed)
+    cover, old = hits.mean(axis=0)
+    print(f"{step}-yr samples, spike {amplitude:g} sd: found {hits.shape[0]} of 160, coverage "
+          f"{cover:.3f} (uniform over the first anomalous sample: {old:.3f})")
+    assert hits.shape[0] >= 150
+    assert 0.90 <= cover <= 0.99
+    assert old <= 0.85
+
+
+def test_onset_spread_matches_direct_integration():
+    """Reference: the posterior of the beginning integrated directly with scipy.integrate.quad
+    (uniform prior per year, likelihood phi(z) younger than the older sample and
+    phi(z - H u) inside it); the draws' sd against the estimate's."""
+    from scipy.integrate import quad
+
+    from align.markers.event import onset_spread
+
+    lo, older_lo, older_hi, z, height = 100.0, 105.0, 110.0, 1.3, 9.0
+    spread = onset_spread(lo, older_lo, older_hi, z, height)
+
+    def density(t):
+        u = max(t - older_lo, 0.0) / (older_hi - older_lo)
+        return norm.pdf(z - height * u)
+
+    total = quad(density, lo, older_hi, points=[older_lo])[0]
+    assert spread.p == pytest.approx(quad(density, lo, older_lo)[0] / total, rel=1e-6)
+    for q in (0.5, 0.9, 0.975):
+        age = float(spread.ppf(q))
+        assert quad(density, lo, age, points=[older_lo] if age > older_lo else None)[0] / total \
+            == pytest.approx(q, abs=1e-6)
+    est = spread.estimate()
+    draws = spread.draws(np.random.default_rng(1), 200_000)
+    assert est.sd == pytest.approx(np.std(draws), rel=0.01)
+    assert est.ci95[1] > older_lo  # the beginning may lie in the older sample

@@ -123,16 +123,18 @@ def test_lag_intervals_cover_the_truth(setting, tmp_path):
 
 def test_resolution_terms_equal_the_uniform_sd():
     # event versus event, uniform 2.5-yr and 4-yr samples: each event is uniform over its
-    # sample, so its resolution term has sd h / sqrt(12) (handbook value)
+    # sample (a spike 10^4 noise sd high reaches into the older sample by ~1e-4 of it), so
+    # its resolution term has sd h / sqrt(12) (handbook value)
     edges_a = np.arange(1000.0, 1500.1, 2.5)
     edges_b = np.arange(1000.0, 1500.1, 4.0)
+    noise = np.random.default_rng(0)
     records = []
     for edges, where in ((edges_a, 150), (edges_b, 80)):
         values = np.ones(edges.size - 1)
         values[where] = 100.0
         records.append(build_record(age=0.5 * (edges[1:] + edges[:-1]), age_reference="b2k",
                                     age_bounds=np.column_stack([edges[:-1], edges[1:]]),
-                                    proxies={"s": (values + np.linspace(0, 1e-3, values.size),
+                                    proxies={"s": (values + noise.normal(0, 1e-2, values.size),
                                                    {"units": "1"})},
                                     attrs={"core": f"C{where}"}))
     result = estimate_lag({"kind": "event", "record": records[0], "variable": "s",

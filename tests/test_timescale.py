@@ -34,8 +34,9 @@ def test_published_mce_relative_and_absolute_sd(greenland):
     rel = np.sqrt(cov[0, 0] + cov[1, 1] - 2 * cov[0, 1])
     assert rel == pytest.approx(43.5, abs=1e-9)
     assert relative_sd(99, 186) == pytest.approx((186 - 99) / 2)
-    # the independent-increment model: relative variance = difference of variances
-    assert relative_sd(99, 186, "random-walk") == pytest.approx(np.sqrt(93**2 - 49.5**2))
+    # the independent-layer model: 2 MCE uncertain layers of sd 0.5 yr (Andersen et al. 2006's
+    # 0.5 +- 0.5 yr per uncertain layer), so the relative variance is (186 - 99) / 2 yr^2
+    assert relative_sd(99, 186, "random-walk") == pytest.approx(np.sqrt((186 - 99) / 2))
 
 
 def test_covariance_models_are_positive_semidefinite():
@@ -60,7 +61,8 @@ def test_counted_ensemble_monotonic_and_spread_matches(model, small_blocks):
     ens = age_ensemble(ice, members, seed=5, model=model).values
     assert ens.shape == (ice.sizes["sample"], members)
     assert np.all(np.diff(ens, axis=0) >= 0), "a member has an age reversal"
-    sd = ice.age_mce.values / 2
+    # correlated: MCE / 2; random walk: 2 MCE uncertain layers of sd 0.5 yr each
+    sd = ice.age_mce.values / 2 if model == "correlated" else np.sqrt(ice.age_mce.values / 2)
     spread = ens.std(axis=1)
     # sampling error of an sd from n draws: sd / sqrt(2 (n - 1)); allow 4 of them
     np.testing.assert_allclose(spread, sd, rtol=4 / np.sqrt(2 * (members - 1)))

@@ -1,18 +1,25 @@
 """Events: where a spike begins.
 
-An *event* is the moment an event signal begins: the oldest sample of the first anomalous run
-in forward time. Its age is known only to within that sample's age interval, so its
-distribution is uniform over it (sd ``h / sqrt(12)``). Anomalies are robust z-scores: a
-running-median baseline and a MAD scale (x 1.4826) over a span of the record, on the log of a
-positive proxy by default (sulfate, dust and sea salt are skewed: on their log a spike-free
-background is close to Gaussian). The threshold is calibrated so that the background, modelled
-as Gaussian AR(1) anomalies with the window's own lag-1 autocorrelation, gives the requested
-number of false events per 1000 years (:func:`align.anomaly.calibrated_threshold`); a fixed
-threshold may be given instead, and the false-alarm rate it implies is stated.
+An *event* is the moment an event signal begins: the age at which the anomalous deposit starts
+(a moment within the first year of the deposit), found from the oldest sample of the first
+anomalous run in forward time. That sample need not hold the beginning: a deposit that begins
+late in a sample (in forward time) fills only part of it, and the diluted anomaly may stay
+below the threshold, so the first anomalous sample is the next younger one. The event's age is
+therefore spread over the first anomalous sample (uniformly) and over the older neighbour,
+weighted by how much of the spike that neighbour's own anomaly allows (see
+:func:`onset_spread`). With ``pick="peak"`` the event is the run's peak sample, uniform over
+it. Anomalies are robust z-scores: a running-median baseline and a MAD scale (x 1.4826) over a
+span of the record, on the log of a positive proxy by default (sulfate, dust and sea salt are
+skewed: on their log a spike-free background is close to Gaussian). The threshold is calibrated
+so that the background, modelled as Gaussian AR(1) anomalies with the window's own lag-1
+autocorrelation, gives the requested number of false events per 1000 years
+(:func:`align.anomaly.calibrated_threshold`); a fixed threshold may be given instead, and the
+false-alarm rate it implies is stated.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
@@ -88,6 +95,13 @@ class EventResult(MarkerBase):
     scale: float
     pick: EventPick
     direction: EventDirection
+    older_sample: MarkerSample | None = Field(
+        None, description="the sample just older than the first anomalous one, where a "
+        "beginning too diluted to pass the threshold may lie (pick 'first' only)")
+    spike_height: float | None = Field(None, description="robust z of a sample the spike "
+                                       "fills: the run's peak z")
+    p_in_sample: float = Field(1.0, description="probability that the deposit begins in "
+                               "the picked sample rather than in the older one")
 
     @property
     def age(self):
@@ -203,7 +217,10 @@ def detect_event(record, variable, window=None, *, threshold=None,
                   method=(f"robust z-score of {on} > {threshold:.3g} ({rule} under an AR(1) "
                           f"background, lag-1 autocorrelation {persistence:.2f}; running median "
                           f"over {span:g} yr, MAD x 1.4826), first anomalous run in forward "
-                          "time"),
+                          "time; "
+                          + ("the event is the moment its deposit begins: in its oldest "
+                             "sample or, diluted below the threshold, in the next older one"
+                             if pick == "first" else "the event is the run's peak sample")),
                   candidates=candidates, threshold=float(threshold),
                   false_alarms=float(false_alarms), threshold_calibrated=calibrated,
                   background=scale_kind, persistence=persistence, baseline_years=span,
@@ -220,12 +237,123 @@ def detect_event(record, variable, window=None, *, threshold=None,
     lo, hi = float(bounds[i, 0]), float(bounds[i, 1])
     note = (f"{len(runs)} candidate runs; the oldest is taken" if len(runs) > 1
             else "one anomalous run")
+
+    def sample(j):
+        return MarkerSample(index=int(j), age_interval=[float(bounds[j, 0]),
+                                                        float(bounds[j, 1])],
+                            depth=None if depth is None else float(depth[j]),
+                            value=float(values[j]), z=float(z[j]))
+
+    older = {}
+    if pick == "first" and i + 1 < age.size and np.isfinite(z[i + 1]):
+        height = float(np.nanmax(z[first:last + 1]))
+        spread = onset_spread(lo, bounds[i + 1, 0], bounds[i + 1, 1], z[i + 1], height)
+        older = dict(older_sample=sample(i + 1), spike_height=height, p_in_sample=spread.p)
+        estimate = spread.estimate()
+    else:
+        estimate = uniform_estimate(lo, hi)
     return EventResult(
-        found=True, message=f"event found ({note})", event=uniform_estimate(lo, hi),
-        sample=MarkerSample(index=int(i), age_interval=[lo, hi],
-                            depth=None if depth is None else float(depth[i]),
-                            value=float(values[i]), z=float(z[i])),
-        sample_interval=hi - lo, depth=None if depth is None else float(depth[i]), **common)
+        found=True, message=f"event found ({note})", event=estimate, sample=sample(i),
+        sample_interval=hi - lo, depth=None if depth is None else float(depth[i]), **older,
+        **common)
+
+
+@dataclass(frozen=True)
+class OnsetSpread:
+    """Where an anomalous deposit begins: uniform over ``[lo, edge]`` with probability ``p``,
+    else ``edge + (hi - edge) u`` with ``u`` normal (``mu``, ``sigma``) truncated to [0, 1]."""
+
+    lo: float
+    edge: float
+    hi: float
+    p: float
+    mu: float
+    sigma: float
+
+    def _u(self):
+        from scipy.stats import truncnorm
+
+        return truncnorm((0.0 - self.mu) / self.sigma, (1.0 - self.mu) / self.sigma,
+                         loc=self.mu, scale=self.sigma)
+
+    def ppf(self, q):
+        """Ages (yr) at probabilities ``q``."""
+        q = np.asarray(q, dtype=float)
+        inner = self.lo + (self.edge - self.lo) * np.clip(q / max(self.p, 1e-300), 0, 1)
+        if self.p >= 1.0:
+            return inner
+        outer = self.edge + (self.hi - self.edge) * self._u().ppf(
+            np.clip((q - self.p) / (1.0 - self.p), 0.0, 1.0))
+        return np.where(q <= self.p, inner, outer)
+
+    def draws(self, rng, n):
+        """``n`` ages (yr)."""
+        return self.ppf(rng.uniform(0.0, 1.0, n))
+
+    def estimate(self):
+        from align.schema_base import Estimate
+
+        q = self.ppf([0.025, 0.16, 0.5, 0.84, 0.975])
+        m1, v1 = 0.5 * (self.lo + self.edge), (self.edge - self.lo) ** 2 / 12.0
+        w = self.hi - self.edge
+        mu, var = self._u().stats("mv")
+        m2, v2 = self.edge + w * float(mu), w**2 * float(var)
+        mean = self.p * m1 + (1 - self.p) * m2
+        sd = np.sqrt(self.p * (v1 + (m1 - mean) ** 2) + (1 - self.p) * (v2 + (m2 - mean) ** 2))
+        return Estimate(median=float(q[2]), ci68=[float(q[1]), float(q[3])],
+                        ci95=[float(q[0]), float(q[4])], sd=float(sd))
+
+
+def onset_spread(lo, older_lo, older_hi, z_older, height):
+    """Where a deposit begins, given the first anomalous sample and its older neighbour.
+
+    Parameters
+    ----------
+    lo : float
+        Young bound (yr) of the first anomalous sample.
+    older_lo, older_hi : float
+        Age bounds (yr) of the next older sample (a gap between the two is taken with the
+        first sample: no spike reaches the older sample from there).
+    z_older : float
+        The older sample's robust z.
+    height : float
+        Robust z of a sample the spike fills (the run's peak z).
+
+    Returns
+    -------
+    OnsetSpread
+
+    Notes
+    -----
+    The beginning ``T`` is uniform a priori per year over ``[lo, older_hi]``. Starting in the
+    older sample a fraction ``u = (T - older_lo) / w`` before its young end, a spike of full
+    height ``H`` (in z) adds ``H u`` to that sample's z; starting younger, nothing. With unit
+    noise, the likelihood of the older sample's ``z`` is ``phi(z)`` for every ``T`` younger
+    than ``older_lo`` and ``phi(z - H u)`` inside the older sample, so ``u`` is normal
+    (``z / H``, ``1 / H``) truncated to [0, 1] and the probability of the younger part is
+    ``(older_lo - lo) phi(z) / [(older_lo - lo) phi(z) + (w / H) (Phi(H - z) - Phi(-z))]``.
+    The first anomalous sample's own z is not used to place ``T`` inside it (its share
+    depends on the spike's unknown duration), which keeps the interval on the safe side.
+    """
+    from scipy.stats import norm
+
+    height = max(float(height), 1e-6)
+    w = float(older_hi - older_lo)
+    young = float(older_lo - lo) * norm.pdf(z_older)
+    old = w / height * (norm.cdf(height - z_older) - norm.cdf(-z_older))
+    p = young / (young + old) if young + old > 0 else 1.0
+    return OnsetSpread(float(lo), float(older_lo), float(older_hi), float(p),
+                       float(z_older / height), 1.0 / height)
+
+
+def spread_of(marker):
+    """The :class:`OnsetSpread` of an event result (uniform over its sample when it was
+    picked at its peak or has no older neighbour)."""
+    lo, hi = marker.sample.age_interval
+    if marker.older_sample is None:
+        return OnsetSpread(lo, hi, hi, 1.0, 0.5, 1.0)
+    older_lo, older_hi = marker.older_sample.age_interval
+    return onset_spread(lo, older_lo, older_hi, marker.older_sample.z, marker.spike_height)
 
 
 def _background_scale(values, background, variable):
@@ -260,13 +388,16 @@ class Event(MarkerKind):
                              "threshold or move the window)", field=f"{label}.window")
 
     def center(self, marker):
-        return float(np.mean(marker.sample.age_interval))
+        # the median of where the deposit begins (the sample's mid-point when uniform over it)
+        return float(marker.event.median)
 
     def parts(self, marker, label, sign, n, rng):
         lo, hi = marker.sample.age_interval
-        return [Part(f"{self.part_name(marker, label)}: position within its sample "
-                     f"({hi - lo:.3g} yr)", "resolution", label,
-                     sign * rng.uniform(-(hi - lo) / 2, (hi - lo) / 2, n))]
+        where = ("position within its sample" if marker.older_sample is None else
+                 "where the deposit begins: its first anomalous sample or the older one")
+        return [Part(f"{self.part_name(marker, label)}: {where} ({hi - lo:.3g} yr)",
+                     "resolution", label,
+                     sign * (spread_of(marker).draws(rng, n) - self.center(marker)))]
 
     def assumptions(self, marker, label):
         if marker.false_alarms is None:  # a result written before thresholds were calibrated
@@ -274,12 +405,24 @@ class Event(MarkerKind):
                     "first anomalous sample."]
         on = "the log of the proxy" if marker.background == "log" else "the proxy values"
         how = ("calibrated to" if marker.threshold_calibrated else "fixed, implying")
-        return [f"Marker {label}: the event's age is uniform over the age interval of its first "
-                "anomalous sample.",
+        return [self._meaning(marker, label),
                 f"Marker {label}: the detection threshold ({marker.threshold:.3g} robust sd) is "
                 f"{how} {marker.false_alarms:.3g} false events per 1000 years of background, "
                 f"modelled on {on} as Gaussian AR(1) anomalies (lag-1 autocorrelation "
                 f"{marker.persistence:.2f})."]
+
+    @staticmethod
+    def _meaning(marker, label):
+        if marker.older_sample is None:
+            return (f"Marker {label}: the event's age is uniform over the age interval of its "
+                    f"{'peak' if marker.pick == 'peak' else 'first anomalous'} sample.")
+        return (f"Marker {label}: the event's age is the moment the anomalous deposit begins "
+                "(a moment within the first year of the deposit). It lies in the first "
+                f"anomalous sample (probability {marker.p_in_sample:.2f}, uniform over it) or "
+                "in the older sample, into which a spike of the run's peak height "
+                f"({marker.spike_height:.3g} robust sd, full strength from its start) may "
+                "reach no further than that sample's own anomaly "
+                f"(z = {marker.older_sample.z:.2f}) allows.")
 
     def draw(self, ax, marker, colour):
         from align.figures import COLOURS, interval_span
@@ -307,6 +450,11 @@ class Event(MarkerKind):
             lo, hi = marker.sample.age_interval
             lines.append(f"event       {estimate_line(marker.event, ref)}; sample {lo:.1f} to "
                          f"{hi:.1f} (z = {marker.sample.z:.1f})")
+            if marker.older_sample is not None:
+                o_lo, o_hi = marker.older_sample.age_interval
+                lines.append(f"            begins in that sample with probability "
+                             f"{marker.p_in_sample:.2f}, else in the older one {o_lo:.1f} to "
+                             f"{o_hi:.1f} (z = {marker.older_sample.z:.1f})")
         for c in marker.candidates:
             lines.append(f"  candidate {c.age_span[0]:.1f} to {c.age_span[1]:.1f} {ref}: peak z "
                          f"{c.peak_z:.1f}, {c.n_samples} sample(s)")
