@@ -427,3 +427,37 @@ def ramp_levels(t, x, w, t1, t2):
         r = x[k] - a - b * g
         ssr += w[k] * r * r
     return a, a + b, ssr
+
+
+@njit(cache=True, nogil=True)
+def group_by_start(picks, starts):
+    """The rows of ``picks`` (replicates, blocks) grouped by the start they picked (a
+    counting sort): replicate ``rows[head[s]:head[s + 1]]`` picked start ``s`` (once per
+    pick)."""
+    head = np.zeros(starts + 1, dtype=np.int64)
+    for r in range(picks.shape[0]):
+        for k in range(picks.shape[1]):
+            head[picks[r, k] + 1] += 1
+    for s in range(starts):
+        head[s + 1] += head[s]
+    fill = head[:-1].copy()
+    rows = np.empty(picks.size, dtype=np.int32)
+    for r in range(picks.shape[0]):
+        for k in range(picks.shape[1]):
+            s = picks[r, k]
+            rows[fill[s]] = r
+            fill[s] += 1
+    return head, rows
+
+
+@njit(cache=True, nogil=True)
+def sum_picked_rows(head, rows, table, out):
+    """``out[r] += table[s]`` for every pick of start ``s`` by replicate ``r``
+    (:func:`group_by_start`): one pass over ``table`` (starts, columns) in order, the small
+    ``out`` (replicates, columns) staying in cache."""
+    for s in range(head.size - 1):
+        for q in range(head[s], head[s + 1]):
+            r = rows[q]
+            for c in range(table.shape[1]):
+                out[r, c] += table[s, c]
+    return out

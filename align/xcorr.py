@@ -38,6 +38,11 @@ from align.resample import resample
 from align.schema import Curve, PeakLag, SurrogateInfo, XcorrResult
 
 
+#: Lags x grid points of block sums held at once by the block bootstrap.
+BLOCK_SUM_VALUES = 4_000_000
+#: Surrogates x grid points made and correlated at once by the surrogate test.
+SURROGATE_VALUES = 4_000_000
+
 
 # --------------------------------------------------------------------------------------------
 # formulas
@@ -177,7 +182,11 @@ def phase_surrogates(x, size, rng):
     phases[:, 0] = 0.0
     if x.size % 2 == 0:
         phases[:, -1] = 0.0
-    out = np.fft.irfft(np.abs(spectrum) * np.exp(1j * phases), x.size) + filled.mean()
+    amplitude = np.abs(spectrum)
+    rotated = np.empty(phases.shape, dtype=complex)  # amplitude exp(i phase), without the
+    np.multiply(amplitude, np.cos(phases), out=rotated.real)  # complex temporaries
+    np.multiply(amplitude, np.sin(phases), out=rotated.imag)
+    out = np.fft.irfft(rotated, x.size) + filled.mean()
     return np.where(valid, out, np.nan)
 
 
@@ -271,29 +280,31 @@ def block_bootstrap_peaks(numerator, denominator, lags, block, replicates, rng):
 
     Notes
     -----
-    A replicate's curve is ``C B^T`` with ``C`` its count of each block start (a sparse
-    replicates x starts matrix) and ``B`` the block sums of every start (lags x starts, from
-    prefix sums), so no replicate gathers its blocks; ``B`` is made a few lags at a time to
-    bound memory.
+    A replicate's curve is ``C B^T`` with ``C`` its count of each block start and ``B`` the
+    block sums of every start (lags x starts, from prefix sums), so no replicate gathers its
+    blocks: the picks are grouped by start once and ``B`` is swept in order, a few lags at a
+    time to bound memory, adding each start's block sums to the replicates that picked it
+    (:func:`align._kernels.sum_picked_rows`; the replicates' sums stay in cache).
     """
-    from scipy import sparse
+    from align._kernels import group_by_start, sum_picked_rows
 
     n = numerator.shape[1]
     block = int(np.clip(np.ceil(block), 1, max(n // 4, 1)))
     starts = n - block + 1
     picks = rng.integers(0, starts, (replicates, int(np.ceil(n / block))))
-    counts = sparse.csr_matrix((np.ones(picks.size), picks.ravel(),
-                                np.arange(0, picks.size + 1, picks.shape[1])),
-                               shape=(replicates, starts))
-    num = np.empty((replicates, lags.size))
-    den = np.empty((replicates, lags.size))
-    chunk = max(1, 2_000_000 // n)
+    head, rows = group_by_start(picks, starts)
+    sums = np.empty((replicates, 2 * lags.size))
+    chunk = max(1, BLOCK_SUM_VALUES // n)
     for lo in range(0, lags.size, chunk):
-        rows = slice(lo, min(lo + chunk, lags.size))
-        num[:, rows] = counts @ _block_sums(numerator[rows], block).T
-        den[:, rows] = counts @ _block_sums(denominator[rows], block).T
+        part = slice(lo, min(lo + chunk, lags.size))
+        table = np.concatenate([_block_sums(numerator[part], block),
+                                _block_sums(denominator[part], block)]).T.copy()
+        width = part.stop - part.start
+        out = sum_picked_rows(head, rows, table, np.zeros((replicates, 2 * width)))
+        sums[:, part] = out[:, :width]
+        sums[:, lags.size + part.start:lags.size + part.stop] = out[:, width:]
     with np.errstate(invalid="ignore", divide="ignore"):
-        curves = num / den
+        curves = sums[:, :lags.size] / sums[:, lags.size:]
     return np.asarray([refine_peak(lags, curve)[0] for curve in curves
                        if np.isfinite(curve).any()])
 
@@ -410,6 +421,38 @@ def _finite(values):
     return [None if not np.isfinite(v) else float(v) for v in values]
 
 
+def surrogate_curves(curves_of, make, count, length):
+    """Correlation curves of ``count`` surrogates, made and correlated a chunk at a time.
+
+    Parameters
+    ----------
+    curves_of : callable
+        ``curves_of(series)``: the (chunk, lags) curves of a (chunk, ``length``) batch.
+    make : callable
+        ``make(size)``: ``size`` new surrogate series. Drawn in turn from one generator, the
+        surrogates do not depend on the chunk size.
+    count, length : int
+        Surrogates, and grid points per surrogate.
+
+    Returns
+    -------
+    numpy.ndarray (count, lags)
+        Only the curves are kept: memory grows with ``SURROGATE_VALUES``, not with
+        ``count x length``. Progress is reported per chunk when reporting is on.
+    """
+    from align.progress import steps
+
+    per = max(1, SURROGATE_VALUES // max(length, 1))
+    progress = steps("surrogate test", count, "surrogates")
+    parts = []
+    for done in range(0, count, per):
+        size = min(per, count - done)
+        parts.append(curves_of(make(size)))
+        if progress is not None:
+            progress.step(size)
+    return np.concatenate(parts)
+
+
 def surrogate_test(r, r_s):
     """The p-value of the correlation peak against surrogates and their pointwise band.
 
@@ -482,7 +525,9 @@ def _pearson(rec_a, var_a, rec_b, var_b, window, step, k, lags, surrogates, kind
     test = (None, None)
     if surrogates:
         make = phase_surrogates if kind == "phase" else ar1_surrogates
-        test = surrogate_test(r, ccf(xa[None, :], make(xb, surrogates, rng), k)[0])
+        test = surrogate_test(r, surrogate_curves(lambda series: ccf(xa[None, :], series, k)[0],
+                                                  lambda size: make(xb, size, rng),
+                                                  surrogates, xb.size))
     ensembles = [v for v in ("_a_ensemble", "_b_ensemble") if v in grid]
     if ensembles:
         count = min(grid[v].sizes["member"] for v in ensembles)
