@@ -101,20 +101,29 @@ def _disordered(lo, hi, i):
     return (hi[i] < lo[i]) | (lo[i] < previous - 1e-9 * max(1.0, abs(previous)))
 
 
-@njit(cache=True, nogil=True)
 def regular_cells(start, step, m):
     """Bounds ``(start + j step, start + (j + 1) step)`` and centres of ``m`` regular cells,
     in one pass; the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums
-    of its neighbours."""
+    of its neighbours.
+
+    The arrays are allocated by numpy (large ones on huge pages where the system allows),
+    not inside the compiled loop: for fine grids, first-touch page faults of the loop's own
+    allocations cost three times the loop.
+    """
     bounds = np.empty((m, 2))
     centre = np.empty(m)
+    _fill_regular_cells(start, step, bounds, centre)
+    return bounds, centre
+
+
+@njit(cache=True, nogil=True)
+def _fill_regular_cells(start, step, bounds, centre):
     right = start + step * 0
-    for j in range(m):
+    for j in range(centre.size):
         left, right = right, start + step * (j + 1)
         bounds[j, 0] = left
         bounds[j, 1] = right
         centre[j] = 0.5 * (right + left)
-    return bounds, centre
 
 
 @njit(cache=True, nogil=True)
@@ -460,4 +469,33 @@ def sum_picked_rows(head, rows, table, out):
             r = rows[q]
             for c in range(table.shape[1]):
                 out[r, c] += table[s, c]
+    return out
+
+
+@njit(cache=True, nogil=True)
+def block_weights(picks, block, n, out):
+    """``out[r, i]``: how many of replicate ``r``'s blocks ``[p, p + block)`` (``p`` in
+    ``picks[r]``) cover point ``i`` -- a difference array summed once per row."""
+    for r in range(picks.shape[0]):
+        row = out[r]
+        row[:] = 0.0
+        for p in picks[r]:
+            row[p] += 1.0
+            if p + block < n:
+                row[p + block] -= 1.0
+        total = 0.0
+        for i in range(n):
+            total += row[i]
+            row[i] = total
+    return out
+
+
+@njit(cache=True, nogil=True)
+def turn_phases(amplitude, phases, out):
+    """``out = amplitude * exp(1j * phases)`` row by row, as ``cos`` and ``sin`` (the same
+    numbers as numpy's complex ``exp``), without complex temporaries."""
+    for r in range(phases.shape[0]):
+        for f in range(phases.shape[1]):
+            out[r, f] = complex(amplitude[f] * np.cos(phases[r, f]),
+                                amplitude[f] * np.sin(phases[r, f]))
     return out
