@@ -175,6 +175,8 @@ def phase_surrogates(x, size, rng):
 
     Missing values are filled with the mean before, and restored as missing after.
     """
+    from align._kernels import turn_phases
+
     valid = np.isfinite(x)
     filled = np.where(valid, x, np.nanmean(x))
     spectrum = np.fft.rfft(filled - filled.mean())
@@ -182,20 +184,9 @@ def phase_surrogates(x, size, rng):
     phases[:, 0] = 0.0
     if x.size % 2 == 0:
         phases[:, -1] = 0.0
-    out = np.fft.irfft(_turned(np.abs(spectrum), phases), x.size) + filled.mean()
+    turned = turn_phases(np.abs(spectrum), phases, np.empty(phases.shape, dtype=complex))
+    out = np.fft.irfft(turned, x.size) + filled.mean()
     return np.where(valid, out, np.nan)
-
-
-def _turned(amplitude, phases):
-    """``amplitude * exp(1j * phases)``, rows shared between the kernel threads."""
-    from align._kernels import turn_phases
-    from align._threads import blocks, pool
-
-    out = np.empty(phases.shape, dtype=complex)
-    bounds = blocks(phases.shape[0], 1)
-    list(pool().map(lambda a, b: turn_phases(amplitude, phases[a:b], out[a:b]),
-                    bounds[:-1], bounds[1:]))
-    return out
 
 
 def ar1_surrogates(x, size, rng):
@@ -344,6 +335,8 @@ def ccf_bootstrap_peaks(xa, xb, lags, block, replicates, rng):
     masks (rounded: whole numbers), or prefix sums of ``w`` without gaps: ``O(n log n)`` per
     replicate instead of ``O(n k)``, a chunk of replicates at a time.
     """
+    from align._kernels import block_weights
+
     n = xa.size
     k = (lags.size - 1) // 2
     block, picks = _block_picks(n, block, replicates, rng)
@@ -354,25 +347,29 @@ def ccf_bootstrap_peaks(xa, xb, lags, block, replicates, rng):
     at = np.arange(-k, k + 1) % size
     gaps = not (ma.all() and mb.all())
 
-    def correlate(x, y_spectrum):
-        return sfft.irfft(sfft.rfft(x, size, workers=-1) * y_spectrum, size, workers=-1)[:, at]
+    def correlate(padded, y_spectrum):
+        return sfft.irfft(sfft.rfft(padded, workers=-1) * y_spectrum, size, workers=-1)[:, at]
 
     fb = np.conj(sfft.rfft(zb, size))
     fm = np.conj(sfft.rfft(mb.astype(float), size)) if gaps else None
-    shift = np.arange(-k, k + 1)
+    head, tail = np.maximum(np.arange(-k, k + 1), 0), np.maximum(np.arange(k, -k - 1, -1), 0)
     curves = np.empty((replicates, lags.size))
     per = max(1, BLOCK_SUM_VALUES // size)
     for lo in range(0, replicates, per):
-        w = _block_weights(picks[lo:lo + per], block, n)
-        num = correlate(w * za, fb)
+        padded = np.zeros((min(per, replicates - lo), size))
+        w = block_weights(picks[lo:lo + per], block, n, padded[:, :n])
         if gaps:
-            den = np.rint(correlate(w * ma, fm))
-        else:  # sum of w_i over max(0, k) <= i < n + min(0, k)
-            total = np.zeros((w.shape[0], n + 1))
-            np.cumsum(w, axis=1, out=total[:, 1:])
-            den = total[:, n + np.minimum(shift, 0)] - total[:, np.maximum(shift, 0)]
+            masked = np.zeros_like(padded)
+            np.multiply(w, ma, out=masked[:, :n])
+            den = np.rint(correlate(masked, fm))
+        else:  # sum of w_i over max(0, k) <= i < n + min(0, k): all but a few end points
+            ends = np.zeros((w.shape[0], 2, k + 1))
+            np.cumsum(w[:, :k], axis=1, out=ends[:, 0, 1:])
+            np.cumsum(w[:, :n - k - 1:-1], axis=1, out=ends[:, 1, 1:])
+            den = w.sum(axis=1, keepdims=True) - ends[:, 0, head] - ends[:, 1, tail]
+        w *= za
         with np.errstate(invalid="ignore", divide="ignore"):
-            curves[lo:lo + per] = num / den
+            curves[lo:lo + per] = correlate(padded, fb) / den
     return _peaks(lags, curves)
 
 
@@ -383,13 +380,6 @@ def _block_picks(n, block, replicates, rng):
     picks = rng.integers(0, n - block + 1, (replicates, int(np.ceil(n / block))),
                          dtype=np.int32)  # (the same draws as int64, in half the memory)
     return block, picks
-
-
-def _block_weights(picks, block, n):
-    """How many of each replicate's blocks cover each point: (replicates, n) whole numbers."""
-    from align._kernels import block_weights
-
-    return block_weights(picks, block, n, np.empty((picks.shape[0], n)))
 
 
 def _peaks(lags, curves):

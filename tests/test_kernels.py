@@ -297,8 +297,11 @@ def test_bootstrap_kernels_equal_their_loops():
     np.testing.assert_array_equal(np.sort(rows), np.repeat(np.arange(6), 13))
     np.testing.assert_allclose(sum_picked_rows(head, rows, table, np.zeros((6, 5))),
                                table[picks].sum(axis=1), rtol=1e-12, atol=1e-12)
-    # amplitude * exp(i phase), exactly numpy's complex exponential
-    phases = rng.uniform(0, 2 * np.pi, (3, 40))
-    amplitude = rng.uniform(0, 5, 40)
-    np.testing.assert_array_equal(turn_phases(amplitude, phases, np.empty((3, 40), complex)),
-                                  amplitude * np.exp(1j * phases))
+    # amplitude * exp(i phase): numpy's complex exponential to a few units in the last place,
+    # over the whole circle and at its ends
+    phases = rng.uniform(0, 2 * np.pi, (3, 4000))
+    phases[0, :3] = 0.0, np.pi, 2 * np.pi
+    amplitude = rng.uniform(0, 5, 4000)
+    turned = turn_phases(amplitude, phases, np.empty((3, 4000), complex))
+    np.testing.assert_allclose(turned, amplitude * np.exp(1j * phases), rtol=0,
+                               atol=5 * np.finfo(float).eps * amplitude.max())
