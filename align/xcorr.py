@@ -38,6 +38,9 @@ from align.resample import resample
 from align.schema import Curve, PeakLag, SurrogateInfo, XcorrResult
 
 
+#: Gap-free series at least this many times longer than the lag range are correlated at their
+#: own length with the wrap-around subtracted; shorter ones with zero padding (the cheaper).
+CIRCULAR_LAGS = 8
 #: Lags x grid points of block sums held at once by the block bootstrap.
 BLOCK_SUM_VALUES = 4_000_000
 #: Surrogates x grid points made and correlated at once by the surrogate test.
@@ -75,20 +78,29 @@ def ccf(a, b, max_lag):
     if max_lag >= n:
         raise InputError("max_lag must be shorter than the series", field="max_lag")
     if np.isfinite(a.sum()) and np.isfinite(b.sum()):  # one pass each: no NaN, no inf
-        sums = _circular_sums(a, b, max_lag)
+        if CIRCULAR_LAGS * max_lag <= n:
+            sums = _circular_sums(a, b, max_lag)
+        else:  # long lag ranges: the wrap correction would cost more than the padding
+            sums = _padded_products(a - a.mean(axis=-1, keepdims=True),
+                                    b - b.mean(axis=-1, keepdims=True), lags)
+            sums /= a.std(axis=-1, keepdims=True) * b.std(axis=-1, keepdims=True)
         pairs = np.broadcast_to((n - np.abs(lags)).astype(float), sums.shape)
         return sums / pairs, pairs
-    size = sfft.next_fast_len(n + max_lag, real=True)  # enough zero padding: no wrap-around
     ma, mb = np.isfinite(a), np.isfinite(b)
     da = np.where(ma, a - _nanmean(a), 0.0) / _nanstd(a)
     db = np.where(mb, b - _nanmean(b), 0.0) / _nanstd(b)
-    fa = sfft.rfft(da, size, workers=-1) * np.conj(sfft.rfft(db, size, workers=-1))
-    sums = sfft.irfft(fa, size, workers=-1)[..., lags % size]
-    fm = (sfft.rfft(ma.astype(float), size, workers=-1)
-          * np.conj(sfft.rfft(mb.astype(float), size, workers=-1)))
-    pairs = np.rint(sfft.irfft(fm, size, workers=-1)[..., lags % size])
+    sums = _padded_products(da, db, lags)
+    pairs = np.rint(_padded_products(ma.astype(float), mb.astype(float), lags))
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(pairs > 0, sums / pairs, np.nan), pairs
+
+
+def _padded_products(x, y, lags):
+    """``sum_i x_i y_{i-k}`` at the given lags by an FFT padded with zeros against
+    wrap-around."""
+    size = sfft.next_fast_len(x.shape[-1] + int(np.abs(lags).max()), real=True)
+    spectrum = sfft.rfft(x, size, workers=-1) * np.conj(sfft.rfft(y, size, workers=-1))
+    return sfft.irfft(spectrum, size, workers=-1)[..., lags % size]
 
 
 def _circular_sums(a, b, max_lag):
