@@ -40,7 +40,7 @@ from align.schema import Curve, PeakLag, SurrogateInfo, XcorrResult
 
 #: Gap-free series at least this many times longer than the lag range are correlated at their
 #: own length with the wrap-around subtracted; shorter ones with zero padding (the cheaper).
-CIRCULAR_LAGS = 8
+CIRCULAR_LAGS = 5
 #: Lags x grid points of block sums held at once by the block bootstrap.
 BLOCK_SUM_VALUES = 4_000_000
 #: Surrogates x grid points made and correlated at once by the surrogate test.
