@@ -242,3 +242,29 @@ def test_surrogate_p_value_and_band_equal_a_loop_over_surrogates():
     p_value, band = surrogate_test(r, r_s)
     assert p_value == pytest.approx(expected_p, abs=1e-12)
     np.testing.assert_allclose(band, np.percentile(curves, [2.5, 97.5], axis=0), atol=1e-10)
+
+
+def test_surrogate_loop_reports_progress_when_asked(monkeypatch, capsys):
+    import io
+
+    import align.xcorr as xcorr
+    from align.progress import reporting
+
+    monkeypatch.setattr(xcorr, "SURROGATE_VALUES", 12)  # 3 series of 4 points per chunk
+    made = []
+
+    def make(size):
+        made.append(size)
+        return np.ones((size, 4))
+
+    stream = io.StringIO()
+    with reporting(stream=stream, every=0.0):
+        curves = xcorr.surrogate_curves(lambda s: s[:, :3], make, 7, 4)
+    assert curves.shape == (7, 3) and made == [3, 3, 1]
+    lines = stream.getvalue().splitlines()
+    assert lines[0] == "corealign: surrogate test: 7 surrogates to do"
+    assert [line.split(",")[0] for line in lines[1:]] == [
+        f"corealign: surrogate test: {k}/7 surrogates" for k in (3, 6, 7)]
+    capsys.readouterr()
+    xcorr.surrogate_curves(lambda s: s[:, :3], make, 2, 4)  # outside reporting: silent
+    assert capsys.readouterr().err == ""
