@@ -217,7 +217,7 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
                   else f"{_prefix(record_name(record))}_native_interval")
         data.update(_record_cells(record, wanted, along, cells, centre, min_coverage,
                                   interpolate, native))
-    out = xr.Dataset(data, coords={along: (along, centre, _axis_attrs(group[0], along))})
+    out = xr.Dataset(data, coords=_axis_coords(along, centre, _axis_attrs(group[0], along)))
     out.attrs.update(
         Conventions="CF-1.8", title="corealign common grid",
         resample_step=float(step), min_coverage=float(min_coverage),
@@ -276,6 +276,16 @@ def _prefix(name):
 
     safe = re.sub(r"\W+", "_", name).strip("_") or "record"
     return safe if safe[0].isalpha() else f"r_{safe}"
+
+
+def _axis_coords(along, centre, attrs):
+    """The grid axis with its index built on the cell centres themselves: given a numpy
+    array, pandas copies it, which on fine grids costs as much as the merge."""
+    import pandas as pd
+    from xarray.indexes import PandasIndex
+
+    return xr.Coordinates({along: xr.Variable(along, centre, attrs)},
+                          indexes={along: PandasIndex(pd.Index(centre, copy=False), along)})
 
 
 def _axis_attrs(first, along):

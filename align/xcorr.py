@@ -38,6 +38,14 @@ from align.resample import resample
 from align.schema import Curve, PeakLag, SurrogateInfo, XcorrResult
 
 
+#: Gap-free series at least this many times longer than the lag range are correlated at their
+#: own length with the wrap-around subtracted; shorter ones with zero padding (the cheaper).
+CIRCULAR_LAGS = 5
+#: Lags x grid points of block sums held at once by the block bootstrap.
+BLOCK_SUM_VALUES = 4_000_000
+#: Surrogates x grid points made and correlated at once by the surrogate test.
+SURROGATE_VALUES = 4_000_000
+
 
 # --------------------------------------------------------------------------------------------
 # formulas
@@ -70,20 +78,29 @@ def ccf(a, b, max_lag):
     if max_lag >= n:
         raise InputError("max_lag must be shorter than the series", field="max_lag")
     if np.isfinite(a.sum()) and np.isfinite(b.sum()):  # one pass each: no NaN, no inf
-        sums = _circular_sums(a, b, max_lag)
+        if CIRCULAR_LAGS * max_lag <= n:
+            sums = _circular_sums(a, b, max_lag)
+        else:  # long lag ranges: the wrap correction would cost more than the padding
+            sums = _padded_products(a - a.mean(axis=-1, keepdims=True),
+                                    b - b.mean(axis=-1, keepdims=True), lags)
+            sums /= a.std(axis=-1, keepdims=True) * b.std(axis=-1, keepdims=True)
         pairs = np.broadcast_to((n - np.abs(lags)).astype(float), sums.shape)
         return sums / pairs, pairs
-    size = sfft.next_fast_len(n + max_lag, real=True)  # enough zero padding: no wrap-around
     ma, mb = np.isfinite(a), np.isfinite(b)
     da = np.where(ma, a - _nanmean(a), 0.0) / _nanstd(a)
     db = np.where(mb, b - _nanmean(b), 0.0) / _nanstd(b)
-    fa = sfft.rfft(da, size, workers=-1) * np.conj(sfft.rfft(db, size, workers=-1))
-    sums = sfft.irfft(fa, size, workers=-1)[..., lags % size]
-    fm = (sfft.rfft(ma.astype(float), size, workers=-1)
-          * np.conj(sfft.rfft(mb.astype(float), size, workers=-1)))
-    pairs = np.rint(sfft.irfft(fm, size, workers=-1)[..., lags % size])
+    sums = _padded_products(da, db, lags)
+    pairs = np.rint(_padded_products(ma.astype(float), mb.astype(float), lags))
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(pairs > 0, sums / pairs, np.nan), pairs
+
+
+def _padded_products(x, y, lags):
+    """``sum_i x_i y_{i-k}`` at the given lags by an FFT padded with zeros against
+    wrap-around."""
+    size = sfft.next_fast_len(x.shape[-1] + int(np.abs(lags).max()), real=True)
+    spectrum = sfft.rfft(x, size, workers=-1) * np.conj(sfft.rfft(y, size, workers=-1))
+    return sfft.irfft(spectrum, size, workers=-1)[..., lags % size]
 
 
 def _circular_sums(a, b, max_lag):
@@ -170,6 +187,8 @@ def phase_surrogates(x, size, rng):
 
     Missing values are filled with the mean before, and restored as missing after.
     """
+    from align._kernels import turn_phases
+
     valid = np.isfinite(x)
     filled = np.where(valid, x, np.nanmean(x))
     spectrum = np.fft.rfft(filled - filled.mean())
@@ -177,7 +196,8 @@ def phase_surrogates(x, size, rng):
     phases[:, 0] = 0.0
     if x.size % 2 == 0:
         phases[:, -1] = 0.0
-    out = np.fft.irfft(np.abs(spectrum) * np.exp(1j * phases), x.size) + filled.mean()
+    turned = turn_phases(np.abs(spectrum), phases, np.empty(phases.shape, dtype=complex))
+    out = np.fft.irfft(turned, x.size) + filled.mean()
     return np.where(valid, out, np.nan)
 
 
@@ -271,29 +291,111 @@ def block_bootstrap_peaks(numerator, denominator, lags, block, replicates, rng):
 
     Notes
     -----
-    A replicate's curve is ``C B^T`` with ``C`` its count of each block start (a sparse
-    replicates x starts matrix) and ``B`` the block sums of every start (lags x starts, from
-    prefix sums), so no replicate gathers its blocks; ``B`` is made a few lags at a time to
-    bound memory.
+    A replicate's curve is ``C B^T`` with ``C`` its count of each block start and ``B`` the
+    block sums of every start (lags x starts, from prefix sums), so no replicate gathers its
+    blocks: the picks are grouped by start once and ``B`` is swept in order, a few lags at a
+    time to bound memory, adding each start's block sums to the replicates that picked it
+    (:func:`align._kernels.sum_picked_rows`; the replicates' sums stay in cache).
     """
-    from scipy import sparse
+    from align._kernels import group_by_start, sum_picked_rows
 
     n = numerator.shape[1]
-    block = int(np.clip(np.ceil(block), 1, max(n // 4, 1)))
+    block, picks = _block_picks(n, block, replicates, rng)
     starts = n - block + 1
-    picks = rng.integers(0, starts, (replicates, int(np.ceil(n / block))))
-    counts = sparse.csr_matrix((np.ones(picks.size), picks.ravel(),
-                                np.arange(0, picks.size + 1, picks.shape[1])),
-                               shape=(replicates, starts))
-    num = np.empty((replicates, lags.size))
-    den = np.empty((replicates, lags.size))
-    chunk = max(1, 2_000_000 // n)
+    head, rows = group_by_start(picks, starts)
+    sums = np.empty((replicates, 2 * lags.size))
+    chunk = max(1, BLOCK_SUM_VALUES // n)
     for lo in range(0, lags.size, chunk):
-        rows = slice(lo, min(lo + chunk, lags.size))
-        num[:, rows] = counts @ _block_sums(numerator[rows], block).T
-        den[:, rows] = counts @ _block_sums(denominator[rows], block).T
+        part = slice(lo, min(lo + chunk, lags.size))
+        table = np.concatenate([_block_sums(numerator[part], block),
+                                _block_sums(denominator[part], block)]).T.copy()
+        width = part.stop - part.start
+        out = sum_picked_rows(head, rows, table, np.zeros((replicates, 2 * width)))
+        sums[:, part] = out[:, :width]
+        sums[:, lags.size + part.start:lags.size + part.stop] = out[:, width:]
     with np.errstate(invalid="ignore", divide="ignore"):
-        curves = num / den
+        return _peaks(lags, sums[:, :lags.size] / sums[:, lags.size:])
+
+
+def ccf_bootstrap_peaks(xa, xb, lags, block, replicates, rng):
+    """Peak lags of :func:`ccf` curves over moving-block replicates of the grid points of
+    ``a``: the replicates and curves of :func:`block_bootstrap_peaks` of
+    :func:`lagged_products` (the same draws), by FFT.
+
+    Parameters
+    ----------
+    xa, xb : numpy.ndarray (n,)
+        Series on one regular grid (NaN: missing).
+    lags : numpy.ndarray (2 k + 1,)
+        Lags (yr) of the steps ``-k..k``.
+    block : float
+        Block length (grid points).
+    replicates : int
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    numpy.ndarray
+        Peak lags (yr) of the replicates.
+
+    Notes
+    -----
+    A replicate weights grid point ``i`` by ``w_i``, the number of its blocks covering it; its
+    curve is ``sum_i w_i za_i zb_{i-k} / sum_i w_i [a_i and b_{i-k} valid]`` with ``za``,
+    ``zb`` standardised. For all lags at once the numerator is the zero-padded FFT
+    cross-correlation of ``w za`` with ``zb``, and the denominator that of ``w`` times the
+    masks (rounded: whole numbers), or prefix sums of ``w`` without gaps: ``O(n log n)`` per
+    replicate instead of ``O(n k)``, a chunk of replicates at a time.
+    """
+    from align._kernels import block_weights
+
+    n = xa.size
+    k = (lags.size - 1) // 2
+    block, picks = _block_picks(n, block, replicates, rng)
+    ma, mb = np.isfinite(xa), np.isfinite(xb)
+    za = np.where(ma, (xa - np.nanmean(xa)) / np.nanstd(xa), 0.0)
+    zb = np.where(mb, (xb - np.nanmean(xb)) / np.nanstd(xb), 0.0)
+    size = sfft.next_fast_len(n + k, real=True)
+    at = np.arange(-k, k + 1) % size
+    gaps = not (ma.all() and mb.all())
+
+    def correlate(padded, y_spectrum):
+        return sfft.irfft(sfft.rfft(padded, workers=-1) * y_spectrum, size, workers=-1)[:, at]
+
+    fb = np.conj(sfft.rfft(zb, size))
+    fm = np.conj(sfft.rfft(mb.astype(float), size)) if gaps else None
+    head, tail = np.maximum(np.arange(-k, k + 1), 0), np.maximum(np.arange(k, -k - 1, -1), 0)
+    curves = np.empty((replicates, lags.size))
+    per = max(1, BLOCK_SUM_VALUES // size)
+    for lo in range(0, replicates, per):
+        padded = np.zeros((min(per, replicates - lo), size))
+        w = block_weights(picks[lo:lo + per], block, n, padded[:, :n])
+        if gaps:
+            masked = np.zeros_like(padded)
+            np.multiply(w, ma, out=masked[:, :n])
+            den = np.rint(correlate(masked, fm))
+        else:  # sum of w_i over max(0, k) <= i < n + min(0, k): all but a few end points
+            ends = np.zeros((w.shape[0], 2, k + 1))
+            np.cumsum(w[:, :k], axis=1, out=ends[:, 0, 1:])
+            np.cumsum(w[:, :n - k - 1:-1], axis=1, out=ends[:, 1, 1:])
+            den = w.sum(axis=1, keepdims=True) - ends[:, 0, head] - ends[:, 1, tail]
+        w *= za
+        with np.errstate(invalid="ignore", divide="ignore"):
+            curves[lo:lo + per] = correlate(padded, fb) / den
+    return _peaks(lags, curves)
+
+
+def _block_picks(n, block, replicates, rng):
+    """Block length (whole grid points, at most a quarter of ``n``) and the block starts
+    each replicate picks, ``ceil(n / block)`` of them: (replicates, blocks)."""
+    block = int(np.clip(np.ceil(block), 1, max(n // 4, 1)))
+    picks = rng.integers(0, n - block + 1, (replicates, int(np.ceil(n / block))),
+                         dtype=np.int32)  # (the same draws as int64, in half the memory)
+    return block, picks
+
+
+def _peaks(lags, curves):
+    """Refined peak lags of the curves that have a finite value."""
     return np.asarray([refine_peak(lags, curve)[0] for curve in curves
                        if np.isfinite(curve).any()])
 
@@ -410,6 +512,38 @@ def _finite(values):
     return [None if not np.isfinite(v) else float(v) for v in values]
 
 
+def surrogate_curves(curves_of, make, count, length):
+    """Correlation curves of ``count`` surrogates, made and correlated a chunk at a time.
+
+    Parameters
+    ----------
+    curves_of : callable
+        ``curves_of(series)``: the (chunk, lags) curves of a (chunk, ``length``) batch.
+    make : callable
+        ``make(size)``: ``size`` new surrogate series. Drawn in turn from one generator, the
+        surrogates do not depend on the chunk size.
+    count, length : int
+        Surrogates, and grid points per surrogate.
+
+    Returns
+    -------
+    numpy.ndarray (count, lags)
+        Only the curves are kept: memory grows with ``SURROGATE_VALUES``, not with
+        ``count x length``. Progress is reported per chunk when reporting is on.
+    """
+    from align.progress import steps
+
+    per = max(1, SURROGATE_VALUES // max(length, 1))
+    progress = steps("surrogate test", count, "surrogates")
+    parts = []
+    for done in range(0, count, per):
+        size = min(per, count - done)
+        parts.append(curves_of(make(size)))
+        if progress is not None:
+            progress.step(size)
+    return np.concatenate(parts)
+
+
 def surrogate_test(r, r_s):
     """The p-value of the correlation peak against surrogates and their pointwise band.
 
@@ -482,7 +616,9 @@ def _pearson(rec_a, var_a, rec_b, var_b, window, step, k, lags, surrogates, kind
     test = (None, None)
     if surrogates:
         make = phase_surrogates if kind == "phase" else ar1_surrogates
-        test = surrogate_test(r, ccf(xa[None, :], make(xb, surrogates, rng), k)[0])
+        test = surrogate_test(r, surrogate_curves(lambda series: ccf(xa[None, :], series, k)[0],
+                                                  lambda size: make(xb, size, rng),
+                                                  surrogates, xb.size))
     ensembles = [v for v in ("_a_ensemble", "_b_ensemble") if v in grid]
     if ensembles:
         count = min(grid[v].sizes["member"] for v in ensembles)
@@ -493,9 +629,8 @@ def _pearson(rec_a, var_a, rec_b, var_b, window, step, k, lags, surrogates, kind
                  if np.isfinite(row).any()]
         source = "age ensembles, member by member"
     else:
-        numerator, denominator = lagged_products(xa, xb, k)
-        peaks = block_bootstrap_peaks(numerator, denominator, lags,
-                                      valid.sum() / max(n_eff, 1.0), bootstrap, rng)
+        peaks = ccf_bootstrap_peaks(xa, xb, lags, valid.sum() / max(n_eff, 1.0), bootstrap,
+                                    rng)
         source = "moving-block bootstrap (blocks of n / n_eff grid points)"
     return r, n_eff, test, [float(v) for v in np.percentile(peaks, [2.5, 97.5])], source
 

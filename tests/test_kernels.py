@@ -277,3 +277,31 @@ def test_onset_bootstrap_in_chunks_equals_one_block(monkeypatch):
     monkeypatch.setattr(detect, "CHUNK_VALUES", 37 * n)  # 37 rows at a time, a ragged end
     chunked = detect.onset_bootstrap(t, x, w, 0, 250, np.random.default_rng(1))[0]
     np.testing.assert_array_equal(chunked, whole)
+
+
+def test_bootstrap_kernels_equal_their_loops():
+    from align._kernels import block_weights, group_by_start, sum_picked_rows, turn_phases
+
+    rng = np.random.default_rng(9)
+    n, block, starts = 50, 4, 47
+    picks = rng.integers(0, starts, (6, 13)).astype(np.int32)
+    # coverage of each point by a replicate's blocks
+    expected = np.zeros((6, n))
+    for r, row in enumerate(picks):
+        for p in row:
+            expected[r, p:p + block] += 1.0
+    np.testing.assert_array_equal(block_weights(picks, block, n, np.empty((6, n))), expected)
+    # sums of the picked rows of a table, in any order: a replicate-by-replicate gather
+    table = rng.standard_normal((starts, 5))
+    head, rows = group_by_start(picks, starts)
+    np.testing.assert_array_equal(np.sort(rows), np.repeat(np.arange(6), 13))
+    np.testing.assert_allclose(sum_picked_rows(head, rows, table, np.zeros((6, 5))),
+                               table[picks].sum(axis=1), rtol=1e-12, atol=1e-12)
+    # amplitude * exp(i phase): numpy's complex exponential to a few units in the last place,
+    # over the whole circle and at its ends
+    phases = rng.uniform(0, 2 * np.pi, (3, 4000))
+    phases[0, :3] = 0.0, np.pi, 2 * np.pi
+    amplitude = rng.uniform(0, 5, 4000)
+    turned = turn_phases(amplitude, phases, np.empty((3, 4000), complex))
+    np.testing.assert_allclose(turned, amplitude * np.exp(1j * phases), rtol=0,
+                               atol=5 * np.finfo(float).eps * amplitude.max())

@@ -48,6 +48,32 @@ def test_equals_brute_force_on_random_irregular_intervals():
                                equal_nan=True)
 
 
+def test_exact_to_1e9_at_old_ages_and_large_values():
+    # ages ~1e5 yr and values ~1e3 on a grid finer than the samples: against the overlap
+    # means in exact rational arithmetic (fractions.Fraction of the same floats), the
+    # relative error stays far below 1e-9 (no long running sums to cancel)
+    from fractions import Fraction
+
+    rng = np.random.default_rng(21)
+    lo, hi = random_intervals(rng, 120)
+    lo, hi = lo + 99_000.0, hi + 99_000.0
+    values = 1000.0 + rng.normal(0.0, 5.0, 120)
+    edges = 99_995.0 + 0.37 * np.arange(int((hi[-1] - 99_995.0) / 0.37) + 2)
+    mean = overlap_mean(lo, hi, values, edges)[0][:, 0]
+    exact = []
+    for a, b in zip(edges[:-1], edges[1:]):
+        weight = total = Fraction(0)
+        near = (lo < b) & (hi > a)
+        for s, e, v in zip(lo[near], hi[near], values[near]):
+            overlap = min(Fraction(b), Fraction(e)) - max(Fraction(a), Fraction(s))
+            if overlap > 0:
+                weight += overlap
+                total += Fraction(v) * overlap
+        exact.append(float(total / weight) if weight else np.nan)
+    np.testing.assert_allclose(mean, exact, rtol=1e-9, atol=0, equal_nan=True)
+    assert np.isfinite(mean).sum() > 200
+
+
 def test_equals_xarray_coarsen_when_samples_tile_the_grid():
     # xarray's coarsen(...).mean() is the reference when every cell holds 4 whole samples
     lo = np.arange(2000.0, 2400.0, 2.0)

@@ -114,10 +114,12 @@ def test_cli_xcorr_json():
     assert len(out["curve"]["lags"]) == len(out["curve"]["r"])
 
 
-@pytest.mark.parametrize("n, k", [(64, 63), (257, 40), (1000, 999)])
+@pytest.mark.parametrize("n, k", [(64, 63), (257, 40), (1000, 999), (1000, 200), (1000, 201),
+                                  (4096, 300)])
 def test_batched_ccf_equals_the_direct_sum_at_every_lag_range(n, k):
     # the direct formula (numpy.correlate of standardised series over the N_k pairs) for a
-    # batch, up to the longest lag range, where the wrap correction is largest
+    # batch, up to the longest lag range; both routes (wrap-around subtracted up to
+    # n / CIRCULAR_LAGS = 200 lags here, zero padding beyond)
     rng = np.random.default_rng(n)
     a = rng.standard_normal((3, n))
     b = rng.standard_normal((3, n))
@@ -155,3 +157,114 @@ def test_block_bootstrap_equals_gathering_each_replicates_blocks():
     np.testing.assert_allclose(peaks, expected, rtol=1e-9)
     # b_i = a_{i-4}: r(k) = sum a_i b_{i-k} peaks at k = -4 steps of 2
     assert np.median(peaks) == pytest.approx(-8.0, abs=2.0)
+
+
+def gathered_peaks(xa, xb, lags, picks, block):
+    """The straightforward bootstrap: each replicate's blocks of the lagged products
+    (:func:`align.xcorr.lagged_products`) gathered and summed, its peak refined."""
+    from align.xcorr import lagged_products, refine_peak
+
+    numerator, denominator = lagged_products(xa, xb, (lags.size - 1) // 2)
+    peaks = []
+    for row in picks:
+        idx = (row[:, None] + np.arange(block)).ravel()
+        curve = numerator[:, idx].sum(axis=1) / denominator[:, idx].sum(axis=1)
+        peaks.append(refine_peak(lags, curve)[0])
+    return np.array(peaks)
+
+
+@pytest.mark.parametrize("gap", [False, True])
+def test_ccf_bootstrap_by_fft_equals_gathering_each_replicates_blocks(gap):
+    # the same draws (seed 5) as the gathering loop, the curves by FFT: equal to rounding
+    from align.xcorr import ccf_bootstrap_peaks
+
+    rng = np.random.default_rng(12)
+    n, k, block, replicates = 2000, 30, 6.4, 150
+    xa = ar1(rng, n, 0.5)
+    xb = np.roll(xa, -5) + rng.standard_normal(n)
+    if gap:
+        xa[40:90] = np.nan
+        xb[700:703] = np.nan
+    lags = np.arange(-k, k + 1) * 0.5
+    peaks = ccf_bootstrap_peaks(xa, xb, lags, block, replicates, np.random.default_rng(5))
+    b = int(np.ceil(block))
+    picks = np.random.default_rng(5).integers(0, n - b + 1, (replicates, int(np.ceil(n / b))))
+    np.testing.assert_allclose(peaks, gathered_peaks(xa, xb, lags, picks, b), rtol=1e-9,
+                               atol=1e-12)
+    # b_i = a_{i+5}: the ccf peaks at k = +5 steps of 0.5
+    assert np.median(peaks) == pytest.approx(2.5, abs=0.5)
+
+
+def test_chunk_sizes_do_not_change_cross_correlate(monkeypatch):
+    import align.xcorr as xcorr
+
+    rng = np.random.default_rng(13)
+    age = np.arange(0.0, 4000.0, 5.0) + 2.5
+    x = ar1(rng, age.size + 10, 0.7)
+    a = build_record(age=age + 1000, age_reference="b2k", proxies={"v": (x[:-10], {})},
+                     attrs={"core": "A"})
+    b = build_record(age=age + 1000, age_reference="b2k", proxies={"v": (x[3:-7], {})},
+                     attrs={"core": "B"})
+    results = []
+    for values in (10**7, 2_345):  # one chunk, and 2-3 surrogates / replicates per chunk
+        monkeypatch.setattr(xcorr, "SURROGATE_VALUES", values)
+        monkeypatch.setattr(xcorr, "BLOCK_SUM_VALUES", values)
+        results.append(cross_correlate((a, "v"), (b, "v"), 100, surrogates=60, bootstrap=40,
+                                       seed=3).model_dump(exclude={"provenance"}))
+    assert results[0] == results[1]
+    assert results[0]["peak_lag"]["median"] == pytest.approx(15.0, abs=2.5)
+
+
+def test_surrogate_p_value_and_band_equal_a_loop_over_surrogates():
+    # one phase surrogate at a time from the same generator, the curve by numpy.correlate of
+    # the standardised series over the N_k pairs (the direct formula)
+    from align.xcorr import phase_surrogates, surrogate_curves, surrogate_test
+
+    rng = np.random.default_rng(14)
+    n, k, count = 300, 20, 40
+    xa = ar1(rng, n, 0.6)
+    xb = np.roll(xa, 2) + 1.5 * rng.standard_normal(n)
+    lags = np.arange(-k, k + 1)
+
+    def direct(x, y):
+        zx, zy = (x - x.mean()) / x.std(), (y - y.mean()) / y.std()
+        return np.correlate(zx, zy, mode="full")[n - 1 + lags] / (n - np.abs(lags))
+
+    r = direct(xa, xb)
+    loop_rng = np.random.default_rng(8)
+    curves = np.array([direct(xa, phase_surrogates(xb, 1, loop_rng)[0]) for _ in range(count)])
+    peak = np.abs(r).max()
+    expected_p = (1 + np.sum(np.abs(curves).max(axis=1) >= peak)) / (count + 1)
+    chunk_rng = np.random.default_rng(8)
+    r_s = surrogate_curves(lambda s: ccf(xa[None, :], s, k)[0],
+                           lambda size: phase_surrogates(xb, size, chunk_rng), count, n)
+    np.testing.assert_allclose(r_s, curves, rtol=0, atol=1e-10)
+    p_value, band = surrogate_test(r, r_s)
+    assert p_value == pytest.approx(expected_p, abs=1e-12)
+    np.testing.assert_allclose(band, np.percentile(curves, [2.5, 97.5], axis=0), atol=1e-10)
+
+
+def test_surrogate_loop_reports_progress_when_asked(monkeypatch, capsys):
+    import io
+
+    import align.xcorr as xcorr
+    from align.progress import reporting
+
+    monkeypatch.setattr(xcorr, "SURROGATE_VALUES", 12)  # 3 series of 4 points per chunk
+    made = []
+
+    def make(size):
+        made.append(size)
+        return np.ones((size, 4))
+
+    stream = io.StringIO()
+    with reporting(stream=stream, every=0.0):
+        curves = xcorr.surrogate_curves(lambda s: s[:, :3], make, 7, 4)
+    assert curves.shape == (7, 3) and made == [3, 3, 1]
+    lines = stream.getvalue().splitlines()
+    assert lines[0] == "corealign: surrogate test: 7 surrogates to do"
+    assert [line.split(",")[0] for line in lines[1:]] == [
+        f"corealign: surrogate test: {k}/7 surrogates" for k in (3, 6, 7)]
+    capsys.readouterr()
+    xcorr.surrogate_curves(lambda s: s[:, :3], make, 2, 4)  # outside reporting: silent
+    assert capsys.readouterr().err == ""
