@@ -192,6 +192,8 @@ NULL_TAUS = np.geomspace(0.01, 3.0, 12)
 NULL_PER_TAU = 400
 #: Surrogates nearest the record in lag-1 autocorrelation that a step is compared with.
 NULL_NEIGHBOURS = 200
+#: Longer records are tested on means of consecutive samples (:func:`transition_p`).
+NULL_MAX_SAMPLES = 500
 
 
 def transition_p(t, x, sign):
@@ -230,14 +232,29 @@ def transition_p(t, x, sign):
     an evenly spaced axis of as many samples as the record, with equal weights (persistence
     and window in units of the mean spacing), from a seed fixed by the sample count and
     direction, so records with as many samples share them; an uneven axis is thereby
-    approximated by an even one.
+    approximated by an even one. A record of more than ``NULL_MAX_SAMPLES`` samples is
+    tested on the means of that many runs of consecutive samples: a step and red noise on
+    the window's scale survive the averaging, and the surrogates' cost and memory stay those
+    of ``NULL_MAX_SAMPLES`` samples (at 20,000 samples they would take 4 GB).
     """
+    t, series = _binned(t, np.atleast_2d(x), NULL_MAX_SAMPLES)
     t_null, r_null = _null_steps(t.size, int(sign))
-    stat, r = _step_statistic(t, np.ones(t.size), np.atleast_2d(x), sign)
+    stat, r = _step_statistic(t, np.ones(t.size), series, sign)
     near = np.argsort(np.abs(np.log1p(-r_null)[None, :] - np.log1p(-r)[:, None]), axis=1,
                       kind="stable")[:, :NULL_NEIGHBOURS]
     p = (1 + np.sum(t_null[near] >= stat[:, None], axis=1)) / (1 + near.shape[1])
     return float(p[0]) if np.ndim(x) == 1 else p
+
+
+def _binned(t, series, most):
+    """``t`` and the columns of ``series`` averaged over at most ``most`` runs of consecutive
+    samples of (nearly) equal counts; unchanged when there are no more samples than that."""
+    if t.size <= most:
+        return t, series
+    starts = np.linspace(0, t.size, most + 1).round().astype(int)[:-1]
+    counts = np.diff(np.append(starts, t.size))
+    return (np.add.reduceat(t, starts) / counts,
+            np.add.reduceat(series, starts, axis=1) / counts)
 
 
 def _step_statistic(t, w, series, sign):

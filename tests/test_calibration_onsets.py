@@ -104,6 +104,28 @@ def test_clear_transition_has_its_stated_false_positive_rate_under_red_noise(dt)
 
 
 @pytest.mark.slow
+def test_long_records_are_tested_on_means_of_consecutive_samples():
+    """A 500-yr window sampled every 0.25 yr (2,000 samples) is tested on 500 means of four
+    samples, so its surrogates cost what 500 samples cost (at 20,000 samples they took 27 s
+    and 4 GB before). Generator and tolerance as above, tau 100 and 300 yr."""
+    from align.choices import CLEAR_TRANSITION_RATE
+    from align.detect import NULL_MAX_SAMPLES, _null_steps, transition_p
+
+    rng = np.random.default_rng(25)
+    _null_steps.cache_clear()
+    for tau in (100.0, 300.0):
+        t, series, _ = ar1_windows(0.25, tau, 500, rng)
+        rate = np.mean(transition_p(t, series, 0) <= CLEAR_TRANSITION_RATE)
+        print(f"0.25-yr samples, tau {tau:g} yr: 'clear' in {rate:.3f} of 500 windows")
+        assert CLEAR_TRANSITION_RATE / 2 <= rate <= 2 * CLEAR_TRANSITION_RATE
+    # one surrogate set, of NULL_MAX_SAMPLES samples, made once and used by both
+    info = _null_steps.cache_info()
+    assert t.size == 2000 and (info.currsize, info.misses, info.hits) == (1, 1, 1)
+    _null_steps(NULL_MAX_SAMPLES, 0)
+    assert _null_steps.cache_info().misses == 1
+
+
+@pytest.mark.slow
 def test_power_of_the_clear_transition_test():
     """Generator: ``ar1_windows`` with a 50-yr ramp, tau 100 yr, 10-yr samples; the power is
     printed at SNR 2, 4 and 8 (step in noise sd). Measured: 0.10, 0.43, 0.99. With tau known
