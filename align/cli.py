@@ -332,6 +332,10 @@ def _detect_parser(commands):
         sub.set_defaults(run=_detect, kind=name)
 
 
+#: Request fields that ``corealign lag`` sets from flags of the same name.
+_LAG_OPTIONS = ("draws", "seed", "timescale_model", "bridge_rate", "sync_sd", "age_error_scale")
+
+
 def _lag_parser(commands):
     from align.markers import RECORD_KINDS
     from align.schema import LagRequest
@@ -346,7 +350,7 @@ def _lag_parser(commands):
                          help=f"transform of marker {side}'s variable")
     lag.add_argument("--request", metavar="FILE", help="a lag request (JSON) instead of flags")
     lag.add_argument("--ties", help="tie table between b (depth) and a (ref_depth/ref_age)")
-    for name in ("draws", "seed", "timescale_model", "bridge_rate"):
+    for name in _LAG_OPTIONS:
         from_field(lag, LagRequest, name, default=None,
                    help=(LagRequest.model_fields[name].description or name.replace("_", " "))
                    + f" (default: {LagRequest.model_fields[name].default})")
@@ -712,8 +716,8 @@ def _lag(args):
     from align import text
     from align.lag import estimate_lag
 
-    options = dict(ties=args.ties, draws=args.draws, seed=args.seed, age_reference=args.to,
-                   timescale_model=args.timescale_model, bridge_rate=args.bridge_rate)
+    options = dict(ties=args.ties, age_reference=args.to,
+                   **{name: getattr(args, name) for name in _LAG_OPTIONS})
     if args.request:
         from align.requests import read_request
 

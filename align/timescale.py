@@ -133,6 +133,20 @@ def relative_sd(mce1, mce2, model=DEFAULT_TIMESCALE_MODEL):
 def sd_covariance(sd, ages, scale):
     """Covariance (yr^2) of modelled-timescale errors with sds ``sd`` (yr) at ``ages`` (yr).
 
+    Parameters
+    ----------
+    sd : array_like (n,)
+        Error sds (yr) at the ages.
+    ages : array_like (n,)
+        Positions on the timescale (yr).
+    scale : float
+        Age scale (yr) of the correlation; 0: independent depths, ``inf``: one shared error.
+
+    Returns
+    -------
+    numpy.ndarray (n, n)
+        yr^2.
+
     Notes
     -----
     ``C_ij = sd_i sd_j exp(-|age_i - age_j| / scale)``: the exponential (Ornstein-Uhlenbeck)

@@ -93,3 +93,15 @@ def test_onset_bootstrap_reports_counts_and_time_left(tmp_path):
     lines = [line for line in done.stderr.splitlines() if "onset bootstrap" in line]
     assert "300 replicates to do" in lines[0]
     assert lines[-1].startswith("corealign: onset bootstrap: 300/300 replicates")
+
+
+def test_lag_sets_every_numeric_option_of_the_request():
+    """``sync_sd`` and ``age_error_scale`` reach the request from the command line, as they
+    do from the library and the service."""
+    done = run_cli("lag", "--a", f"event:{ICE}:sulfate", "--a-window", "12110,12410",
+                   "--b", f"onset:{LAKE}:d18O", "--b-window", "11900,12500", "--ties", TIES,
+                   "--draws", "2000", "--seed", "1", "--sync-sd", "7", "--age-error-scale",
+                   "300", "--json")
+    assert done.returncode == 0, done.stderr
+    request = json.loads(done.stdout)["request"]
+    assert request["sync_sd"] == 7 and request["age_error_scale"] == 300
