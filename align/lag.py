@@ -27,7 +27,8 @@ from align.transforms import marker_variable
 from align.provenance import dataset_checksum, provenance, record_input, resolve_seed
 from align.record import age_sigma, record_name, uncertainty_kind, with_age_reference
 from align.markers import Part, kind_of
-from align.markers.onset import flag_ramp_ratio, midpoint_lag_note
+from align.choices import RAMP_RATIO
+from align.markers.onset import flag_ramp_ratio
 from align.schema import (BudgetItem, Histogram, LagFigures, LagRequest, LagResult, LagSummary,
                           Model, RecordExcerpt, WhatIf, validate_as)
 from align.ties import bridge_variance, read_ties, transfer
@@ -180,10 +181,25 @@ def estimate_lag(a, b=None, *, ties=None, draws=None, seed=None, age_reference=N
     result = _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, rec_b,
                      tie_table, seed, others)
     if flag_ramp_ratio(marker_a, marker_b):
-        result.assumptions[-1:-1] = midpoint_lag_note(request, sources)
+        result.assumptions[-1:-1] = _midpoint_note(request, sources)
     result._draws = lag
     result._shared = [term for p in parts if isinstance(p, JointPart) for term in p.terms]
     return result
+
+
+def _midpoint_note(request, sources):
+    """The lag of ``request`` taken at both transitions' midpoints, as a caution (a list of
+    one sentence; when the lag already is at the midpoints, the caution alone)."""
+    if request.a.position == request.b.position == "midpoint":
+        return [f"Caution: the two ramps differ in length more than {RAMP_RATIO:g}-fold; the "
+                "lag is taken at their midpoints, where the difference matters least."]
+    at_midpoints = request.model_copy(update={
+        key: getattr(request, key).model_copy(update={"position": "midpoint"})
+        for key in ("a", "b")})
+    lag = estimate_lag(at_midpoints, sources=sources).lag
+    return [f"Caution: the two ramps differ in length more than {RAMP_RATIO:g}-fold, so the "
+            f"lag depends on the point chosen on them; at both midpoints a - b would be "
+            f"{lag.median:.0f} years (95 %: {lag.ci95[0]:.0f} to {lag.ci95[1]:.0f})."]
 
 
 @dataclass

@@ -47,7 +47,12 @@ import numpy as np
 import xarray as xr
 from scipy.stats import truncnorm
 
-from align.choices import DEFAULT_TIMESCALE_MODEL, TimescaleModel, check_choice
+from align.choices import (
+    DEFAULT_AGE_ERROR_SCALE,
+    DEFAULT_TIMESCALE_MODEL,
+    TimescaleModel,
+    check_choice,
+)
 from align.errors import InputError
 from align.provenance import resolve_seed
 from align.record import MEMBER, SAMPLE, uncertainty_kind
@@ -162,7 +167,8 @@ def sd_covariance(sd, ages, scale):
     return np.outer(sd, sd) * np.where(gap == 0, 1.0, corr)
 
 
-def error_covariance(record, ages, model=DEFAULT_TIMESCALE_MODEL, scale=0.0):
+def error_covariance(record, ages, model=DEFAULT_TIMESCALE_MODEL,
+                     scale=DEFAULT_AGE_ERROR_SCALE):
     """Covariance of a record's timescale errors at the given ages.
 
     Parameters
@@ -175,7 +181,7 @@ def error_covariance(record, ages, model=DEFAULT_TIMESCALE_MODEL, scale=0.0):
         For layer-counted records (``age_mce``).
     scale : float
         For sd-only records: the age scale (yr) of their errors' correlation (0: independent
-        depths; ``inf``: one shared error).
+        depths; ``inf``: one shared error); default that of a lag request.
 
     Returns
     -------

@@ -286,23 +286,6 @@ def flag_ramp_ratio(marker_a, marker_b):
     return True
 
 
-def midpoint_lag_note(request, sources):
-    """The lag of ``request`` taken at both transitions' midpoints, as a caution (a list of
-    one sentence; when the lag already is at the midpoints, the caution alone)."""
-    from align.lag import estimate_lag
-
-    if request.a.position == request.b.position == "midpoint":
-        return [f"Caution: the two ramps differ in length more than {RAMP_RATIO:g}-fold; the "
-                "lag is taken at their midpoints, where the difference matters least."]
-    at_midpoints = request.model_copy(update={
-        key: getattr(request, key).model_copy(update={"position": "midpoint"})
-        for key in ("a", "b")})
-    lag = estimate_lag(at_midpoints, sources=sources).lag
-    return [f"Caution: the two ramps differ in length more than {RAMP_RATIO:g}-fold, so the "
-            f"lag depends on the point chosen on them; at both midpoints a - b would be "
-            f"{lag.median:.0f} years (95 %: {lag.ci95[0]:.0f} to {lag.ci95[1]:.0f})."]
-
-
 #: What each flag means, for people (code uses the keys).
 FLAG_TEXT = {
     "long_ramp": "the ramp ({duration:.0f} yr) is longer than {share:.0%} of the window; "
