@@ -15,7 +15,7 @@ from align.errors import InputError
 from align.progress import steps
 from align.markers.onset import NoiseModel
 from align.noise import ar1_persistence, ar1_profile_loglik, persistence_time, simulate_ar1
-from align.ramp import bootstrap_ramps, fit_ramp, ramp, ramps
+from align.ramp import ar1_ramp_persistence, bootstrap_ramps, fit_ramp, ramp, ramps
 from align.record import age_reference as reference_of
 from align.record import with_age_reference
 from align.schema_base import Estimate
@@ -166,7 +166,7 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     does not grow as ``draws x n``; the draws are the same as in one block.
     """
     check_draws(draws, t.size)
-    fit = fit_ramp(t, x, w, sign)
+    fit = fit_ramp(t, x, w, sign, ar1_ramp_persistence(t, x, w, sign))
     fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
     resid = x - fitted
     a = ar1_persistence(t, resid)
@@ -178,7 +178,8 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     chunks = []
     for s in range(0, draws, rows):
         chunks.append(bootstrap_ramps(t, w, fitted, simulate_ar1(
-            t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign))
+            t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign,
+            tau_draws[s:s + rows]))
         if progress is not None:
             progress.step(len(chunks[-1]))
     samples = np.vstack(chunks)
@@ -298,7 +299,7 @@ def noise_parameters(t, w, fitted, a, sd, sign, draws, rng):
     should.
     """
     noise = simulate_ar1(t, persistence_time(t, a), sd, PILOT, rng)
-    params = bootstrap_ramps(t, w, fitted, noise, sign)
+    params = bootstrap_ramps(t, w, fitted, noise, sign, persistence_time(t, a))
     ok = np.all(np.isfinite(params), axis=1)
     if ok.sum() < PILOT // 2 or sd == 0:
         return a, sd, np.full(draws, a), np.full(draws, sd)

@@ -77,7 +77,7 @@ def test_ramp_levels_equals_weighted_least_squares():
     w = rng.uniform(0.5, 2.0, 80)
     for t1, t2 in ((50.0, 120.0), (100.0, 100.0), (10.0, 290.0), (200.0, 201.5)):
         x = 2.0 + 3.0 * _ramp_design(t, t1, t2) + rng.normal(0, 0.3, 80)
-        np.testing.assert_allclose(ramp_levels(t, x, w, t1, t2),
+        np.testing.assert_allclose(ramp_levels(t, x, w, t1, t2, np.zeros(80)),
                                    _weighted_levels(t, x, w, t1, t2), rtol=1e-10, atol=1e-10)
 
 
@@ -92,7 +92,7 @@ def test_exhaustive_ramp_search_finds_the_brute_force_optimum():
     w = rng.uniform(0.5, 2.0, n)
     X = 1.0 + 2.0 * _ramp_design(t, 60.0, 110.0) + rng.normal(0, 0.4, (3, n))
     X[2] = rng.normal(0, 1.0, n)  # no transition at all: still the least-squares optimum
-    out = ramp_search(t, w, X, 0, 1, min_plateau)
+    out = ramp_search(t, w, X, np.zeros((1, n)), 0, 1, min_plateau)
     lo_i, hi_j = min_plateau - 1, n - min_plateau
     for r in range(X.shape[0]):
         ssr = {(i, j): _weighted_levels(t, X[r], w, t[i], t[j])[2]
@@ -240,9 +240,9 @@ def test_coarse_to_fine_ramp_search_finds_the_exhaustive_optimum(seed):
     t1 = rng.uniform(300, 2000)
     amplitude = (3.0, 4.0)[seed % 2]
     X = amplitude * _ramp_design(t, t1, t1 + rng.uniform(20, 600)) + rng.normal(0, 1, (8, n))
-    exhaustive = ramp_search(t, w, X, 0, 1, 2)
+    exhaustive = ramp_search(t, w, X, np.zeros((1, n)), 0, 1, 2)
     for step in (3, 6):
-        coarse = ramp_search(t, w, X, 0, step, 2, True)
+        coarse = ramp_search(t, w, X, np.zeros((1, n)), 0, step, 2, True)
         np.testing.assert_array_equal(coarse[:, 5:], exhaustive[:, 5:])
         np.testing.assert_allclose(coarse[:, :5], exhaustive[:, :5], rtol=1e-12)
 
@@ -257,7 +257,7 @@ def test_fit_ramp_on_a_long_series_equals_the_exhaustive_search():
     w = np.ones(n)
     x = 3.0 * _ramp_design(t, 4000.0, 4300.0) + rng.normal(0, 1, n)
     fit = fit_ramp(t, x, w)
-    best = ramp_search(t, w, x[None, :], 0, 1, MIN_PLATEAU)[0]
+    best = ramp_search(t, w, x[None, :], np.zeros((1, n)), 0, 1, MIN_PLATEAU)[0]
     # the continuous refinement starts from the exhaustive optimum's corners and improves it
     assert fit.ssr <= best[4] * (1 + 1e-12)
     assert abs(fit.t1 - t[int(best[5])]) < 3 * np.diff(t).max()
