@@ -171,6 +171,12 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     resid = x - fitted
     a = ar1_persistence(t, resid)
     sd = residual_sd(resid, w, a)
+    a = noise_parameters(t, w, fitted, a, sd, sign, 1, rng)[0]
+    fit = fit_ramp(t, x, w, sign, persistence_time(t, a))
+    fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
+    resid = x - fitted
+    a = ar1_persistence(t, resid)
+    sd = residual_sd(resid, w, a)
     a, sd, a_draws, sd_draws = noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
     tau_draws = persistence_time(t, a_draws)
     rows = max(1, CHUNK_VALUES // t.size)  # replicates simulated and fitted at a time
@@ -179,7 +185,7 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     for s in range(0, draws, rows):
         chunks.append(bootstrap_ramps(t, w, fitted, simulate_ar1(
             t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign,
-            tau_draws[s:s + rows]))
+            persistence_time(t, a)))
         if progress is not None:
             progress.step(len(chunks[-1]))
     samples = np.vstack(chunks)
