@@ -182,6 +182,8 @@ def ar1_ramp_persistence(t, x, w, sign=0, grid=40):
     step = max(1, t.size // EXHAUSTIVE)
     ssr = ramp_search(t, w, np.repeat(x[None, :], grid, axis=0), phi, int(sign), step,
                       MIN_PLATEAU, True)[:, 4]
+    if not np.all(ssr > 0):  # a noise-free ramp: no persistence to tell
+        return 0.0
     ll = -0.5 * t.size * np.log(ssr / t.size) - 0.5 * np.log1p(-phi[:, 1:] ** 2).sum(axis=1)
     return float(tau[np.nanargmax(ll)])
 
