@@ -15,7 +15,7 @@ from align.errors import InputError
 from align.progress import steps
 from align.markers.onset import NoiseModel
 from align.noise import ar1_persistence, ar1_profile_loglik, persistence_time, simulate_ar1
-from align.ramp import ar1_ramp_persistence, bootstrap_ramps, fit_ramp, ramp, ramps
+from align.ramp import bootstrap_ramps, fit_ramp, ramp, ramps
 from align.record import age_reference as reference_of
 from align.record import with_age_reference
 from align.schema_base import Estimate
@@ -164,20 +164,24 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     Returns the (finite) bootstrap rows ``t1, t2, x1, x2``, the fit and its noise model.
     Replicates are simulated and refitted ``CHUNK_VALUES // n`` rows at a time, so memory
     does not grow as ``draws x n``; the draws are the same as in one block.
+
+    The least-squares ramp's residuals give the AR(1) persistence, bias-corrected by a pilot
+    (:func:`noise_parameters`); the ramp is refitted under that persistence (generalised
+    least squares, :func:`align.ramp.fit_ramp`), its residuals give the noise model, and
+    each replicate is refitted under the same persistence. Under red noise the ordinary
+    least-squares ramp often takes a noise excursion beside a short transition into a much
+    longer ramp and dates its onset too old; the refit mostly avoids that.
     """
     check_draws(draws, t.size)
-    fit = fit_ramp(t, x, w, sign, ar1_ramp_persistence(t, x, w, sign))
-    fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
-    resid = x - fitted
-    a = ar1_persistence(t, resid)
-    sd = residual_sd(resid, w, a)
-    a = noise_parameters(t, w, fitted, a, sd, sign, 1, rng)[0]
-    fit = fit_ramp(t, x, w, sign, persistence_time(t, a))
-    fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
-    resid = x - fitted
-    a = ar1_persistence(t, resid)
-    sd = residual_sd(resid, w, a)
-    a, sd, a_draws, sd_draws = noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
+    tau = 0.0
+    for _ in range(2):  # least squares, then refitted under the noise its residuals show
+        fit = fit_ramp(t, x, w, sign, tau)
+        fitted = ramp(t, fit.t1, fit.t2, fit.x1, fit.x2)
+        resid = x - fitted
+        a = ar1_persistence(t, resid)
+        sd = residual_sd(resid, w, a)
+        a, sd, a_draws, sd_draws = noise_parameters(t, w, fitted, a, sd, sign, draws, rng)
+        tau = persistence_time(t, a)
     tau_draws = persistence_time(t, a_draws)
     rows = max(1, CHUNK_VALUES // t.size)  # replicates simulated and fitted at a time
     progress = steps("onset bootstrap", draws, "replicates") if draws > rows else None
@@ -185,12 +189,12 @@ def onset_bootstrap(t, x, w, sign, draws, rng):
     for s in range(0, draws, rows):
         chunks.append(bootstrap_ramps(t, w, fitted, simulate_ar1(
             t, tau_draws[s:s + rows], sd_draws[s:s + rows], min(rows, draws - s), rng), sign,
-            persistence_time(t, a)))
+            tau))
         if progress is not None:
             progress.step(len(chunks[-1]))
     samples = np.vstack(chunks)
     samples = samples[np.all(np.isfinite(samples), axis=1)]
-    return samples, fit, NoiseModel(sd=sd, ar1=a, tau=persistence_time(t, a))
+    return samples, fit, NoiseModel(sd=sd, ar1=a, tau=tau)
 
 
 #: Persistence times of the no-transition surrogates behind a step's p-value, as fractions

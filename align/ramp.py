@@ -140,7 +140,8 @@ def fit_ramp(t, x, w, sign=0, tau=0.0):
 
     With ``tau > 0`` the fit is generalised least squares under AR(1) noise: the SSR is that
     of the prewhitened residuals ``e_0`` and ``(e_k - phi_k e_{k-1}) / sqrt(1 - phi_k^2)``,
-    ``phi_k = exp(-(t_k - t_{k-1}) / tau)`` (Mudelsee 2014, sect. 4.1.3 and 4.2). For fixed
+    ``phi_k = exp(-(t_k - t_{k-1}) / tau)`` (generalised least squares by prewhitening;
+    Mudelsee 2010, doi:10.1007/978-90-481-9482-7, key ``mudelsee2010``). For fixed
     corners the model stays linear in the two levels, so the search is unchanged. Under red
     noise it keeps the ordinary least-squares ramp from taking a slow noise excursion beside
     a short transition into a much longer ramp.
@@ -169,23 +170,6 @@ def fit_ramp(t, x, w, sign=0, tau=0.0):
     t1, t2 = (result.x if result.fun <= profile(start) else start)
     x1, x2, ssr = ramp_levels(t, x, w, t1, t2, phi[0])
     return RampFit(float(t1), float(t2), x1, x2, ssr, bool(edge))
-
-
-def ar1_ramp_persistence(t, x, w, sign=0, grid=40):
-    """Persistence time maximising the AR(1) likelihood of the ramp fitted under it."""
-    from align._kernels import ramp_search
-
-    d = float(np.diff(t).mean())
-    a = np.linspace(0.0, 0.98, grid)
-    tau = np.where(a > 0, -d / np.log(np.where(a > 0, a, 0.5)), 0.0)
-    phi = ar1_coefficients(t, tau)
-    step = max(1, t.size // EXHAUSTIVE)
-    ssr = ramp_search(t, w, np.repeat(x[None, :], grid, axis=0), phi, int(sign), step,
-                      MIN_PLATEAU, True)[:, 4]
-    if not np.all(ssr > 0):  # a noise-free ramp: no persistence to tell
-        return 0.0
-    ll = -0.5 * t.size * np.log(ssr / t.size) - 0.5 * np.log1p(-phi[:, 1:] ** 2).sum(axis=1)
-    return float(tau[np.nanargmax(ll)])
 
 
 def bootstrap_ramps(t, w, fitted, replicates, sign=0, tau=0.0):
