@@ -206,27 +206,53 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
 
 
 @njit(cache=True, nogil=True)
-def _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx):
-    """Weighted least-squares levels of the ramp with corners at samples ``i`` < ``j``:
-    returns ``(b, a, Q)`` with ``x = a + b g`` and ``SSR = Sxx - Sx^2/Sw - Q``."""
+def _pair_fit(i, j, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy):
+    """Least-squares levels of the prewhitened ramp with corners at samples ``i`` < ``j``:
+    returns ``(b, a, Q)`` with ``x = a + b g`` and ``SSR = Syy - Scy^2/Scc - Q`` (prefix
+    sums of :func:`_prewhiten`; samples ``i + 1 .. j`` see the slope, later ones the step)."""
     ti = t[i]
     d = t[j] - ti
-    rw = Pw[j] - Pw[i + 1]
-    rwt = Pwt[j] - Pwt[i + 1]
-    rwtt = Pwtt[j] - Pwtt[i + 1]
-    rwx = Pwx[j] - Pwx[i + 1]
-    rwtx = Pwtx[j] - Pwtx[i + 1]
-    aw = Sw - Pw[j]
-    awx = Sx - Pwx[j]
-    sg = (rwt - ti * rw) / d + aw
-    sgg = (rwtt - 2.0 * ti * rwt + ti * ti * rw) / (d * d) + aw
-    sgx = (rwtx - ti * rwx) / d + awx
-    det = Sw * sgg - sg * sg
-    if det <= 1e-12 * Sw * Sw:
-        return 0.0, Sx / Sw, -1.0
-    num = Sw * sgx - sg * Sx
+    rc = Pcc[j + 1] - Pcc[i + 1]
+    rcu = Pcu[j + 1] - Pcu[i + 1]
+    ruu = Puu[j + 1] - Puu[i + 1]
+    rcy = Pcy[j + 1] - Pcy[i + 1]
+    ruy = Puy[j + 1] - Puy[i + 1]
+    ac = Scc - Pcc[j + 1]
+    acy = Scy - Pcy[j + 1]
+    sg = (rcu - ti * rc) / d + ac
+    sgg = (ruu - 2.0 * ti * rcu + ti * ti * rc) / (d * d) + ac
+    sgx = (ruy - ti * rcy) / d + acy
+    det = Scc * sgg - sg * sg
+    if det <= 1e-12 * Scc * Scc:
+        return 0.0, Scy / Scc, -1.0
+    num = Scc * sgx - sg * Scy
     b = num / det
-    return b, (Sx - b * sg) / Sw, num * num / (Sw * det)
+    return b, (Scy - b * sg) / Scc, num * num / (Scc * det)
+
+
+@njit(cache=True, nogil=True)
+def _prewhiten(t, w, x, phi, P):
+    """Prefix sums ``P`` (5, n + 1) of ``w c^2, w c u, w u^2, w c y, w u y`` and ``sum w y^2``
+    for the AR(1)-prewhitened series: ``c_k = (1 - phi_k) / s_k``, ``u_k = (t_k - phi_k
+    t_{k-1}) / s_k``, ``y_k = (x_k - phi_k x_{k-1}) / s_k`` with ``s_k = sqrt(1 - phi_k^2)``
+    (``c_0 = 1``, ``u_0 = t_0``, ``y_0 = x_0``; all ``phi = 0``: ordinary least squares)."""
+    syy = 0.0
+    for k in range(t.size):
+        if k == 0 or phi[k] == 0.0:
+            c, u, y = 1.0, t[k], x[k]
+        else:
+            s = np.sqrt(1.0 - phi[k] * phi[k])
+            c = (1.0 - phi[k]) / s
+            u = (t[k] - phi[k] * t[k - 1]) / s
+            y = (x[k] - phi[k] * x[k - 1]) / s
+        wk = w[k]
+        P[0, k + 1] = P[0, k] + wk * c * c
+        P[1, k + 1] = P[1, k] + wk * c * u
+        P[2, k + 1] = P[2, k] + wk * u * u
+        P[3, k + 1] = P[3, k] + wk * c * y
+        P[4, k + 1] = P[4, k] + wk * u * y
+        syy += wk * y * y
+    return syy
 
 
 @njit(cache=True, nogil=True)
@@ -249,7 +275,7 @@ STARTS = 4
 
 
 @njit(cache=True, nogil=True)
-def ramp_search(t, w, X, sign, step, min_plateau, full=False):
+def ramp_search(t, w, X, phi, sign, step, min_plateau, full=False):
     """Least-squares ramp fits (Mudelsee 2000) of many series on one irregular time axis.
 
     Parameters
@@ -260,6 +286,11 @@ def ramp_search(t, w, X, sign, step, min_plateau, full=False):
         Weights.
     X : float64[B, n]
         Series to fit (e.g. bootstrap replicates).
+    phi : float64[1 or B, n]
+        AR(1) coefficients ``phi_k`` between samples ``k - 1`` and ``k`` (``phi_0`` unused),
+        one row for all series or one per series: the fit minimises the weighted sum of
+        squared prewhitened residuals (generalised least squares under AR(1) noise; all
+        zeros: ordinary least squares).
     sign : int
         +1 only rising ramps, -1 only falling, 0 either.
     step : int
@@ -290,28 +321,15 @@ def ramp_search(t, w, X, sign, step, min_plateau, full=False):
     """
     B, n = X.shape
     out = np.full((B, 7), np.nan)
-    Pw = np.zeros(n + 1)
-    Pwt = np.zeros(n + 1)
-    Pwtt = np.zeros(n + 1)
-    for k in range(n):
-        Pw[k + 1] = Pw[k] + w[k]
-        Pwt[k + 1] = Pwt[k] + w[k] * t[k]
-        Pwtt[k + 1] = Pwtt[k] + w[k] * t[k] * t[k]
-    Sw = Pw[n]
+    P = np.zeros((5, n + 1))
     lo_i = min_plateau - 1
     hi_j = n - min_plateau
     if hi_j <= lo_i:
         return out
     for r in range(B):
-        Pwx = np.zeros(n + 1)
-        Pwtx = np.zeros(n + 1)
-        sxx = 0.0
-        for k in range(n):
-            x = X[r, k]
-            Pwx[k + 1] = Pwx[k] + w[k] * x
-            Pwtx[k + 1] = Pwtx[k] + w[k] * t[k] * x
-            sxx += w[k] * x * x
-        Sx = Pwx[n]
+        syy = _prewhiten(t, w, X[r], phi[r if phi.shape[0] > 1 else 0], P)
+        Pcc, Pcu, Puu, Pcy, Puy = P[0], P[1], P[2], P[3], P[4]
+        Scc, Scy = Pcc[n], Pcy[n]
         # coarse: every step-th sample (and the last ones); keep the STARTS best pairs
         top_q = np.full(STARTS, -1.0)
         top_i = np.full(STARTS, -1)
@@ -320,7 +338,7 @@ def ramp_search(t, w, X, sign, step, min_plateau, full=False):
         while i <= hi_j - 1:
             j = i + 1
             while j <= hi_j:
-                b, a, q = _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+                b, a, q = _pair_fit(i, j, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)
                 if q > top_q[STARTS - 1] and (sign == 0 or b * sign > 0):
                     k = STARTS - 1
                     while k > 0 and top_q[k - 1] < q:
@@ -339,7 +357,7 @@ def ramp_search(t, w, X, sign, step, min_plateau, full=False):
                 i0, i1, j0, j1 = ci - step, ci + step, cj - step, cj + step
                 for i in range(max(lo_i, i0), min(hi_j - 1, i1) + 1):
                     for j in range(max(j0, i + 1, lo_i + 1), min(hi_j, j1) + 1):
-                        b, a, q = _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+                        b, a, q = _pair_fit(i, j, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)
                         if q > cq and (sign == 0 or b * sign > 0):
                             cq, ci, cj = q, i, j
             moved = True
@@ -357,7 +375,7 @@ def ramp_search(t, w, X, sign, step, min_plateau, full=False):
                         j0, j1 = max(lo_i + 1, cj - 1), min(hi_j, cj + 1)
                     for i in range(i0, i1 + 1):
                         for j in range(max(j0, i + 1), j1 + 1):
-                            b, a, q = _pair_fit(i, j, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
+                            b, a, q = _pair_fit(i, j, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)
                             if q > cq and (sign == 0 or b * sign > 0):
                                 cq, ci, cj = q, i, j
                                 moved = True
@@ -365,16 +383,16 @@ def ramp_search(t, w, X, sign, step, min_plateau, full=False):
                 best, bi, bj = cq, ci, cj
         if bi < 0:
             continue
-        b, a, q = _pair_fit(bi, bj, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)
-        base = sxx - Sx * Sx / Sw
+        b, a, q = _pair_fit(bi, bj, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)
+        base = syy - Scy * Scy / Scc
         t1, t2 = t[bi], t[bj]
         if lo_i < bi and bi + 1 < bj:
-            s_lo = base - _pair_fit(bi - 1, bj, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
-            s_hi = base - _pair_fit(bi + 1, bj, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
+            s_lo = base - _pair_fit(bi - 1, bj, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)[2]
+            s_hi = base - _pair_fit(bi + 1, bj, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)[2]
             t1 = _vertex(t[bi - 1], t[bi], t[bi + 1], s_lo, base - q, s_hi)
         if bi < bj - 1 and bj < hi_j:
-            s_lo = base - _pair_fit(bi, bj - 1, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
-            s_hi = base - _pair_fit(bi, bj + 1, t, Pw, Pwt, Pwtt, Pwx, Pwtx, Sw, Sx)[2]
+            s_lo = base - _pair_fit(bi, bj - 1, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)[2]
+            s_hi = base - _pair_fit(bi, bj + 1, t, Pcc, Pcu, Puu, Pcy, Puy, Scc, Scy)[2]
             t2 = _vertex(t[bj - 1], t[bj], t[bj + 1], s_lo, base - q, s_hi)
         out[r, 0] = t1
         out[r, 1] = max(t2, t1)
@@ -402,38 +420,45 @@ def ar1_series(z, dt, tau, sd):
             z[r, i] = a * z[r, i - 1] + s * np.sqrt(1.0 - a * a) * z[r, i]
     return z
 @njit(cache=True, nogil=True)
-def ramp_levels(t, x, w, t1, t2):
-    """Weighted least-squares levels and SSR of the ramp with corners ``t1 <= t2``.
-
-    The same closed form as :func:`align.ramp.levels`, compiled: it is called a few hundred
-    times while the corners are refined.
-    """
-    sw = sg = sgg = sx = sgx = 0.0
+def ramp_levels(t, x, w, t1, t2, phi):
+    """Levels and SSR of the ramp with corners ``t1 <= t2`` by least squares on the
+    AR(1)-prewhitened series (``phi`` as in :func:`ramp_search`; all zeros: the weighted
+    least squares of :func:`align.ramp.levels`), compiled: it is called a few hundred times
+    while the corners are refined."""
+    scc = sch = shh = scy = shy = 0.0
     span = t2 - t1
+    g_prev = 0.0
+    h = np.empty(t.size)
+    c = np.empty(t.size)
+    y = np.empty(t.size)
     for k in range(t.size):
         if span > 0.0:
             g = min(max((t[k] - t1) / span, 0.0), 1.0)
         else:
             g = 1.0 if t[k] >= t1 else 0.0
+        if k == 0 or phi[k] == 0.0:
+            c[k], h[k], y[k] = 1.0, g, x[k]
+        else:
+            s = np.sqrt(1.0 - phi[k] * phi[k])
+            c[k] = (1.0 - phi[k]) / s
+            h[k] = (g - phi[k] * g_prev) / s
+            y[k] = (x[k] - phi[k] * x[k - 1]) / s
+        g_prev = g
         wk = w[k]
-        sw += wk
-        sg += wk * g
-        sgg += wk * g * g
-        sx += wk * x[k]
-        sgx += wk * g * x[k]
-    det = sw * sgg - sg * sg
-    if det <= 1e-12 * sw * sw:
-        a, b = sx / sw, 0.0
+        scc += wk * c[k] * c[k]
+        sch += wk * c[k] * h[k]
+        shh += wk * h[k] * h[k]
+        scy += wk * c[k] * y[k]
+        shy += wk * h[k] * y[k]
+    det = scc * shh - sch * sch
+    if det <= 1e-12 * scc * scc:
+        a, b = scy / scc, 0.0
     else:
-        b = (sw * sgx - sg * sx) / det
-        a = (sx - b * sg) / sw
+        b = (scc * shy - sch * scy) / det
+        a = (scy - b * sch) / scc
     ssr = 0.0
     for k in range(t.size):
-        if span > 0.0:
-            g = min(max((t[k] - t1) / span, 0.0), 1.0)
-        else:
-            g = 1.0 if t[k] >= t1 else 0.0
-        r = x[k] - a - b * g
+        r = y[k] - a * c[k] - b * h[k]
         ssr += w[k] * r * r
     return a, a + b, ssr
 

@@ -96,7 +96,17 @@ class RampFit:
     edge: bool
 
 
-def fit_ramp(t, x, w, sign=0):
+def ar1_coefficients(t, tau):
+    """AR(1) coefficients ``phi_k = exp(-(t_k - t_{k-1}) / tau)`` between neighbouring samples
+    (``phi_0 = 0``), one row per persistence time ``tau`` (scalar or (B,); 0: white noise)."""
+    tau = np.atleast_1d(np.asarray(tau, dtype=float))
+    phi = np.zeros((tau.size, t.size))
+    red = tau > 0
+    phi[red, 1:] = np.exp(-np.diff(t)[None, :] / tau[red, None])
+    return phi
+
+
+def fit_ramp(t, x, w, sign=0, tau=0.0):
     """Best ramp: search over sample corners, then continuous refinement.
 
     Parameters
@@ -109,6 +119,9 @@ def fit_ramp(t, x, w, sign=0):
         Weights.
     sign : {1, -1, 0}
         Rising only, falling only, or either.
+    tau : float
+        Persistence time of the AR(1) noise the ramp is fitted under (0: white noise,
+        ordinary weighted least squares).
 
     Returns
     -------
@@ -124,11 +137,20 @@ def fit_ramp(t, x, w, sign=0):
     ``full``), so the search costs ``O(n)``. The refinement minimises the SSR profiled over
     the levels (closed form) with respect to continuous ``t1 < t2`` (Nelder-Mead), starting
     from the best pair of samples.
+
+    With ``tau > 0`` the fit is generalised least squares under AR(1) noise: the SSR is that
+    of the prewhitened residuals ``e_0`` and ``(e_k - phi_k e_{k-1}) / sqrt(1 - phi_k^2)``,
+    ``phi_k = exp(-(t_k - t_{k-1}) / tau)`` (generalised least squares by prewhitening;
+    Mudelsee 2010, doi:10.1007/978-90-481-9482-7, key ``mudelsee2010``). For fixed
+    corners the model stays linear in the two levels, so the search is unchanged. Under red
+    noise it keeps the ordinary least-squares ramp from taking a slow noise excursion beside
+    a short transition into a much longer ramp.
     """
     from align._kernels import ramp_levels, ramp_search
 
+    phi = ar1_coefficients(t, tau)
     step = max(1, t.size // EXHAUSTIVE)
-    best = ramp_search(t, w, x[None, :], int(sign), step, MIN_PLATEAU, True)[0]
+    best = ramp_search(t, w, x[None, :], phi, int(sign), step, MIN_PLATEAU, True)[0]
     i, j = int(best[5]), int(best[6])
     edge = i <= MIN_PLATEAU - 1 or j >= t.size - MIN_PLATEAU
 
@@ -136,7 +158,7 @@ def fit_ramp(t, x, w, sign=0):
         t1, t2 = p
         if not t[0] <= t1 <= t2 <= t[-1]:
             return np.inf
-        x1, x2, ssr = ramp_levels(t, x, w, t1, t2)
+        x1, x2, ssr = ramp_levels(t, x, w, t1, t2, phi[0])
         return ssr if sign == 0 or (x2 - x1) * sign > 0 else np.inf
 
     start = np.array([t[i], t[j]])
@@ -146,11 +168,11 @@ def fit_ramp(t, x, w, sign=0):
                       options={"initial_simplex": simplex, "xatol": 1e-7 * scale,
                                "fatol": 1e-12 * (1.0 + best[4]), "maxiter": 2000})
     t1, t2 = (result.x if result.fun <= profile(start) else start)
-    x1, x2, ssr = levels(t, x, w, t1, t2)
+    x1, x2, ssr = ramp_levels(t, x, w, t1, t2, phi[0])
     return RampFit(float(t1), float(t2), x1, x2, ssr, bool(edge))
 
 
-def bootstrap_ramps(t, w, fitted, replicates, sign=0):
+def bootstrap_ramps(t, w, fitted, replicates, sign=0, tau=0.0):
     """Refit ramps to many replicate series on the same axis.
 
     Parameters
@@ -162,6 +184,9 @@ def bootstrap_ramps(t, w, fitted, replicates, sign=0):
     replicates : numpy.ndarray (B, n)
         Noise series to add to ``fitted``.
     sign : {1, -1, 0}
+    tau : float or numpy.ndarray (B,)
+        Persistence time(s) of the AR(1) noise each replicate is refitted under (as in
+        :func:`fit_ramp`).
 
     Returns
     -------
@@ -174,8 +199,14 @@ def bootstrap_ramps(t, w, fitted, replicates, sign=0):
 
     step = max(1, t.size // 30)
     series = fitted[None, :] + replicates
+    phi = ar1_coefficients(t, tau)
     # the compiled search releases the GIL: one thread per core, each on a block of rows
     edges = blocks(series.shape[0], 1)
-    parts = pool().map(lambda k: ramp_search(t, w, series[edges[k]:edges[k + 1]], int(sign),
-                                             step, MIN_PLATEAU), range(len(edges) - 1))
+
+    def search(k):
+        rows = slice(edges[k], edges[k + 1]) if phi.shape[0] > 1 else slice(0, 1)
+        return ramp_search(t, w, series[edges[k]:edges[k + 1]], phi[rows], int(sign), step,
+                           MIN_PLATEAU)
+
+    parts = pool().map(search, range(len(edges) - 1))
     return np.vstack(list(parts))[:, :4]

@@ -17,6 +17,8 @@ REFERENCES = {
     "mudelsee2002": "Mudelsee, M. (2002): TAUEST: a computer program for estimating "
     "persistence in unevenly spaced weather/climate time series. Computers & Geosciences 28, "
     "69-72. doi:10.1016/S0098-3004(01)00041-3",
+    "mudelsee2010": "Mudelsee, M. (2010): Climate Time Series Analysis: Classical "
+    "Statistical and Bootstrap Methods. Springer, Dordrecht. doi:10.1007/978-90-481-9482-7",
     "erhardt2019": "Erhardt, T. et al. (2019): Decadal-scale progression of the onset of "
     "Dansgaard-Oeschger warming events. Clim. Past 15, 811-825. doi:10.5194/cp-15-811-2019",
     "divine2012": "Divine, D. V. et al. (2012): Tephra-based age models and the uncertainty "

@@ -77,8 +77,51 @@ def test_ramp_levels_equals_weighted_least_squares():
     w = rng.uniform(0.5, 2.0, 80)
     for t1, t2 in ((50.0, 120.0), (100.0, 100.0), (10.0, 290.0), (200.0, 201.5)):
         x = 2.0 + 3.0 * _ramp_design(t, t1, t2) + rng.normal(0, 0.3, 80)
-        np.testing.assert_allclose(ramp_levels(t, x, w, t1, t2),
+        np.testing.assert_allclose(ramp_levels(t, x, w, t1, t2, np.zeros(80)),
                                    _weighted_levels(t, x, w, t1, t2), rtol=1e-10, atol=1e-10)
+
+
+def test_prewhitened_ramp_levels_equal_statsmodels_gls_under_ar1():
+    """Under AR(1) noise on an irregular axis (correlation ``exp(-|t_i - t_j| / tau)``) the
+    prewhitened levels and SSR equal generalised least squares with that covariance
+    (statsmodels ``GLS``, which whitens by the Cholesky factor of the covariance)."""
+    import statsmodels.api as sm
+
+    from align._kernels import ramp_levels
+    from align.ramp import ar1_coefficients
+
+    rng = np.random.default_rng(14)
+    t = np.sort(rng.uniform(0, 300, 60))
+    tau = 40.0
+    sigma = np.exp(-np.abs(t[:, None] - t[None, :]) / tau)
+    for t1, t2 in ((50.0, 120.0), (100.0, 100.0), (200.0, 201.5)):
+        g = _ramp_design(t, t1, t2)
+        x = 2.0 + 3.0 * g + np.linalg.cholesky(sigma) @ rng.normal(0, 0.5, t.size)
+        gls = sm.GLS(x, np.column_stack([np.ones(t.size), g]), sigma=sigma).fit()
+        x1, x2, ssr = ramp_levels(t, x, np.ones(t.size), t1, t2, ar1_coefficients(t, tau)[0])
+        np.testing.assert_allclose([x1, x2 - x1, ssr], [*gls.params, gls.ssr], rtol=1e-9)
+
+
+def test_prewhitened_ramp_search_finds_the_brute_force_optimum():
+    """The prefix-sum search under AR(1) noise (one persistence per series) lands on the
+    sample pair with the least prewhitened SSR among all pairs, and reports that SSR."""
+    from align._kernels import ramp_levels, ramp_search
+    from align.ramp import ar1_coefficients
+
+    rng = np.random.default_rng(15)
+    n, min_plateau = 40, 2
+    t = np.sort(rng.uniform(0, 400, n))
+    w = rng.uniform(0.5, 2.0, n)
+    phi = ar1_coefficients(t, np.array([30.0, 100.0, 0.0]))
+    X = 1.0 + 2.0 * _ramp_design(t, 150.0, 180.0) + rng.normal(0, 0.6, (3, n))
+    out = ramp_search(t, w, X, phi, 0, 1, min_plateau)
+    for r in range(X.shape[0]):
+        ssr = {(i, j): ramp_levels(t, X[r], w, t[i], t[j], phi[r])[2]
+               for i in range(min_plateau - 1, n - min_plateau)
+               for j in range(i + 1, n - min_plateau + 1)}
+        best = min(ssr, key=ssr.get)
+        assert (int(out[r, 5]), int(out[r, 6])) == best
+        np.testing.assert_allclose(out[r, 4], ssr[best], rtol=1e-8)
 
 
 def test_exhaustive_ramp_search_finds_the_brute_force_optimum():
@@ -92,7 +135,7 @@ def test_exhaustive_ramp_search_finds_the_brute_force_optimum():
     w = rng.uniform(0.5, 2.0, n)
     X = 1.0 + 2.0 * _ramp_design(t, 60.0, 110.0) + rng.normal(0, 0.4, (3, n))
     X[2] = rng.normal(0, 1.0, n)  # no transition at all: still the least-squares optimum
-    out = ramp_search(t, w, X, 0, 1, min_plateau)
+    out = ramp_search(t, w, X, np.zeros((1, n)), 0, 1, min_plateau)
     lo_i, hi_j = min_plateau - 1, n - min_plateau
     for r in range(X.shape[0]):
         ssr = {(i, j): _weighted_levels(t, X[r], w, t[i], t[j])[2]
@@ -240,9 +283,9 @@ def test_coarse_to_fine_ramp_search_finds_the_exhaustive_optimum(seed):
     t1 = rng.uniform(300, 2000)
     amplitude = (3.0, 4.0)[seed % 2]
     X = amplitude * _ramp_design(t, t1, t1 + rng.uniform(20, 600)) + rng.normal(0, 1, (8, n))
-    exhaustive = ramp_search(t, w, X, 0, 1, 2)
+    exhaustive = ramp_search(t, w, X, np.zeros((1, n)), 0, 1, 2)
     for step in (3, 6):
-        coarse = ramp_search(t, w, X, 0, step, 2, True)
+        coarse = ramp_search(t, w, X, np.zeros((1, n)), 0, step, 2, True)
         np.testing.assert_array_equal(coarse[:, 5:], exhaustive[:, 5:])
         np.testing.assert_allclose(coarse[:, :5], exhaustive[:, :5], rtol=1e-12)
 
@@ -257,7 +300,7 @@ def test_fit_ramp_on_a_long_series_equals_the_exhaustive_search():
     w = np.ones(n)
     x = 3.0 * _ramp_design(t, 4000.0, 4300.0) + rng.normal(0, 1, n)
     fit = fit_ramp(t, x, w)
-    best = ramp_search(t, w, x[None, :], 0, 1, MIN_PLATEAU)[0]
+    best = ramp_search(t, w, x[None, :], np.zeros((1, n)), 0, 1, MIN_PLATEAU)[0]
     # the continuous refinement starts from the exhaustive optimum's corners and improves it
     assert fit.ssr <= best[4] * (1 + 1e-12)
     assert abs(fit.t1 - t[int(best[5])]) < 3 * np.diff(t).max()
