@@ -201,8 +201,8 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         record=record_name(record), variable=variable, window=window,
         **variable_units(record, variable),
         age_reference=reference_of(record), method=_method_text(method, noise),
-        references=(["mudelsee2000", "mudelsee2002", "mudelsee2010", "efron1993"] if method == "ramp"
-                    else ["erhardt2019"]),
+        references=(["mudelsee2000", "mudelsee2002", "mudelsee2010", "efron1993"]
+                    if method == "ramp" else ["erhardt2019"]),
         sample_interval=float(np.interp(point, t, width)),
         depth=None if depth is None else float(np.interp(-point, age, depth)),
         onset=estimate(onset_age), midpoint=estimate(0.5 * (onset_age + end_age)),
