@@ -150,7 +150,8 @@ def from_field(parser, model, name, flag=None, **overrides):
     annotation = field.annotation
     if get_origin(annotation) in (Union, types.UnionType):
         annotation = next(a for a in get_args(annotation) if a is not type(None))
-    options = {"help": field.description or name.replace("_", " "), "default": field.default}
+    options = {"help": field.description or name.replace("_", " "),
+               "default": None if field.is_required() else field.default}
     if annotation is bool:
         options["action"] = "store_true"
     elif get_origin(annotation) is Literal:

@@ -93,6 +93,8 @@ def test_every_option_has_help():
         for action in parser._actions:
             if action.option_strings and action.dest != "help":
                 assert action.help, (path, action.option_strings)
+        text = parser.format_help()
+        assert "Undefined" not in text, (path, text)  # a required field has no default to show
 
 
 def test_align_lists_only_options_it_accepts():
