@@ -179,6 +179,13 @@ def _output_option(parser, what, required=True):
     parser.add_argument("-o", "--output", required=required, metavar="PATH", help=what)
 
 
+def _report_options(parser):
+    """``-o``: write a report folder; ``--overwrite``: replace a report already there."""
+    _output_option(parser, "write a report folder", required=False)
+    parser.add_argument("--overwrite", action="store_true",
+                        help="replace a report already in the output folder")
+
+
 def _mapping_options(parser):
     group = parser.add_argument_group("how to read a table (text, .xlsx or generic NetCDF)")
     for role in ("age", "depth", "age-sd", "mce", "depth-top", "depth-bottom", "age-top",
@@ -356,9 +363,7 @@ def _lag_parser(commands):
                    help=(LagRequest.model_fields[name].description or name.replace("_", " "))
                    + f" (default: {LagRequest.model_fields[name].default})")
     _to_option(lag, C.DEFAULT_AGE_REFERENCE)
-    _output_option(lag, "write a report folder", required=False)
-    lag.add_argument("--overwrite", action="store_true",
-                     help="replace a report already in the output folder")
+    _report_options(lag)
     _json_option(lag)
     _mapping_options(lag)
     lag.set_defaults(run=_lag)
@@ -378,6 +383,7 @@ def _xcorr_parser(commands):
     for name in ("method", "surrogates", "surrogate_kind", "bootstrap", "seed"):
         from_field(xcorr, XcorrRequest, name)
     _to_option(xcorr)
+    _report_options(xcorr)
     _json_option(xcorr)
     _mapping_options(xcorr)
     xcorr.set_defaults(run=_xcorr)
@@ -389,9 +395,7 @@ def _survey_parser(commands):
     survey.add_argument("--scheduler", metavar="ADDRESS",
                         help="a dask.distributed scheduler (default: this machine)")
     _to_option(survey, C.DEFAULT_AGE_REFERENCE)
-    _output_option(survey, "write a report folder", required=False)
-    survey.add_argument("--overwrite", action="store_true",
-                        help="replace a report already in the output folder")
+    _report_options(survey)
     _json_option(survey)
     survey.set_defaults(run=_survey)
 
@@ -407,9 +411,7 @@ def _synchrony_parser(commands):
     from_field(synchrony, SynchronyRequest, "seed", default=None,
                help="random seed (used when the site file gives none)")
     _to_option(synchrony, C.DEFAULT_AGE_REFERENCE)
-    _output_option(synchrony, "write a report folder", required=False)
-    synchrony.add_argument("--overwrite", action="store_true",
-                           help="replace a report already in the output folder")
+    _report_options(synchrony)
     _json_option(synchrony)
     synchrony.set_defaults(run=_synchrony)
 
@@ -750,7 +752,7 @@ def _xcorr(args):
                                  surrogates=args.surrogates, surrogate_kind=args.surrogate_kind,
                                  window=parse_window(args.window), seed=args.seed,
                                  age_reference=args.to, bootstrap=args.bootstrap)
-    _print_json(result.to_dict()) if args.json else print(text.xcorr(result))
+    _finish(result, args, text.xcorr)
 
 
 def _survey(args):

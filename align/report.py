@@ -384,12 +384,13 @@ def xcorr_blocks(result):
 
     p = result.p_value_text or p_value_words(result.p_value, result.surrogates.count)
     peak = result.peak_lag
-    order = ("older in a" if peak.ci95[0] > 0 else "younger in a" if peak.ci95[1] < 0
-             else "neither older nor younger in a within its 95 % interval")
+    order = ("the pattern is older in a" if peak.ci95[0] > 0
+             else "the pattern is younger in a" if peak.ci95[1] < 0
+             else "the interval includes zero, so neither record is shown to lead")
     verdict = ("" if result.p_value is None else
                " (significant at 5 %)" if result.p_value < 0.05 else " (not significant at 5 %)")
     lead = (f"The best match of {result.a} with {result.b} is at a lag of {_fmt(peak.median)} "
-            f"yr (95 %: {_interval(peak.ci95)}): the pattern is {order}. Peak r = "
+            f"yr (95 %: {_interval(peak.ci95)}): {order}. Peak r = "
             f"{_fmt(result.peak_correlation, 2)}, {p}{verdict}; effective sample size "
             f"{_fmt(result.n_eff)}. A correlation shows a shared pattern, not a cause.")
     return [("h1", "Cross-correlation report"), ("p", lead),

@@ -208,6 +208,23 @@ def test_report_on_any_saved_result(tmp_path, command, title):
         done.stdout)
 
 
+def test_xcorr_writes_its_report_folder(tmp_path):
+    """``xcorr -o`` writes the report as ``lag -o`` does; its headline says which record
+    leads only when the peak lag's 95 % interval excludes zero."""
+    done = run_cli("xcorr", f"{RECORDS / 'hvd1_ice.nc'}:d18O", f"{RECORDS / 'trv3_lake.nc'}:d18O",
+                   "--max-lag", "200", "--window", "11900,12500", "--surrogates", "100",
+                   "--bootstrap", "100", "--seed", "1", "-o", tmp_path / "xc")
+    assert done.returncode == 0, done.stderr
+    assert f"report: {tmp_path / 'xc' / 'report.html'}" in done.stdout
+    saved = json.loads((tmp_path / "xc" / "report.json").read_text())
+    low, high = saved["peak_lag"]["ci95"]
+    page = (tmp_path / "xc" / "report.html").read_text()
+    assert "<h1>Cross-correlation report</h1>" in page
+    words = ("the pattern is older in a" if low > 0 else "the pattern is younger in a"
+             if high < 0 else "the interval includes zero, so neither record is shown to lead")
+    assert words in page
+
+
 def _files(folder):
     return {p.name: p.read_bytes() for p in folder.iterdir()}
 
