@@ -149,12 +149,10 @@ class XcorrResult(Model):
 # lag requests and results
 
 
-class LagRequest(Model):
-    """A lag request: the same for ``corealign lag --request``, ``POST /lag`` and
-    ``estimate_lag``."""
+class LagSettings(Model):
+    """How a lag is estimated, beyond its two markers: the same for one lag and for every
+    pair of a survey."""
 
-    a: MarkerSpec
-    b: MarkerSpec
     ties: str | None = Field(None, description="tie table between b (depth) and a "
                                                "(ref_depth/ref_age); b is moved onto a")
     age_reference: AgeRef = Field(DEFAULT_AGE_REFERENCE, description="reference of the "
@@ -170,6 +168,14 @@ class LagRequest(Model):
     age_error_scale: float = Field(DEFAULT_AGE_ERROR_SCALE, gt=0, description="age scale "
                                    "(yr) over which the errors of a timescale given only as "
                                    "an sd stay correlated: exp(-|age difference| / scale)")
+
+
+class LagRequest(LagSettings):
+    """A lag request: the same for ``corealign lag --request``, ``POST /lag`` and
+    ``estimate_lag``."""
+
+    a: MarkerSpec
+    b: MarkerSpec
 
 
 class LagSummary(Model):
@@ -293,20 +299,14 @@ class PairSpec(Model):
     b: MarkerSpec
 
 
-class SurveySpec(Model):
-    """Many marker pairs: explicit ``pairs``, or a ``table`` with ``a`` and ``b`` templates."""
+class SurveySpec(LagSettings):
+    """Many marker pairs: explicit ``pairs``, or a ``table`` with ``a`` and ``b`` templates;
+    every pair's lag is estimated with the same settings."""
 
     pairs: list[PairSpec] | None = None
     table: EventTable | None = None
     a: MarkerTemplate | None = None
     b: MarkerTemplate | None = None
-    ties: str | None = None
-    age_reference: AgeRef = Field(DEFAULT_AGE_REFERENCE, description="reference of the "
-                                  "windows and results")
-    draws: int = Field(DEFAULT_LAG_DRAWS, ge=MIN_LAG_DRAWS, le=MAX_LAG_DRAWS,
-                       description="Monte Carlo draws")
-    seed: int | None = Field(None, ge=0)
-    timescale_model: TimescaleModel = DEFAULT_TIMESCALE_MODEL
 
 
 class SurveyPair(Model):
@@ -612,7 +612,7 @@ __all__ = [
     "AgeConversion", "AgeRef", "BudgetItem", "CoordinateInfo", "Curve", "DETECT_REQUESTS",
     "Estimate", "EventCandidate", "EventRequest", "EventResult", "EventTable",
     "GridSummary", "GridVariable", "Heterogeneity", "Histogram", "InputRef", "KINDS",
-    "LagFigures", "LagRequest", "LagResult", "LagSummary", "Levels", "Marker",
+    "LagFigures", "LagRequest", "LagResult", "LagSettings", "LagSummary", "Levels", "Marker",
     "MarkerBase", "MarkerDraws", "MarkerSample", "MarkerSpec", "MarkerTemplate", "Model",
     "NoiseModel", "OnsetRequest", "OnsetResult", "Pair", "PairSpec", "PeakLag",
     "Provenance", "RecordExcerpt", "RecordInfo", "ResampleRequest", "SeriesRef", "Spread",

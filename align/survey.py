@@ -45,8 +45,8 @@ from align.errors import InputError
 from align.figures import compact_marker
 from align.lag import CAUTION, Sources, estimate_lag, lag_summary
 from align.provenance import dataset_checksum, provenance, resolve_seed, sha256_file
-from align.schema import (Heterogeneity, PairSpec, QShare, SurveyPair, SurveyResult,
-                          SurveySpec, validate_as)
+from align.schema import (Heterogeneity, LagSettings, PairSpec, QShare, SurveyPair,
+                          SurveyResult, SurveySpec, validate_as)
 
 #: Significance level below which Cochran's Q leads the headline.
 HETEROGENEITY_LEVEL = 0.05
@@ -139,11 +139,9 @@ class SurveySources(Sources):
 def _one_pair(pair, spec, sources, seed):
     """Estimate one pair; a bad pair is reported, not raised (a survey goes on)."""
     try:
-        result = estimate_lag({"a": pair.a.model_dump(), "b": pair.b.model_dump(),
-                               "ties": spec.ties, "age_reference": spec.age_reference,
-                               "draws": spec.draws, "seed": seed,
-                               "timescale_model": spec.timescale_model},
-                              sources=sources)
+        settings = spec.model_dump(include=set(LagSettings.model_fields))
+        result = estimate_lag({**settings, "a": pair.a.model_dump(), "b": pair.b.model_dump(),
+                               "seed": seed}, sources=sources)
     except InputError as exc:
         return SurveyPair(label=pair.label, error=str(exc)), None
     clear = all(getattr(m, "clear_transition", True) for m in (result.a, result.b))

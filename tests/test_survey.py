@@ -106,6 +106,22 @@ def test_records_ties_and_transfers_are_made_once_per_survey(monkeypatch):
     assert calls == {"record": 2, "ties": 1, "transfer": 1}
 
 
+def test_lag_settings_reach_every_pair_and_the_provenance():
+    """A survey takes the lag's settings (bridge rate, synchronisation error, age-error
+    scale) for every pair and states them; before, each pair silently used the defaults.
+    The demo's budget is led by the bridge between ties, so a 4x rate widens every pair."""
+    from align.requests import read_survey
+
+    spec = read_survey(RECORDS / "demo_survey.json").model_copy(update={"draws": 2000})
+    plain = survey(spec, workers=1)
+    wide = survey(spec.model_copy(update={"bridge_rate": 12.0, "sync_sd": 7.0,
+                                          "age_error_scale": 300.0}), workers=1)
+    for before, after in zip(plain.pairs, wide.pairs, strict=True):
+        assert after.lag.sd > 1.3 * before.lag.sd, (before.label, before.lag, after.lag)
+    used = wide.provenance.parameters
+    assert (used["bridge_rate"], used["sync_sd"], used["age_error_scale"]) == (12.0, 7.0, 300.0)
+
+
 def test_worker_count():
     from align.errors import InputError
     from align.survey import worker_count
