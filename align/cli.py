@@ -69,6 +69,7 @@ def main(argv=None):
         from align.progress import reporting
 
         with reporting(), _limits(getattr(args, "limit", [])):
+            _check_report_folder(args)
             code = args.run(args) or 0
         sys.stdout.flush()  # a closed pipe shows here, not at exit
         return code
@@ -177,6 +178,14 @@ def _to_option(parser, default="the record's"):
 
 def _output_option(parser, what, required=True):
     parser.add_argument("-o", "--output", required=required, metavar="PATH", help=what)
+
+
+def _check_report_folder(args):
+    """A report folder that cannot be written is refused before any work."""
+    if getattr(args, "overwrite", None) is not None and args.output:
+        from align.report import check_report_folder
+
+        check_report_folder(args.output, args.overwrite)
 
 
 def _report_options(parser):

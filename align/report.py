@@ -12,7 +12,9 @@ from __future__ import annotations
 
 import html
 import json
+import os
 import re
+import tempfile
 from pathlib import Path
 
 from align.choices import ReportFormat, options
@@ -122,16 +124,42 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
     if unknown:
         raise InputError(f"unknown report format {sorted(unknown)[0]!r}", field="formats")
     folder = Path(directory)
-    _check_target(folder, overwrite)
+    check_report_folder(folder, overwrite)
     figures, blocks = _contents(result)
     with new_folder(folder) as tmp:
         _write_files(tmp, result, figures, blocks, formats)
     return folder
 
 
-def _check_target(folder, overwrite):
-    """Refuse a file, a folder holding a report (unless ``overwrite``) and a folder holding
-    anything a report does not write (replacing the folder would delete it)."""
+def check_report_folder(directory, overwrite=False):
+    """Refuse, before any work, a report folder that cannot be written: a file, a folder
+    holding a report (unless ``overwrite``), a folder holding anything a report does not
+    write (replacing the folder would delete it), a place where nothing can be created.
+
+    Raises
+    ------
+    InputError
+        Naming the folder, with field ``output``.
+    """
+    folder = Path(directory)
+    _check_contents(folder, overwrite)
+    _check_writable(folder)
+
+
+def _check_writable(folder):
+    """A folder can be made where ``folder`` is to go (tried in its nearest existing
+    ancestor, and removed again: nothing is left behind)."""
+    ancestor = folder.absolute()
+    while not ancestor.exists() and ancestor != ancestor.parent:
+        ancestor = ancestor.parent
+    try:
+        os.rmdir(tempfile.mkdtemp(prefix=".corealign-check.", dir=ancestor))
+    except OSError as exc:
+        raise InputError(f"cannot write here ({exc.strerror})", source=str(folder),
+                         field="output") from None
+
+
+def _check_contents(folder, overwrite):
     if folder.exists() and not folder.is_dir():
         raise InputError("the report folder is an existing file", source=str(folder),
                          field="output")

@@ -2,8 +2,11 @@
 progress on stderr, a closed pipe, and reports that are never overwritten by accident."""
 
 import json
+import re
 import subprocess
 import sys
+
+import pytest
 
 from conftest import RECORDS, ROOT, run_cli
 
@@ -73,6 +76,26 @@ def test_a_report_is_not_overwritten_by_accident(tmp_path):
     assert again.returncode == 2 and "already holds a report" in again.stderr
     forced = run_cli("report", tmp_path / "report.json", "-o", tmp_path, "--overwrite")
     assert forced.returncode == 0, forced.stderr
+
+
+@pytest.mark.parametrize("command", [
+    ("lag", "--request", RECORDS / "demo_lag_request.json"),
+    ("survey", RECORDS / "demo_survey.json"),
+    ("xcorr", f"{ICE}:d18O", f"{RECORDS / 'trv3_lake.nc'}:d18O", "--max-lag", "200"),
+], ids=["lag", "survey", "xcorr"])
+@pytest.mark.parametrize("where, words", [
+    ("a-file", "the report folder is an existing file"),
+    ("a-file/sub", "cannot write here (Not a directory)"),
+])
+def test_a_report_folder_that_cannot_be_written_is_refused_before_the_work(
+        tmp_path, command, where, words):
+    """Before, the whole computation ran and then the folder was refused."""
+    (tmp_path / "a-file").write_text("kept")
+    done = run_cli(*command, "-o", tmp_path / where)
+    assert done.returncode == 2 and words in done.stderr, done.stderr
+    assert not re.search(r"estimating|survey:|cross-correlating", done.stderr), done.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a-file"]
+    assert (tmp_path / "a-file").read_text() == "kept"
 
 
 def test_onset_bootstrap_reports_counts_and_time_left(tmp_path):
