@@ -565,6 +565,19 @@ def verdict(summary, marker_a, marker_b):
             f"{summary.median:.0f} years {interval}")
 
 
+def _used_parameters(request, marker_a, marker_b, rec_b):
+    """The request's parameters with the values actually used where it left the choice to
+    the method: each marker's resolved settings (threshold, background, baseline, direction)
+    and the bridge rate estimated from the ties."""
+    used = request.model_dump(exclude={"seed"})
+    for side, marker in (("a", marker_a), ("b", marker_b)):
+        resolved = marker.provenance.parameters
+        used[side].update({k: v for k, v in resolved.items() if k in used[side]})
+    if rec_b is not None and "bridge_rate" in rec_b.attrs:
+        used["bridge_rate"] = float(rec_b.attrs["bridge_rate"])
+    return used
+
+
 def _assumptions(relation, rec_a, rec_b, marker_a, marker_b, request):
     model = request.timescale_model
     out = []
@@ -704,5 +717,6 @@ def _result(request, lag, center, parts, marker_a, marker_b, relation, rec_a, re
                                                    counts=counts.tolist()),
                            records=[_excerpt(rec_a, marker_a, "a"),
                                     _excerpt(rec_b, marker_b, "b")]),
-        provenance=provenance(inputs=inputs, parameters=request.model_dump(exclude={"seed"}),
+        provenance=provenance(inputs=inputs,
+                              parameters=_used_parameters(request, marker_a, marker_b, rec_b),
                               seed=seed))

@@ -194,6 +194,28 @@ def test_demo_request_recovers_the_true_lag():
             "age_reference", "provenance"} <= set(result)
 
 
+def test_provenance_states_the_values_used_and_reproduces_the_lag():
+    """Where the request leaves a choice to the method (threshold, background, baseline,
+    onset direction, bridge rate), the provenance states the value used, and a request
+    made of those values and the recorded seed gives the same lag."""
+    request = json.loads((RECORDS / "demo_lag_request.json").read_text())
+    for side in ("a", "b"):
+        request[side]["record"] = str(RECORDS / request[side]["record"])
+    request["ties"] = str(RECORDS / request["ties"])
+    request["draws"] = 4000
+    first = estimate_lag(request)
+    used = first.provenance.parameters
+    assert used["bridge_rate"] > 0 and used["b"]["direction"] in ("up", "down")
+    assert used["a"]["threshold"] > 0 and used["a"]["baseline_years"] > 0
+    assert used["a"]["background"] in ("log", "linear")
+    again = estimate_lag({**used, "seed": first.provenance.seed})
+    assert again.lag == first.lag
+    redone = again.provenance.parameters
+    # a given threshold states the false-alarm rate it implies (to rounding)
+    assert redone["a"].pop("false_alarms") == pytest.approx(used["a"].pop("false_alarms"))
+    assert redone == used
+
+
 def test_request_errors_are_located(tmp_path):
     request = json.loads((RECORDS / "demo_lag_request.json").read_text())
     request["draws"] = 5

@@ -197,6 +197,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
     clear, reason = _clarity(fit, p_value)
     point = {"onset": fit.t1, "end": fit.t2, "midpoint": 0.5 * (fit.t1 + fit.t2)}[position]
     depth = record["depth"].values if "depth" in record.coords else None
+    result_direction = "up" if fit.x2 > fit.x1 else "down"
     result = OnsetResult(
         record=record_name(record), variable=variable, window=window,
         **variable_units(record, variable),
@@ -209,13 +210,14 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         end=estimate(end_age), duration=estimate(onset_age - end_age),
         levels=Levels(before=estimate(samples[:, 2]), after=estimate(samples[:, 3])),
         amplitude=estimate(amplitude), noise=noise,
-        direction="up" if fit.x2 > fit.x1 else "down", clear_transition=clear,
+        direction=result_direction, clear_transition=clear,
         clear_transition_p=p_value, reason=reason,
         draws_used=int(len(samples)), position=position,
         flags=_flags(window, onset_age, end_age, position),
         trace=_onset_trace(bounds[keep], values[keep], window, fit, samples),
         provenance=provenance(inputs=[record_input(record, "record")], parameters={
-            "variable": variable, "window": window, "direction": direction, "method": method,
+            "variable": variable, "window": window, "direction": result_direction,
+            "method": method,
             "draws": draws, "position": position}, seed=seed))
     ages = {"onset": (onset_age, -samples[:, 0]), "end": (end_age, -samples[:, 1]),
             "midpoint": (0.5 * (onset_age + end_age), -0.5 * (samples[:, 0] + samples[:, 1]))}
