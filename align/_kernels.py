@@ -101,23 +101,11 @@ def _disordered(lo, hi, i):
     return (hi[i] < lo[i]) | (lo[i] < previous - 1e-9 * max(1.0, abs(previous)))
 
 
-def regular_cells(start, step, m):
-    """Bounds ``(start + j step, start + (j + 1) step)`` and centres of ``m`` regular cells,
-    in one pass; the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums
-    of its neighbours.
-
-    The arrays are allocated by numpy (large ones on huge pages where the system allows),
-    not inside the compiled loop: for fine grids, first-touch page faults of the loop's own
-    allocations cost three times the loop.
-    """
-    bounds = np.empty((m, 2))
-    centre = np.empty(m)
-    _fill_regular_cells(start, step, bounds, centre)
-    return bounds, centre
-
-
 @njit(cache=True, nogil=True)
 def _fill_regular_cells(start, step, bounds, centre):
+    """Bounds ``(start + j step, start + (j + 1) step)`` and centres of regular cells, in one
+    pass: the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums of its
+    neighbours (and as :func:`overlap_cells` writes when given the grid)."""
     right = start + step * 0
     for j in range(centre.size):
         left, right = right, start + step * (j + 1)
@@ -127,7 +115,8 @@ def _fill_regular_cells(start, step, bounds, centre):
 
 
 @njit(cache=True, nogil=True)
-def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
+def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native,
+                  grid=None, centre=None):
     """Overlap-weighted cell means of one variable, exactly, in one merge of samples and cells.
 
     Parameters
@@ -137,7 +126,8 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     values : float64[n]
         Sample values; NaN is missing.
     cells : float64[m, 2]
-        Cell bounds, increasing and not overlapping (e.g. a sliding-window view of edges).
+        Cell bounds, increasing and not overlapping (e.g. a sliding-window view of edges); with
+        ``grid``, an output.
     min_coverage : float
         Cells covered less than this (fraction) get a NaN mean.
     mean, coverage : float64[m]
@@ -148,6 +138,14 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
         Output: valid samples overlapping each cell.
     native : float64[m]
         Output: mean interval length of all samples overlapping each cell (NaN: none).
+    grid : (float, float, int), optional
+        ``(start, step, first)``: the cells are the regular cells ``first .. first + m - 1`` of
+        the grid with edges ``start + step * k``; the loop writes their bounds into ``cells``
+        and their centres into ``centre`` as it goes (the numbers of
+        :func:`_fill_regular_cells`)
+        instead of reading ``cells``.
+    centre : float64[m], optional
+        Output with ``grid``: the cells' centres.
 
     Returns
     -------
@@ -162,24 +160,37 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     next cell (past them otherwise), and each output is written once, so the cost is
     ``O(n + m)`` with no zero-filled scratch arrays and no second pass. A sample is counted in
     a cell when it overlaps it by a positive length; a zero-width sample counts in the cell
-    ``[left, right)`` holding it.
+    ``[left, right)`` holding it. The ordering check costs two comparisons per sample (with
+    the previous sample's end at hand); the tolerance is worked out only when they fail.
     """
     n, m = lo.size, cells.shape[0]
     ordered = True
     i = 0
+    right = 0.0
+    if grid is not None:
+        start, step, first = grid
+        right = start + step * first
     for j in range(m):
-        left, right = cells[j, 0], cells[j, 1]
+        if grid is None:
+            left, right = cells[j, 0], cells[j, 1]
+        else:
+            left, right = right, start + step * (first + j + 1)
+            cells[j, 0] = left
+            cells[j, 1] = right
+            centre[j] = 0.5 * (right + left)
         while i < n and (hi[i] < left or (hi[i] == left and lo[i] < hi[i])):
             if _disordered(lo, hi, i):
                 ordered = False
             i += 1
         integral = covered = width_sum = 0.0
         valid = overlapping = 0
+        previous = hi[i - 1] if i > 0 else -np.inf
         k = i
         while k < n and lo[k] < right:
             a, b = lo[k], hi[k]
-            if _disordered(lo, hi, k):
+            if ((b < a) | (a < previous)) and _disordered(lo, hi, k):  # (rarely checked)
                 ordered = False
+            previous = b
             overlap = min(b, right) - max(a, left)
             if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
                 width_sum += b - a
