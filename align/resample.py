@@ -38,17 +38,30 @@ class GridWarning(UserWarning):
 class RegularCells:
     """``m`` regular cells with edges ``start + step * k``, ``k = 0..m``.
 
-    ``bounds`` (m, 2) and ``centre`` (m,) are allocated empty and written by the first merge
+    ``edges`` (m + 1,) and ``centre`` (m,) are allocated empty and written by the first merge
     over the cells (:func:`overlap_mean`), in its pass (at 1e7 cells a separate pass, and the
     merge reading the cells back, cost a sixth of the merge); :meth:`fill` writes them when no
-    merge did.
+    merge did. The (m, 2) bounds are a view of the edges (a cell's right edge is the next
+    one's left): half the memory, and on fine grids fresh memory costs as much as a pass.
     """
 
     start: float
     step: float
-    bounds: np.ndarray
+    edges: np.ndarray
     centre: np.ndarray
     filled: bool = False
+
+    @property
+    def bounds(self):
+        """The cells' bounds (m, 2): a read-only view of the edges."""
+        return np.lib.stride_tricks.sliding_window_view(self.edges, 2)
+
+    @property
+    def cells(self):
+        """The bounds as the compiled loops write them: a writable view of the edges."""
+        stride = self.edges.strides[0]
+        return np.lib.stride_tricks.as_strided(self.edges, (self.centre.size, 2),
+                                               (stride, stride))
 
     def edge(self, k):
         """Edge ``k``: the same number the compiled loops write."""
@@ -59,7 +72,7 @@ class RegularCells:
         if not self.filled:
             from align._kernels import _fill_regular_cells
 
-            _fill_regular_cells(self.start, self.step, self.bounds, self.centre)
+            _fill_regular_cells(self.start, self.step, self.cells, self.centre)
             self.filled = True
         return self.bounds, self.centre
 
@@ -104,7 +117,7 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
     grid = edges if isinstance(edges, RegularCells) and not edges.filled else None
     if isinstance(edges, RegularCells):
-        cells = edges.bounds
+        cells = edges.cells
     else:
         edges = np.asarray(edges, dtype=float)
         cells = np.lib.stride_tricks.sliding_window_view(edges, 2) if edges.ndim == 1 else edges
@@ -176,7 +189,7 @@ def grid_cells(lo, hi, step, start=None, stop=None):
     if not np.isclose(start + count * step, stop, rtol=0, atol=1e-9 * max(1.0, abs(stop))):
         raise InputError(f"stop - start ({stop - start:g}) is not a whole number of steps "
                          f"({step:g})", field="stop")
-    return RegularCells(float(start), float(step), np.empty((count, 2)), np.empty(count))
+    return RegularCells(float(start), float(step), np.empty(count + 1), np.empty(count))
 
 
 def round_step(step):
@@ -256,13 +269,13 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
         raise InputError(f"the grid {first:g} to {last:g} lies wholly outside "
                          f"the record(s) ({lo:g} to {hi:g} {along})", field="start")
     names = _output_names(group, variables)
-    data = {f"{along}_bounds": ((along, NV), grid.bounds)}
+    data = {f"{along}_bounds": ((along, NV), grid.bounds)}  # (written by the first merge)
     for record, wanted in zip(group, names):
         native = ("native_interval" if len(group) == 1
                   else f"{_prefix(record_name(record))}_native_interval")
         data.update(_record_cells(record, wanted, along, grid, min_coverage, interpolate,
                                   native))
-    cells, centre = grid.fill()  # (written by the first merge)
+    cells, centre = grid.fill()
     out = xr.Dataset(data, coords=_axis_coords(along, centre, _axis_attrs(group[0], along)))
     out.attrs.update(
         Conventions="CF-1.8", title="corealign common grid",
