@@ -188,7 +188,7 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
             cells[c, 0] = left
             cells[c, 1] = right
             centre[c] = 0.5 * (right + left)
-        while i < n and (hi[i] < left or (hi[i] == left and lo[i] < hi[i])):
+        while i < n and (hi[_u(i)] < left or (hi[_u(i)] == left and lo[_u(i)] < hi[_u(i)])):
             if _disordered(lo, hi, i):
                 ordered = False
             i += 1
