@@ -104,7 +104,7 @@ def _disordered(lo, hi, i):
     rounding tolerance."""
     if i == 0:
         return hi[i] < lo[i]
-    previous = hi[i - 1]  # (``|``, not ``or``: no branch in the merge's inner loop)
+    previous = hi[i - 1]
     return (hi[i] < lo[i]) | (lo[i] < previous - 1e-9 * max(1.0, abs(previous)))
 
 
@@ -147,10 +147,9 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
         Output: mean interval length of all samples overlapping each cell (NaN: none).
     grid : (float, float, int), optional
         ``(start, step, first)``: the cells are the regular cells ``first .. first + m - 1`` of
-        the grid with edges ``start + step * k``; the loop writes their bounds into ``cells``
-        and their centres into ``centre`` as it goes (the numbers of
-        :func:`_fill_regular_cells`)
-        instead of reading ``cells``.
+        the grid with edges ``start + step * k``; instead of reading ``cells`` the loop writes
+        their bounds into it and their centres into ``centre`` as it goes (the numbers of
+        :func:`_fill_regular_cells`).
     centre : float64[m], optional
         Output with ``grid``: the cells' centres.
 
