@@ -157,6 +157,7 @@ def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native, g
         if grid is None:
             return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage,
                                  mean[a:b], coverage[a:b], count[a:b], native[a:b])
+        # (neighbouring blocks both write the edge between them: the same number)
         return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
                              coverage[a:b], count[a:b], native[a:b],
                              (grid.start, grid.step, a), grid.centre[a:b])
