@@ -92,32 +92,27 @@ def interp_sorted(x, xp, fp, out):
 
 
 @njit(cache=True, nogil=True, inline="always")
+def _u(index):
+    """``index`` (never negative) as an unsigned integer: an array access without the
+    negative-index wraparound numba adds for signed ones."""
+    return np.uint64(index)
+
+
+@njit(cache=True, nogil=True, inline="always")
 def _disordered(lo, hi, i):
     """Sample ``i`` runs backwards or overlaps the one before beyond the record model's
     rounding tolerance."""
     if i == 0:
         return hi[i] < lo[i]
-    previous = hi[i - 1]  # (``|``, not ``or``: no branch in the merge's inner loop)
+    previous = hi[i - 1]
     return (hi[i] < lo[i]) | (lo[i] < previous - 1e-9 * max(1.0, abs(previous)))
-
-
-def regular_cells(start, step, m):
-    """Bounds ``(start + j step, start + (j + 1) step)`` and centres of ``m`` regular cells,
-    in one pass; the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums
-    of its neighbours.
-
-    The arrays are allocated by numpy (large ones on huge pages where the system allows),
-    not inside the compiled loop: for fine grids, first-touch page faults of the loop's own
-    allocations cost three times the loop.
-    """
-    bounds = np.empty((m, 2))
-    centre = np.empty(m)
-    _fill_regular_cells(start, step, bounds, centre)
-    return bounds, centre
 
 
 @njit(cache=True, nogil=True)
 def _fill_regular_cells(start, step, bounds, centre):
+    """Bounds ``(start + j step, start + (j + 1) step)`` and centres of regular cells, in one
+    pass: the same numbers as ``start + step * numpy.arange(m + 1)`` and the half-sums of its
+    neighbours (and as :func:`overlap_cells` writes when given the grid)."""
     right = start + step * 0
     for j in range(centre.size):
         left, right = right, start + step * (j + 1)
@@ -127,7 +122,8 @@ def _fill_regular_cells(start, step, bounds, centre):
 
 
 @njit(cache=True, nogil=True)
-def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
+def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native,
+                  grid=None, centre=None):
     """Overlap-weighted cell means of one variable, exactly, in one merge of samples and cells.
 
     Parameters
@@ -137,7 +133,8 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     values : float64[n]
         Sample values; NaN is missing.
     cells : float64[m, 2]
-        Cell bounds, increasing and not overlapping (e.g. a sliding-window view of edges).
+        Cell bounds, increasing and not overlapping (e.g. a sliding-window view of edges); with
+        ``grid``, an output.
     min_coverage : float
         Cells covered less than this (fraction) get a NaN mean.
     mean, coverage : float64[m]
@@ -148,6 +145,13 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
         Output: valid samples overlapping each cell.
     native : float64[m]
         Output: mean interval length of all samples overlapping each cell (NaN: none).
+    grid : (float, float, int), optional
+        ``(start, step, first)``: the cells are the regular cells ``first .. first + m - 1`` of
+        the grid with edges ``start + step * k``; instead of reading ``cells`` the loop writes
+        their bounds into it and their centres into ``centre`` as it goes (the numbers of
+        :func:`_fill_regular_cells`).
+    centre : float64[m], optional
+        Output with ``grid``: the cells' centres.
 
     Returns
     -------
@@ -162,40 +166,56 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     next cell (past them otherwise), and each output is written once, so the cost is
     ``O(n + m)`` with no zero-filled scratch arrays and no second pass. A sample is counted in
     a cell when it overlaps it by a positive length; a zero-width sample counts in the cell
-    ``[left, right)`` holding it.
+    ``[left, right)`` holding it. The ordering check costs two comparisons per sample (with
+    the previous sample's end at hand); the tolerance is worked out only when they fail. The
+    loop's indices are never negative and are used unsigned (:func:`_u`), which spares each
+    access numba's negative-index wraparound (a tenth of the loop).
     """
     n, m = lo.size, cells.shape[0]
     ordered = True
     i = 0
+    right = 0.0
+    if grid is not None:
+        start, step, first = grid
+        right = start + step * first
     for j in range(m):
-        left, right = cells[j, 0], cells[j, 1]
-        while i < n and (hi[i] < left or (hi[i] == left and lo[i] < hi[i])):
+        c = _u(j)
+        if grid is None:
+            left, right = cells[c, 0], cells[c, 1]
+        else:
+            left, right = right, start + step * (first + j + 1)
+            cells[c, 0] = left
+            cells[c, 1] = right
+            centre[c] = 0.5 * (right + left)
+        while i < n and (hi[_u(i)] < left or (hi[_u(i)] == left and lo[_u(i)] < hi[_u(i)])):
             if _disordered(lo, hi, i):
                 ordered = False
             i += 1
         integral = covered = width_sum = 0.0
         valid = overlapping = 0
+        previous = hi[_u(i - 1)] if i > 0 else -np.inf
         k = i
-        while k < n and lo[k] < right:
-            a, b = lo[k], hi[k]
-            if _disordered(lo, hi, k):
+        while k < n and lo[_u(k)] < right:
+            a, b = lo[_u(k)], hi[_u(k)]
+            if ((b < a) | (a < previous)) and _disordered(lo, hi, k):  # (rarely checked)
                 ordered = False
+            previous = b
             overlap = min(b, right) - max(a, left)
             if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
                 width_sum += b - a
                 overlapping += 1
-                v = values[k]
+                v = values[_u(k)]
                 if v == v:
                     integral += v * overlap
                     covered += overlap
                     valid += 1
             k += 1
-        i = k - 1 if k > i and hi[k - 1] > right else k  # only the last can reach beyond
+        i = k - 1 if k > i and hi[_u(k - 1)] > right else k  # only the last can reach beyond
         cover = covered / (right - left)
-        coverage[j] = cover
-        mean[j] = integral / covered if covered > 0.0 and cover >= min_coverage else np.nan
-        count[j] = valid
-        native[j] = width_sum / overlapping if overlapping > 0 else np.nan
+        coverage[c] = cover
+        mean[c] = integral / covered if covered > 0.0 and cover >= min_coverage else np.nan
+        count[c] = valid
+        native[c] = width_sum / overlapping if overlapping > 0 else np.nan
     while i < n:  # the samples beyond the grid, up to the first that starts past its end
         if _disordered(lo, hi, i):
             ordered = False

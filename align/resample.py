@@ -11,6 +11,7 @@ is interpolated unless asked for.
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import dask.array as da
 import numpy as np
@@ -33,6 +34,49 @@ class GridWarning(UserWarning):
     """A choice made for the user about the grid (the default step)."""
 
 
+@dataclass
+class RegularCells:
+    """``m`` regular cells with edges ``start + step * k``, ``k = 0..m``.
+
+    ``edges`` (m + 1,) and ``centre`` (m,) are allocated empty and written by the first merge
+    over the cells (:func:`overlap_mean`), in its pass (at 1e7 cells a separate pass, and the
+    merge reading the cells back, cost a sixth of the merge); :meth:`fill` writes them when no
+    merge did. The (m, 2) bounds are a view of the edges (a cell's right edge is the next
+    one's left): half the memory, and on fine grids fresh memory costs as much as a pass.
+    """
+
+    start: float
+    step: float
+    edges: np.ndarray
+    centre: np.ndarray
+    filled: bool = False
+
+    @property
+    def bounds(self):
+        """The cells' bounds (m, 2): a read-only view of the edges."""
+        return np.lib.stride_tricks.sliding_window_view(self.edges, 2)
+
+    @property
+    def cells(self):
+        """The bounds as the compiled loops write them: a writable view of the edges."""
+        stride = self.edges.strides[0]
+        return np.lib.stride_tricks.as_strided(self.edges, (self.centre.size, 2),
+                                               (stride, stride))
+
+    def edge(self, k):
+        """Edge ``k``: the same number the compiled loops write."""
+        return self.start + self.step * k
+
+    def fill(self):
+        """The cells' bounds and centres, written now if no merge wrote them."""
+        if not self.filled:
+            from align._kernels import _fill_regular_cells
+
+            _fill_regular_cells(self.start, self.step, self.cells, self.centre)
+            self.filled = True
+        return self.bounds, self.centre
+
+
 def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     """Overlap-weighted means of interval samples over cells, with the bookkeeping.
 
@@ -42,8 +86,9 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
         Sample intervals, increasing, not overlapping (gaps allowed).
     values : numpy.ndarray (n,) or (n, v)
         Sample values; NaN is missing and reduces coverage.
-    edges : numpy.ndarray (m + 1,) or (m, 2)
-        Cell edges, increasing, or the cells' bounds.
+    edges : numpy.ndarray (m + 1,) or (m, 2), or RegularCells
+        Cell edges, increasing, or the cells' bounds, or regular cells (whose bounds and
+        centres the first merge writes).
     min_coverage : float
         Cells covered less than this fraction get a NaN mean (default: none).
 
@@ -70,18 +115,24 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     values = np.asarray(values, dtype=float)
     vals2d = values[:, None] if values.ndim == 1 else values
     lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
-    edges = np.asarray(edges, dtype=float)
-    cells = np.lib.stride_tricks.sliding_window_view(edges, 2) if edges.ndim == 1 else edges
+    grid = edges if isinstance(edges, RegularCells) and not edges.filled else None
+    if isinstance(edges, RegularCells):
+        cells = edges.cells
+    else:
+        edges = np.asarray(edges, dtype=float)
+        cells = np.lib.stride_tricks.sliding_window_view(edges, 2) if edges.ndim == 1 else edges
     m, nv = cells.shape[0], vals2d.shape[1]
     mean, coverage = np.empty((nv, m)), np.empty((nv, m))
     count = np.empty((nv, m), dtype=np.int32)
     native = np.empty(m)
     for k in range(nv):
         if not _merge(lo, hi, vals2d[:, k], cells, float(min_coverage), mean[k], coverage[k],
-                      count[k], native):
+                      count[k], native, grid if k == 0 else None):
             raise InputError("sample intervals overlap or run backwards (a record with "
                              "tolerated age inversions cannot be resampled along age; "
                              "resample along depth)", field="bounds")
+        if grid is not None:
+            grid.filled = True
     return mean.T, coverage.T, count.T, native
 
 
@@ -89,19 +140,27 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
 CELLS_PER_THREAD = 200_000
 
 
-def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
+def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native, grid=None):
     """Run the merge kernel over blocks of cells in parallel (it releases the GIL); each
     block starts at the sample before the first that reaches its first cell, so that the
-    ordering check sees every neighbouring pair. Returns whether the samples were ordered."""
+    ordering check sees every neighbouring pair. With ``grid`` (:class:`RegularCells`) the
+    kernel also writes the cells' bounds and centres. Returns whether the samples were
+    ordered."""
     from bisect import bisect_left
 
     from align._kernels import overlap_cells
     from align._threads import blocks, pool
 
     def block(a, b):
-        s = max(bisect_left(hi, cells[a, 0]) - 1, 0) if a else 0
+        left = cells[a, 0] if grid is None else grid.edge(a)
+        s = max(bisect_left(hi, left) - 1, 0) if a else 0
+        if grid is None:
+            return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage,
+                                 mean[a:b], coverage[a:b], count[a:b], native[a:b])
+        # (neighbouring blocks both write the edge between them: the same number)
         return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
-                             coverage[a:b], count[a:b], native[a:b])
+                             coverage[a:b], count[a:b], native[a:b],
+                             (grid.start, grid.step, a), grid.centre[a:b])
 
     bounds = blocks(cells.shape[0], CELLS_PER_THREAD)
     if len(bounds) == 2:
@@ -110,13 +169,12 @@ def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native):
 
 
 def grid_cells(lo, hi, step, start=None, stop=None):
-    """Regular cells from ``start`` to ``stop`` by ``step``: their bounds (m, 2) and centres.
+    """Regular cells from ``start`` to ``stop`` by ``step`` (:class:`RegularCells`, bounds and
+    centres not yet written).
 
     Defaults snap the data range outward to multiples of ``step``. The edges are
     ``start + step * k``, ``k = 0..m``, exactly.
     """
-    from align._kernels import regular_cells
-
     if not (np.isfinite(step) and step > 0):
         raise InputError("the grid step must be a positive number", field="step")
     for name, edge in (("start", start), ("stop", stop)):
@@ -132,7 +190,7 @@ def grid_cells(lo, hi, step, start=None, stop=None):
     if not np.isclose(start + count * step, stop, rtol=0, atol=1e-9 * max(1.0, abs(stop))):
         raise InputError(f"stop - start ({stop - start:g}) is not a whole number of steps "
                          f"({step:g})", field="stop")
-    return regular_cells(float(start), float(step), count)
+    return RegularCells(float(start), float(step), np.empty(count + 1), np.empty(count))
 
 
 def round_step(step):
@@ -206,17 +264,19 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
     # records run top-down; overlapping age intervals are refused by overlap_mean
     lo = min(r[f"{along}_bounds"].values[0, 0] for r in group)
     hi = max(r[f"{along}_bounds"].values[-1, 1] for r in group)
-    cells, centre = grid_cells(lo, hi, step, start, stop)
-    if cells[-1, 1] <= lo or cells[0, 0] >= hi:
-        raise InputError(f"the grid {cells[0, 0]:g} to {cells[-1, 1]:g} lies wholly outside "
+    grid = grid_cells(lo, hi, step, start, stop)
+    first, last = grid.edge(0), grid.edge(grid.centre.size)
+    if last <= lo or first >= hi:
+        raise InputError(f"the grid {first:g} to {last:g} lies wholly outside "
                          f"the record(s) ({lo:g} to {hi:g} {along})", field="start")
     names = _output_names(group, variables)
-    data = {f"{along}_bounds": ((along, NV), cells)}
+    data = {f"{along}_bounds": ((along, NV), grid.bounds)}  # (written by the first merge)
     for record, wanted in zip(group, names):
         native = ("native_interval" if len(group) == 1
                   else f"{_prefix(record_name(record))}_native_interval")
-        data.update(_record_cells(record, wanted, along, cells, centre, min_coverage,
-                                  interpolate, native))
+        data.update(_record_cells(record, wanted, along, grid, min_coverage, interpolate,
+                                  native))
+    cells, centre = grid.fill()
     out = xr.Dataset(data, coords=_axis_coords(along, centre, _axis_attrs(group[0], along)))
     out.attrs.update(
         Conventions="CF-1.8", title="corealign common grid",
@@ -297,21 +357,21 @@ def _axis_attrs(first, along):
             "bounds": "depth_bounds"}
 
 
-def _record_cells(record, wanted, along, cells, centre, min_coverage, interpolate,
-                  native_name):
-    """One record's variables on the grid: ``{name: (dims, values, attrs)}``."""
+def _record_cells(record, wanted, along, grid, min_coverage, interpolate, native_name):
+    """One record's variables on the grid (:class:`RegularCells`): ``{name: (dims, values,
+    attrs)}``."""
     if not wanted:
         return {}
     bounds = record[f"{along}_bounds"].values
     values = (record[wanted[0][0]].values.astype(float, copy=False) if len(wanted) == 1
               else np.column_stack([record[v].values.astype(float) for v, _ in wanted]))
     try:
-        mean, coverage, count, native = overlap_mean(bounds[:, 0], bounds[:, 1], values, cells,
+        mean, coverage, count, native = overlap_mean(bounds[:, 0], bounds[:, 1], values, grid,
                                                      0.0 if interpolate else min_coverage)
     except InputError as exc:
         raise exc.located(source=record.attrs.get("source"), field=f"{along}_bounds") from None
     if interpolate:
-        mean = _interpolate_fine(mean, count, record, along, values, centre)
+        mean = _interpolate_fine(mean, count, record, along, values, grid.centre)
         mean[coverage < min_coverage] = np.nan
     dim = along
     unit = "yr" if along == "age" else "m"
@@ -331,7 +391,7 @@ def _record_cells(record, wanted, along, cells, centre, min_coverage, interpolat
             "units": "1", "long_name": f"number of {var} samples overlapping the cell"})
     if along == "age" and "age_ensemble" in record:
         for var, name in wanted:
-            out[f"{name}_ensemble"] = _ensemble_cells(record, var, cells, min_coverage)
+            out[f"{name}_ensemble"] = _ensemble_cells(record, var, grid.bounds, min_coverage)
     return out
 
 

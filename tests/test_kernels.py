@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from align._kernels import (ar1_series, interp_sorted, overlap_cells, place_between_ties,
-                            regular_cells)
+from align._kernels import (_fill_regular_cells, ar1_series, interp_sorted, overlap_cells,
+                            place_between_ties)
 from align.ties import bridge_variance, tie_variance
 
 
@@ -255,6 +255,44 @@ def test_overlap_cells_reports_disorder():
     hi = np.array([1.0, 2.0, 2.5, 4.0])  # the third sample overlaps the second
     assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
     assert run_overlap_cells(lo[[0, 1, 3]], hi[[0, 1, 3]], np.ones(3), np.arange(0.0, 5.0))[0]
+    # an overlap within the record model's rounding tolerance (1e-9 relative) is no disorder
+    lo, hi = np.array([0.0, 1.0 - 1e-10, 2.0, 3.0]), np.array([1.0, 2.0, 3.0, 4.0])
+    assert run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+    lo[1] = 1.0 - 1e-8
+    assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+    lo[1], hi[2] = 1.0, 1.9  # a sample running backwards
+    assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+
+
+def regular_cells(start, step, m):
+    bounds, centre = np.empty((m, 2)), np.empty(m)
+    _fill_regular_cells(start, step, bounds, centre)
+    return bounds, centre
+
+
+@pytest.mark.parametrize("step", [0.05, 0.3, 1.0, 7.3])
+def test_overlap_cells_writes_the_regular_cells_it_merges(step):
+    """Given the grid, the merge writes the cells' bounds and centres as it goes (block by
+    block, as the threads run it): the numbers of ``regular_cells``, and the same means as
+    the merge that reads them."""
+    rng = np.random.default_rng(6)
+    lo, hi, values = irregular_intervals(rng, 2000)
+    start = 990.0 - 3 * step  # some cells before the first sample, some after the last
+    m = int((hi[-1] + 3 * step - start) / step)
+    cells, centre = regular_cells(start, step, m)
+    read = [np.empty(m), np.empty(m), np.empty(m, dtype=np.int32), np.empty(m)]
+    assert overlap_cells(lo, hi, values, cells, 0.4, *read)
+    written = [np.full(m, -1.0), np.full(m, -1.0), np.full(m, -1, dtype=np.int32),
+               np.full(m, -1.0)]
+    bounds, middle = np.full((m, 2), np.nan), np.full(m, np.nan)
+    for a, b in ((0, m // 3), (m // 3, m)):
+        s = max(np.searchsorted(hi, start + step * a) - 1, 0) if a else 0
+        assert overlap_cells(lo[s:], hi[s:], values[s:], bounds[a:b], 0.4,
+                             *(out[a:b] for out in written), (start, step, a), middle[a:b])
+    np.testing.assert_array_equal(bounds, cells)
+    np.testing.assert_array_equal(middle, centre)
+    for new, old in zip(written, read):
+        np.testing.assert_array_equal(new, old)
 
 
 @pytest.mark.parametrize("start, step, m", [(1000.0, 0.1, 12345), (-7.3, 2.5e-3, 1000),

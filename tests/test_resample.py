@@ -206,6 +206,15 @@ def test_blocks_of_cells_on_threads_give_the_same_grid(monkeypatch):
     assert len(threads.blocks(edges.size - 1, 100)) == 5
     for split, one in zip(overlap_mean(lo, hi, values, edges), whole):
         np.testing.assert_array_equal(split, one)
+    # a regular grid's bounds and centres are written by the blocks' merges
+    regular = 995.0 + 0.37 * np.arange(edges.size)  # (not arange's numbers)
+    grid = module.grid_cells(lo[0], hi[-1], 0.37, regular[0], regular[-1])
+    for split, one in zip(overlap_mean(lo, hi, values, grid),
+                          overlap_mean(lo, hi, values, regular)):
+        np.testing.assert_array_equal(split, one)
+    assert grid.filled
+    np.testing.assert_array_equal(grid.bounds, np.column_stack([regular[:-1], regular[1:]]))
+    np.testing.assert_array_equal(grid.centre, 0.5 * (regular[1:] + regular[:-1]))
     # disorder is found wherever it lies, also where a block starts
     cell = np.searchsorted(lo, edges[(edges.size - 1) // 2]) + 1
     lo[cell] = hi[cell - 1] - 0.1
