@@ -144,3 +144,8 @@ EDGE_SHARE = 0.1
 #: Ramps whose durations differ more than this factor are flagged ``ramp_ratio`` in a lag (a
 #: choice).
 RAMP_RATIO = 3.0
+#: An onset marker of the ramp method whose amplitude is at most this many noise sd carries
+#: the short-ramp bias caution (``OnsetResult.short_ramp_bias``): simulated onsets of short
+#: ramps under red noise are too old on average at 2 and 4 noise sd, not at 8 (a choice
+#: between them; see ``tests/test_calibration_onsets.py``).
+LOW_SNR = 5.0
