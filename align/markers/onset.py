@@ -373,8 +373,9 @@ def _clarity(fit, p_value):
 
 def _method_text(method, noise):
     if method == "ramp":
-        return ("ramp regression (Mudelsee 2000) in forward time, levels by weighted least "
-                "squares, corners by exhaustive search over the samples then continuous "
+        return ("ramp regression (Mudelsee 2000) in forward time, fitted by generalised "
+                "least squares under AR(1) noise (prewhitened; Mudelsee 2010), corners by "
+                "exhaustive search over the samples then continuous "
                 "refinement; AR(1) parametric bootstrap on the irregular axis (tau "
                 f"{noise.tau:.3g} yr, bias-corrected), replicates searched coarse-to-fine; "
                 "corners displaced uniformly within their sample interval")
