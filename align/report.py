@@ -451,9 +451,11 @@ def marker_blocks(marker):
     from align.markers import kind_of
 
     ref = marker.age_reference
+    unclear = (f"; {marker.reason}" if getattr(marker, "clear_transition", True) is False
+               and marker.reason else "")
     return [("h1", f"Marker report: {marker.kind}"),
             ("p", f"{kind_of(marker.kind).describe(marker)}: {_fmt(marker.age.median)} yr {ref} "
-                  f"(95 %: {_interval(marker.age.ci95)})."),
+                  f"(95 %: {_interval(marker.age.ci95)}){unclear}."),
             ("h2", "Result"), ("pre", "\n".join(kind_of(marker.kind).text(marker))),
             ("figure", "marker"),
             ("h2", "Method"), ("p", marker.method),
@@ -505,7 +507,7 @@ table{border-collapse:collapse;margin:.5rem 0;font-size:.92rem}
 td,th{border:1px solid #ccc;padding:.25rem .5rem;text-align:left;vertical-align:top}
 figure{margin:1rem 0}figure svg{max-width:100%;height:auto}
 figcaption{font-size:.85rem;color:#555}pre{background:#f6f6f6;padding:.5rem;overflow:auto;
-font-size:.8rem}
+font-size:.8rem;white-space:pre-wrap;overflow-wrap:anywhere}
 @media print{body{margin:0;max-width:none}figure,table{page-break-inside:avoid}}
 """
 

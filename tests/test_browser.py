@@ -116,5 +116,29 @@ def test_reports_render_in_chromium(tmp_path):
             assert f"{side}, {named}," in headline
         errors = [entry for entry in browser.get_log("browser") if entry["level"] == "SEVERE"]
         assert errors == []
+
+        browser.get((low_snr_onset_report(tmp_path / "onset") / "report.html").as_uri())
+        assert "no clear transition" in browser.find_element("id", "summary").text
+        result_text = browser.find_element("css selector", "pre")
+        assert "too old on average" in result_text.text  # the short-ramp caution, readable
+        wide = browser.execute_script("return [...document.querySelectorAll('pre')]"
+                                      ".filter(p => p.scrollWidth > p.clientWidth + 1).length")
+        assert wide == 0  # long lines wrap; none hides behind a scroll bar
     finally:
         browser.quit()
+
+
+def low_snr_onset_report(folder):
+    """The report of an onset at 2 noise sd under red noise: not a clear transition, with
+    the short-ramp caution (long lines in its result block)."""
+    import numpy as np
+
+    from align import detect_onset
+    from align.report import write_report
+    from test_calibration_onsets import ar1_windows, interval_record
+
+    t, series, _ = ar1_windows(10.0, 100.0, 1, np.random.default_rng(3), step=2.0)
+    marker = detect_onset(interval_record(t, series[0], 10.0), "x", [10_000, 10_500],
+                          draws=200, seed=1)
+    assert marker.short_ramp_bias and not marker.clear_transition
+    return write_report(marker, folder, formats=("html",)).resolve()
