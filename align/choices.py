@@ -81,6 +81,9 @@ DEFAULT_TIMESCALE_MODEL: TimescaleModel = "correlated"
 #: gives none: a rule of thumb for cores matched at volcanic horizons a few centuries apart
 #: (common practice); the lag states it as an assumption.
 DEFAULT_SYNC_SD = 5.0
+#: Largest age sd (yr) any one error source may state: a million years, beyond any timescale
+#: this tool dates against (a stated choice that keeps the arithmetic finite).
+MAX_AGE_SD = 1e6
 DEFAULT_TIE_INTERPOLATION: TieInterpolation = "linear"
 DEFAULT_GRID_AXIS: GridAxis = "age"
 DEFAULT_MIN_COVERAGE = 0.5

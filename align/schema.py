@@ -19,7 +19,8 @@ from align.choices import (DEFAULT_AGE_REFERENCE, DEFAULT_BOOTSTRAP, DEFAULT_COR
                            DEFAULT_GRID_AXIS, DEFAULT_LAG_DRAWS, DEFAULT_MIN_COVERAGE,
                            DEFAULT_SURROGATE_KIND, DEFAULT_SURROGATES, DEFAULT_SYNC_SD,
                            DEFAULT_TIMESCALE_MODEL, DEFAULT_AGE_ERROR_SCALE,
-                           DEFAULT_OUTLIER_PRIOR, MAX_LAG_DRAWS, MAX_SITES, MIN_LAG_DRAWS,
+                           DEFAULT_OUTLIER_PRIOR, MAX_AGE_SD, MAX_LAG_DRAWS, MAX_SITES,
+                           MIN_LAG_DRAWS,
                            AgeConvention, BudgetKind, CorrelationMethod, EventPick, GridAxis,
                            OnsetDirection,
                            OnsetMethod, SurrogateKind, SynchronyWhatIfKey, TimescaleModel,
@@ -162,9 +163,9 @@ class LagSettings(Model):
     seed: int | None = Field(None, ge=0)
     timescale_model: TimescaleModel = DEFAULT_TIMESCALE_MODEL
     bridge_rate: float | None = Field(None, ge=0)
-    sync_sd: float = Field(DEFAULT_SYNC_SD, ge=0, description="synchronisation error (1 sd, "
-                           "yr) between two cores on one shared timescale; the shared "
-                           "timescale's error cancels, this one does not")
+    sync_sd: float = Field(DEFAULT_SYNC_SD, ge=0, le=MAX_AGE_SD, description="synchronisation "
+                           "error (1 sd, yr) between two cores on one shared timescale; the "
+                           "shared timescale's error cancels, this one does not")
     age_error_scale: float = Field(DEFAULT_AGE_ERROR_SCALE, gt=0, description="age scale "
                                    "(yr) over which the errors of a timescale given only as "
                                    "an sd stay correlated: exp(-|age difference| / scale)")

@@ -16,7 +16,8 @@ import numpy as np
 from scipy.interpolate import PchipInterpolator
 from scipy.stats import chi2
 
-from align.choices import DEFAULT_TIE_INTERPOLATION, TieInterpolation, check_choice
+from align.choices import (DEFAULT_TIE_INTERPOLATION, MAX_AGE_SD, TieInterpolation,
+                           check_choice)
 from align.errors import InputError
 from align.record import NV, SAMPLE, add_history, age_reference, age_sigma, record_name
 
@@ -26,9 +27,8 @@ FALLBACK_MIDPOINT_FRACTION = 0.02
 #: Quantile of chi-squared that turns the scatter of the tie intervals into a rate: the median,
 #: so that the rate is median-unbiased even with few intervals.
 RATE_CONFIDENCE = 0.5
-#: Largest bridge variance across the ties (yr^2): an age sd of a million years, beyond any
-#: timescale this tool dates against (a stated choice that keeps the arithmetic finite).
-MAX_BRIDGE_VARIANCE = 1e12
+#: Largest bridge variance across the ties (yr^2): ``MAX_AGE_SD`` squared.
+MAX_BRIDGE_VARIANCE = MAX_AGE_SD**2
 
 
 class TieWarning(UserWarning):

@@ -160,6 +160,9 @@ def test_reading_keywords_of_the_wrong_type(tmp_path, name, mapping, field, frag
 def test_bad_values_are_input_errors():
     from align.ages import convert_age
     from align.detect import detect_marker
+    from align.lag import estimate_lag
+    from align.requests import read_request
+    from align.survey import survey
     from align.ties import read_ties, transfer
 
     ice, lake = open_record(ICE), open_record(LAKE)
@@ -182,6 +185,10 @@ def test_bad_values_are_input_errors():
         (lambda: resample(ice, 10.0, start=50_000, stop=60_000), "start"),
         (lambda: transfer(lake, read_ties(RECORDS / "hvd1_trv3_ties.csv"), ice,
                           bridge_rate=1e308), "bridge_rate"),
+        (lambda: estimate_lag(read_request(RECORDS / "demo_lag_request.json"), sync_sd=1e308),
+         "sync_sd"),
+        (lambda: survey({**json.loads((RECORDS / "demo_survey.json").read_text()),
+                         "sync_sd": 1e308}), "sync_sd"),
     ]
     for call, field in cases:
         with pytest.raises(InputError) as caught:
