@@ -34,6 +34,9 @@ from align.schema_base import Estimate, MarkerBase, Model, Pair
 
 #: Default running-median span of the event baseline, in median sample intervals.
 BASELINE_SAMPLES = 25
+#: Shortest running-median span, in median sample intervals: a median over fewer samples
+#: follows a spike of one sample, so no event could stand out from it.
+MIN_BASELINE_SAMPLES = 3
 
 
 class EventOptions(Model):
@@ -166,9 +169,15 @@ def detect_event(record, variable, window=None, *, threshold=None,
     age = record["age"].values
     bounds = record["age_bounds"].values
     width = bounds[:, 1] - bounds[:, 0]
-    span = float(baseline_years) if baseline_years else BASELINE_SAMPLES * float(np.median(width))
+    typical = float(np.median(width))
+    span = float(baseline_years) if baseline_years else BASELINE_SAMPLES * typical
     if not span > 0:
         raise InputError("baseline_years must be positive", field="baseline_years")
+    if span < MIN_BASELINE_SAMPLES * typical:
+        raise InputError(f"baseline_years ({span:g}) spans fewer than {MIN_BASELINE_SAMPLES} "
+                         f"samples (median interval {typical:.3g} yr): a running median that "
+                         f"short follows every spike; give at least "
+                         f"{MIN_BASELINE_SAMPLES * typical:.3g}", field="baseline_years")
     if span > bounds[-1, 1] - bounds[0, 0]:
         raise InputError(f"baseline_years ({span:g}) is longer than the record "
                          f"({bounds[-1, 1] - bounds[0, 0]:g} yr)", field="baseline_years")
