@@ -5,6 +5,8 @@ whose midpoints share one true age but whose durations differ (100 yr and 20 yr)
 onset lag is 40 yr and the midpoint lag 0 yr (both known exactly). Nominal: 95 % intervals.
 """
 
+import functools
+
 import numpy as np
 import pytest
 
@@ -294,15 +296,26 @@ def short_ramp_errors(rng, count, duration, tau=100.0, snr=2.0):
     return np.array(errors), hits / count, cautioned / count
 
 
+#: Mean onset error (yr, negative: too old) of 20- and 50-yr ramps at 2 noise sd under AR(1)
+#: noise of 100 yr before the generalised least-squares fit (400 records, measured below).
+SHORT_RAMP_BIAS_BEFORE = {20.0: -48.0, 50.0: -42.0}
+
+
+@functools.lru_cache
+def short_ramp_case(duration):
+    """``short_ramp_errors`` on the 60 records of the short-ramp tests (seed: the duration)."""
+    return short_ramp_errors(np.random.default_rng(int(duration)), 60, duration)
+
+
 @pytest.mark.slow
-@pytest.mark.parametrize("duration", [20.0, pytest.param(50.0, marks=pytest.mark.xfail(
-    strict=True, reason="not fixed: the mean onset error of 50-yr ramps is about -13 to -17 "
-    "yr (target: within 15 yr); stated to the reader by OnsetResult.short_ramp_bias"))])
+@pytest.mark.parametrize("duration", [20.0, 50.0])
 def test_short_ramp_onsets_under_red_noise(duration):
     """Generator: ``ar1_windows`` (10-yr samples, 500-yr window, AR(1) tau 100 yr, sd 1) with
-    a ramp of 2 sd (SNR 2) lasting ``duration`` yr. Nominal: 95 % intervals; the target of
-    issue 13: mean onset error within a third of the measured one (-50 and -45 yr), coverage
-    0.90-0.99 over 60 records (binomial sd 0.028).
+    a ramp of 2 sd (SNR 2) lasting ``duration`` yr. Nominal: 95 % intervals, coverage
+    0.90-0.99 over 60 records (binomial sd 0.028); issue 13 asks to reduce the bias and say
+    so: here at least halved from the measured one (``SHORT_RAMP_BIAS_BEFORE``) and the
+    reader told in most records. The stricter target, within a third, is
+    ``test_short_ramp_bias_within_a_third`` (not met for 50-yr ramps).
 
     Measured (400 records through detect_onset): mean error -48 and -42 yr (too old),
     median -15 and -9 yr, coverage 0.81 and 0.84. The cause: under red noise the
@@ -344,13 +357,23 @@ def test_short_ramp_onsets_under_red_noise(duration):
     tau 300) yr, coverage 0.91-0.94; at 4 noise sd -1.6 to -8.1 yr; at 8 noise sd -1.1 and
     +1.8 yr; white noise: +2.9 (50 yr, 2 sd) and -7.9 (20 yr, 2 sd). Markers of ramps at most
     ``LOW_SNR`` noise sd say so (``short_ramp_bias``)."""
-    errors, coverage, cautioned = short_ramp_errors(np.random.default_rng(int(duration)), 60,
-                                                    duration)
+    errors, coverage, cautioned = short_ramp_case(duration)
     print(f"ramp {duration:g} yr: onset error mean {errors.mean():+.1f} yr, median "
           f"{np.median(errors):+.1f} yr, coverage {coverage:.2f}, cautioned {cautioned:.2f}")
     assert cautioned >= 0.5  # at 2 noise sd the reader is told in most records
-    assert abs(errors.mean()) < {20.0: 50.0, 50.0: 45.0}[duration] / 3
+    assert abs(errors.mean()) <= abs(SHORT_RAMP_BIAS_BEFORE[duration]) / 2
     assert 0.90 <= coverage <= 0.99
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("duration", [20.0, pytest.param(50.0, marks=pytest.mark.xfail(
+    strict=True, reason="not fixed: the mean onset error of 50-yr ramps is about -13 to -17 "
+    "yr (target: within 14 yr); stated to the reader by OnsetResult.short_ramp_bias"))])
+def test_short_ramp_bias_within_a_third(duration):
+    """The stricter target: the mean onset error within a third of the measured one (the
+    records of ``test_short_ramp_onsets_under_red_noise``)."""
+    errors, _, _ = short_ramp_case(duration)
+    assert abs(errors.mean()) < abs(SHORT_RAMP_BIAS_BEFORE[duration]) / 3
 
 
 def test_low_signal_to_noise_onsets_carry_the_short_ramp_caution(tmp_path):
