@@ -182,7 +182,7 @@ def _output_option(parser, what, required=True):
 
 def _check_report_folder(args):
     """A report folder that cannot be written is refused before any work."""
-    if getattr(args, "overwrite", None) is not None and args.output:
+    if getattr(args, "overwrite", None) is not None and args.output is not None:
         from align.report import check_report_folder
 
         check_report_folder(args.output, args.overwrite)
@@ -264,8 +264,7 @@ def _tie_parser(commands):
     tie.add_argument("--method", default=C.DEFAULT_TIE_INTERPOLATION,
                      choices=C.options(C.TieInterpolation),
                      help="interpolation between tie points")
-    from_field(tie, LagRequest, "bridge_rate", metavar="R",
-               help="between-tie variance rate, yr^2 per yr (default: from the ties)")
+    from_field(tie, LagRequest, "bridge_rate", metavar="R")
     tie.add_argument("--extrapolate", action="store_true",
                      help="keep samples beyond the outer ties (flagged, wider uncertainty)")
     _mapping_options(tie)
@@ -368,9 +367,10 @@ def _lag_parser(commands):
     lag.add_argument("--request", metavar="FILE", help="a lag request (JSON) instead of flags")
     lag.add_argument("--ties", help="tie table between b (depth) and a (ref_depth/ref_age)")
     for name in _LAG_OPTIONS:
+        field = LagRequest.model_fields[name]
+        text = field.description or name.replace("_", " ")
         from_field(lag, LagRequest, name, default=None,
-                   help=(LagRequest.model_fields[name].description or name.replace("_", " "))
-                   + f" (default: {LagRequest.model_fields[name].default})")
+                   help=text if "default" in text else f"{text} (default: {field.default})")
     _to_option(lag, C.DEFAULT_AGE_REFERENCE)
     _report_options(lag)
     _json_option(lag)
@@ -578,7 +578,7 @@ def _finish(result, args, render):
     from align.report import write_report
 
     folder = (write_report(result, args.output, overwrite=args.overwrite)
-              if args.output else None)
+              if args.output is not None else None)
     if args.json:
         _print_json(result.to_dict())
     else:

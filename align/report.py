@@ -132,24 +132,36 @@ def write_report(result, directory, formats=FORMATS, *, overwrite=False):
 
 
 def check_report_folder(directory, overwrite=False):
-    """Refuse, before any work, a report folder that cannot be written: a file, a folder
-    holding a report (unless ``overwrite``), a folder holding anything a report does not
-    write (replacing the folder would delete it), a place where nothing can be created.
+    """Refuse, before any work, a report folder that cannot be written: an empty or
+    unusable name, a file, a symbolic link, a folder holding a report (unless
+    ``overwrite``), a folder holding anything a report does not write (replacing the folder
+    would delete it), a place where nothing can be created.
 
     Raises
     ------
     InputError
         Naming the folder, with field ``output``.
     """
+    if (not isinstance(directory, str | os.PathLike) or not str(directory).strip()
+            or "\0" in str(directory)):
+        raise InputError("the report folder must be a path", field="output")
     folder = Path(directory)
-    _check_contents(folder, overwrite)
+    try:
+        link = folder.is_symlink()
+        _check_contents(folder, overwrite)
+    except OSError as exc:  # a name too long
+        raise InputError(f"cannot write here ({exc.strerror})", source=str(folder),
+                         field="output") from None
+    if link:
+        raise InputError("the report folder is a symbolic link; give the folder itself (it "
+                         "is replaced as a whole)", source=str(folder), field="output")
     _check_writable(folder)
 
 
 def _check_writable(folder):
-    """A folder can be made where ``folder`` is to go (tried in its nearest existing
-    ancestor, and removed again: nothing is left behind)."""
-    ancestor = folder.absolute()
+    """A folder can be made beside ``folder``, where the report is written first (tried in
+    its parent, or the nearest existing ancestor, and removed again: nothing is left)."""
+    ancestor = folder.absolute().parent
     while not ancestor.exists() and ancestor != ancestor.parent:
         ancestor = ancestor.parent
     try:

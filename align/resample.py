@@ -242,7 +242,10 @@ def resample(records, step=None, *, start=None, stop=None, variables=None,
         ``{var}_n_samples``; ``native_interval`` (``{record}_native_interval`` for several
         records; yr or m); for records with an age
         ensemble, ``{var}_ensemble`` (member, cell) resampled member by member (lazy with
-        dask when large). Variables are prefixed by record name when names clash.
+        dask when large). Variables are prefixed by record name when names clash. The bounds
+        are a read-only view of the cell edges (a cell's right edge is the next one's left;
+        fresh memory costs as much as the merge on fine grids): ``.copy()`` them to change
+        them in place.
     """
     group = [records] if isinstance(records, xr.Dataset) else list(records)
     if not group:

@@ -162,7 +162,8 @@ class LagSettings(Model):
                        description="Monte Carlo draws")
     seed: int | None = Field(None, ge=0)
     timescale_model: TimescaleModel = DEFAULT_TIMESCALE_MODEL
-    bridge_rate: float | None = Field(None, ge=0)
+    bridge_rate: float | None = Field(None, ge=0, le=MAX_AGE_SD**2, description="between-tie "
+                                      "variance rate, yr^2 per yr (default: from the ties)")
     sync_sd: float = Field(DEFAULT_SYNC_SD, ge=0, le=MAX_AGE_SD, description="synchronisation "
                            "error (1 sd, yr) between two cores on one shared timescale; the "
                            "shared timescale's error cancels, this one does not")

@@ -95,6 +95,9 @@ def test_every_option_has_help():
                 assert action.help, (path, action.option_strings)
         text = parser.format_help()
         assert "Undefined" not in text, (path, text)  # a required field has no default to show
+        for action in parser._actions:  # each option states its default once
+            shown = parser._get_formatter()._get_help_string(action) or ""
+            assert shown.count("(default:") <= 1, (path, action.option_strings, shown)
 
 
 def test_align_lists_only_options_it_accepts():

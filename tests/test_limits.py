@@ -161,6 +161,7 @@ def test_bad_values_are_input_errors():
     from align.ages import convert_age
     from align.detect import detect_marker
     from align.lag import estimate_lag
+    from align.markers.event import detect_event
     from align.requests import read_request
     from align.survey import survey
     from align.ties import read_ties, transfer
@@ -192,6 +193,10 @@ def test_bad_values_are_input_errors():
          "sync_sd"),
         (lambda: survey({**json.loads((RECORDS / "demo_survey.json").read_text()),
                          "sync_sd": 1e308}), "sync_sd"),
+        (lambda: survey({**json.loads((RECORDS / "demo_survey.json").read_text()),
+                         "bridge_rate": 1e300}), "bridge_rate"),
+        (lambda: detect_event(ice, "sulfate", [12150, 12350], baseline_years="x"),
+         "baseline_years"),
     ]
     for call, field in cases:
         with pytest.raises(InputError) as caught:

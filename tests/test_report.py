@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pytest
 
+from align.errors import InputError
 from align.report import write_report
 from conftest import RECORDS, run_cli
 
@@ -223,6 +224,23 @@ def test_xcorr_writes_its_report_folder(tmp_path):
     words = ("the pattern is older in a" if low > 0 else "the pattern is younger in a"
              if high < 0 else "the interval includes zero, so neither record is shown to lead")
     assert words in page
+
+
+@pytest.mark.parametrize("name, words", [
+    ("dangling", "symbolic link"), ("to-folder", "symbolic link"), ("a" * 300, "too long"),
+    ("", "must be a path"), ("nul\0name", "must be a path"),
+])
+def test_unusable_report_folders_are_input_errors(tmp_path, name, words):
+    """Before, these passed the check and failed after the work, some as internal errors."""
+    from align.report import check_report_folder
+
+    (tmp_path / "real").mkdir()
+    (tmp_path / "dangling").symlink_to(tmp_path / "nowhere")
+    (tmp_path / "to-folder").symlink_to(tmp_path / "real")
+    before = sorted(p.name for p in tmp_path.iterdir())
+    with pytest.raises(InputError, match=words):
+        check_report_folder(tmp_path / name if name else name, overwrite=True)
+    assert sorted(p.name for p in tmp_path.iterdir()) == before
 
 
 def _files(folder):

@@ -170,7 +170,11 @@ def detect_event(record, variable, window=None, *, threshold=None,
     bounds = record["age_bounds"].values
     width = bounds[:, 1] - bounds[:, 0]
     typical = float(np.median(width))
-    span = float(baseline_years) if baseline_years else BASELINE_SAMPLES * typical
+    try:
+        span = (BASELINE_SAMPLES * typical if baseline_years is None else float(baseline_years))
+    except (TypeError, ValueError):
+        raise InputError("baseline_years must be a number of years",
+                         field="baseline_years") from None
     if not span > 0:
         raise InputError("baseline_years must be positive", field="baseline_years")
     if span < MIN_BASELINE_SAMPLES * typical:
