@@ -115,11 +115,11 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     values = np.asarray(values, dtype=float)
     vals2d = values[:, None] if values.ndim == 1 else values
     lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
-    grid = edges if isinstance(edges, RegularCells) and not edges.filled else None
     if isinstance(edges, RegularCells):
-        cells = edges.cells
+        grid, cells = (None if edges.filled else edges), edges.cells
     else:
         edges = np.asarray(edges, dtype=float)
+        grid = None
         cells = np.lib.stride_tricks.sliding_window_view(edges, 2) if edges.ndim == 1 else edges
     m, nv = cells.shape[0], vals2d.shape[1]
     mean, coverage = np.empty((nv, m)), np.empty((nv, m))
@@ -154,13 +154,10 @@ def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native, g
     def block(a, b):
         left = cells[a, 0] if grid is None else grid.edge(a)
         s = max(bisect_left(hi, left) - 1, 0) if a else 0
-        if grid is None:
-            return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage,
-                                 mean[a:b], coverage[a:b], count[a:b], native[a:b])
         # (neighbouring blocks both write the edge between them: the same number)
+        written = () if grid is None else ((grid.start, grid.step, a), grid.centre[a:b])
         return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
-                             coverage[a:b], count[a:b], native[a:b],
-                             (grid.start, grid.step, a), grid.centre[a:b])
+                             coverage[a:b], count[a:b], native[a:b], *written)
 
     bounds = blocks(cells.shape[0], CELLS_PER_THREAD)
     if len(bounds) == 2:

@@ -225,8 +225,7 @@ def detect_onset(record, variable, window, *, direction=DEFAULT_ONSET_DIRECTION,
         trace=_onset_trace(bounds[keep], values[keep], window, fit, samples),
         provenance=provenance(inputs=[record_input(record, "record")], parameters={
             "variable": variable, "window": window, "direction": result_direction,
-            "method": method,
-            "draws": draws, "position": position}, seed=seed))
+            "method": method, "draws": draws, "position": position}, seed=seed))
     ages = {"onset": (onset_age, -samples[:, 0]), "end": (end_age, -samples[:, 1]),
             "midpoint": (0.5 * (onset_age + end_age), -0.5 * (samples[:, 0] + samples[:, 1]))}
     age_draws, fit_draws = ages[position]
