@@ -284,7 +284,8 @@ def test_overlap_cells_writes_the_regular_cells_it_merges(step):
     assert overlap_cells(lo, hi, values, cells, 0.4, *read)
     written = [np.full(m, -1.0), np.full(m, -1.0), np.full(m, -1, dtype=np.int32),
                np.full(m, -1.0)]
-    bounds, middle = np.full((m, 2), np.nan), np.full(m, np.nan)
+    edges, middle = np.full(m + 1, np.nan), np.full(m, np.nan)
+    bounds = np.lib.stride_tricks.as_strided(edges, (m, 2), (edges.strides[0],) * 2)
     for a, b in ((0, m // 3), (m // 3, m)):
         s = max(np.searchsorted(hi, start + step * a) - 1, 0) if a else 0
         assert overlap_cells(lo[s:], hi[s:], values[s:], bounds[a:b], 0.4,

@@ -220,3 +220,27 @@ def test_blocks_of_cells_on_threads_give_the_same_grid(monkeypatch):
     lo[cell] = hi[cell - 1] - 0.1
     with pytest.raises(InputError, match="overlap"):
         overlap_mean(lo, hi, values, edges)
+
+
+@pytest.mark.parametrize("nv, m", [(1, 1), (1, 7), (3, 5), (2, 100_001)])
+def test_outputs_carved_from_one_block_do_not_overlap(nv, m):
+    """The per-cell outputs share one allocation (fine grids): each has its shape and dtype,
+    none overlaps another, and a multi-variable resampling equals one variable at a time."""
+    from align.resample import _fresh
+
+    arrays = _fresh(((nv, m), (nv, m), (m,)), int_shape=(nv, m))
+    assert [a.shape for a in arrays] == [(nv, m), (nv, m), (m,), (nv, m)]
+    assert [a.dtype for a in arrays] == [np.float64] * 3 + [np.int32]
+    for k, a in enumerate(arrays):
+        for b in arrays[k + 1:]:
+            assert not np.shares_memory(a, b)
+    rng = np.random.default_rng(11)
+    lo, hi = random_intervals(rng, 500)
+    values = rng.normal(size=(500, nv))
+    edges = np.linspace(lo[0], hi[-1], min(m, 2000) + 1)
+    together = overlap_mean(lo, hi, values, edges)
+    for k in range(nv):
+        alone = overlap_mean(lo, hi, values[:, k], edges)
+        for a, b in zip(together[:3], alone[:3]):
+            np.testing.assert_array_equal(a[:, k], b[:, 0])
+        np.testing.assert_array_equal(together[3], alone[3])
