@@ -121,10 +121,74 @@ def _fill_regular_cells(start, step, bounds, centre):
         centre[j] = 0.5 * (right + left)
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _cell(j, cells, grid, centre, right):
+    """Bounds ``(left, right)`` of cell ``j``: read from ``cells``, or with ``grid`` worked out
+    (``right`` is the previous cell's right edge) and written into ``cells`` and ``centre``,
+    each edge once."""
+    c = _u(j)
+    if grid is None:
+        return cells[c, 0], cells[c, 1]
+    start, step, first = grid
+    left, right = right, start + step * (first + j + 1)
+    if j == 0:
+        cells[c, 0] = left
+    cells[c, 1] = right
+    centre[c] = 0.5 * (right + left)
+    return left, right
+
+
+#: A cell's sums before any sample: integral, covered length, summed sample widths, valid
+#: samples, overlapping samples.
+NO_SUMS = (0.0, 0.0, 0.0, 0, 0)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _add(sums, a, b, v, overlap):
+    """``sums`` with the sample ``[a, b]`` of value ``v`` overlapping the cell by
+    ``overlap``."""
+    integral, covered, width_sum, valid, overlapping = sums
+    width_sum += b - a
+    overlapping += 1
+    if v == v:
+        integral += v * overlap
+        covered += overlap
+        valid += 1
+    return integral, covered, width_sum, valid, overlapping
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native):
+    """Cell ``j``'s outputs from its sums (see :func:`overlap_cells`)."""
+    integral, covered, width_sum, valid, overlapping = sums
+    c = _u(j)
+    cover = covered / (right - left)
+    coverage[c] = cover
+    mean[c] = integral / covered if covered > 0.0 and cover >= min_coverage else np.nan
+    count[c] = valid
+    native[c] = width_sum / overlapping if overlapping > 0 else np.nan
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _rest_ordered(lo, hi, i, end):
+    """The samples from ``i`` up to the first that starts past the grid's ``end`` are in
+    order."""
+    ordered = True
+    while i < lo.size:
+        if _disordered(lo, hi, i):
+            ordered = False
+        if lo[_u(i)] >= end:
+            break
+        i += 1
+    return ordered
+
+
 @njit(cache=True, nogil=True)
 def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native,
                   grid=None, centre=None):
-    """Overlap-weighted cell means of one variable, exactly, in one merge of samples and cells.
+    """Overlap-weighted cell means of one variable, exactly, in one merge of samples and cells
+    that runs cell by cell (the faster of the two merges on grids coarser than the samples;
+    :func:`overlap_samples` on finer ones: the same numbers).
 
     Parameters
     ----------
@@ -171,12 +235,7 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     ``[left, right)`` holding it. The ordering check costs two comparisons per sample (with
     the previous sample's end at hand); the tolerance is worked out only when they fail. The
     loop's indices are never negative and are used unsigned (:func:`_u`), which spares each
-    access numba's negative-index wraparound (a tenth of the loop). The loop costs about
-    12 ns per cell on grids as fine as the samples whether the data fit in cache or not (it
-    is bound by the branch on how many samples a cell holds, not by memory); branch-free
-    merges that advance the sample or the cell by a comparison were measured 1.6-2x slower
-    (each step waits for the comparison that picks it), as was handling the first two
-    samples of a cell without a branch.
+    access numba's negative-index wraparound (a tenth of the loop).
     """
     n, m = lo.size, cells.shape[0]
     ordered = True
@@ -185,22 +244,13 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
     if grid is not None:
         start, step, first = grid
         right = start + step * first
-        if m:
-            cells[0, 0] = right
     for j in range(m):
-        c = _u(j)
-        if grid is None:
-            left, right = cells[c, 0], cells[c, 1]
-        else:
-            left, right = right, start + step * (first + j + 1)
-            cells[c, 1] = right  # (also the next cell's left edge)
-            centre[c] = 0.5 * (right + left)
+        left, right = _cell(j, cells, grid, centre, right)
         while i < n and (hi[_u(i)] < left or (hi[_u(i)] == left and lo[_u(i)] < hi[_u(i)])):
             if _disordered(lo, hi, i):
                 ordered = False
             i += 1
-        integral = covered = width_sum = 0.0
-        valid = overlapping = 0
+        sums = NO_SUMS
         previous = hi[_u(i - 1)] if i > 0 else -np.inf
         k = i
         while k < n and lo[_u(k)] < right:
@@ -210,27 +260,74 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
             previous = b
             overlap = min(b, right) - max(a, left)
             if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
-                width_sum += b - a
-                overlapping += 1
-                v = values[_u(k)]
-                if v == v:
-                    integral += v * overlap
-                    covered += overlap
-                    valid += 1
+                sums = _add(sums, a, b, values[_u(k)], overlap)
             k += 1
         i = k - 1 if k > i and hi[_u(k - 1)] > right else k  # only the last can reach beyond
-        cover = covered / (right - left)
-        coverage[c] = cover
-        mean[c] = integral / covered if covered > 0.0 and cover >= min_coverage else np.nan
-        count[c] = valid
-        native[c] = width_sum / overlapping if overlapping > 0 else np.nan
-    while i < n:  # the samples beyond the grid, up to the first that starts past its end
-        if _disordered(lo, hi, i):
+        _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native)
+    return _rest_ordered(lo, hi, i, cells[m - 1, 1]) and ordered if m else ordered
+
+
+@njit(cache=True, nogil=True)
+def overlap_samples(lo, hi, values, cells, min_coverage, mean, coverage, count, native,
+                    grid=None, centre=None):
+    """:func:`overlap_cells` by a merge that runs sample by sample: the same numbers (the same
+    sums in the same order), faster on grids as fine as the samples or finer.
+
+    Parameters and returns as for :func:`overlap_cells`.
+
+    Notes
+    -----
+    Each sample closes the cells that end where it starts (or before), adds its piece to every
+    cell it reaches beyond and closes that cell, then adds its last piece to the cell it ends
+    in, whose sums carry on to the next sample. On a grid as fine as the samples the one
+    data-dependent branch (how many cell edges a sample holds) is taken once per sample, not
+    once per cell as in :func:`overlap_cells`, which is 15 % faster at 1x and 2x samples
+    per cell and 20 % at 4x (12-13 against 10.5-11.5 ns per cell on the 2-core development
+    machine; 20 % slower on grids of 100 samples per cell). Branch-free merges (each step
+    advancing the sample or the cell by a comparison) were measured 1.6-2x slower: each step
+    waits on the comparison that picks it.
+    """
+    n, m = lo.size, cells.shape[0]
+    if m == 0:
+        return True
+    ordered = True
+    right = 0.0
+    if grid is not None:
+        start, step, first = grid
+        right = start + step * first
+    j = 0
+    left, right = _cell(0, cells, grid, centre, right)
+    sums = NO_SUMS
+    previous = -np.inf
+    i = 0
+    while i < n:
+        a, b = lo[_u(i)], hi[_u(i)]
+        if ((b < a) | (a < previous)) and _disordered(lo, hi, i):  # (rarely checked)
             ordered = False
-        if lo[i] >= cells[m - 1, 1]:
-            break
+        previous = b
+        v = values[_u(i)]
+        while right <= a or b > right:  # cells the sample starts after, or reaches beyond
+            if b > right:
+                overlap = min(b, right) - max(a, left)
+                if overlap > 0.0:
+                    sums = _add(sums, a, b, v, overlap)
+            _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native)
+            sums = NO_SUMS
+            j += 1
+            if j == m:
+                return _rest_ordered(lo, hi, i, right) and ordered
+            left, right = _cell(j, cells, grid, centre, right)
+        overlap = min(b, right) - max(a, left)  # the cell the sample ends in
+        if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
+            sums = _add(sums, a, b, v, overlap)
         i += 1
-    return ordered
+    while True:  # the cell the samples ended in, and those after them
+        _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native)
+        sums = NO_SUMS
+        j += 1
+        if j == m:
+            return ordered
+        left, right = _cell(j, cells, grid, centre, right)
 
 
 @njit(cache=True, nogil=True)

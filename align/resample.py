@@ -109,7 +109,8 @@ def overlap_mean(lo, hi, values, edges, min_coverage=0.0):
     Exact integration of the piecewise-constant record: cell ``j`` gets
     ``sum_i v_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]| / sum_i |[lo_i, hi_i] ∩ [e_j, e_{j+1}]|``
     over valid samples ``i``; computed by a single merge of samples and cells per variable,
-    ``O(n + m)`` (:func:`align._kernels.overlap_cells`), on large grids in blocks of cells
+    ``O(n + m)`` (:func:`align._kernels.overlap_cells` or, on fine grids,
+    :func:`~align._kernels.overlap_samples`), on large grids in blocks of cells
     on all cores. The columns of the (m, v) outputs are contiguous.
     """
     values = np.asarray(values, dtype=float)
@@ -158,20 +159,23 @@ def _merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native, g
     """Run the merge kernel over blocks of cells in parallel (it releases the GIL); each
     block starts at the sample before the first that reaches its first cell, so that the
     ordering check sees every neighbouring pair. With ``grid`` (:class:`RegularCells`) the
-    kernel also writes the cells' bounds and centres. Returns whether the samples were
-    ordered."""
+    kernel also writes the cells' bounds and centres. Grids of at least half as many cells as
+    samples are merged sample by sample, coarser ones cell by cell (the faster of the two
+    there; the same numbers). Returns whether the samples were ordered."""
     from bisect import bisect_left
 
-    from align._kernels import overlap_cells
+    from align._kernels import overlap_cells, overlap_samples
     from align._threads import blocks, pool
+
+    merge = overlap_samples if 2 * cells.shape[0] >= lo.size else overlap_cells
 
     def block(a, b):
         left = cells[a, 0] if grid is None else grid.edge(a)
         s = max(bisect_left(hi, left) - 1, 0) if a else 0
         # (neighbouring blocks both write the edge between them: the same number)
         written = () if grid is None else ((grid.start, grid.step, a), grid.centre[a:b])
-        return overlap_cells(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
-                             coverage[a:b], count[a:b], native[a:b], *written)
+        return merge(lo[s:], hi[s:], values[s:], cells[a:b], min_coverage, mean[a:b],
+                     coverage[a:b], count[a:b], native[a:b], *written)
 
     bounds = blocks(cells.shape[0], CELLS_PER_THREAD)
     if len(bounds) == 2:

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from align._kernels import (_fill_regular_cells, ar1_series, interp_sorted, overlap_cells,
-                            place_between_ties)
+                            overlap_samples, place_between_ties)
 from align.ties import bridge_variance, tie_variance
 
 
@@ -205,21 +205,28 @@ def irregular_intervals(rng, n):
     return lo, lo + widths, values
 
 
-def run_overlap_cells(lo, hi, values, edges, min_coverage=0.0):
+#: The two merges of samples and cells (by cells for coarse grids, by samples for fine ones).
+MERGES = pytest.mark.parametrize("merge", [overlap_cells, overlap_samples],
+                                 ids=["by-cells", "by-samples"])
+
+
+def run_overlap_cells(lo, hi, values, edges, min_coverage=0.0, merge=overlap_cells):
     m = edges.size - 1
     mean, coverage, native = np.empty(m), np.empty(m), np.empty(m)
     count = np.empty(m, dtype=np.int32)
     cells = np.lib.stride_tricks.sliding_window_view(edges, 2)
-    ordered = overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, native)
+    ordered = merge(lo, hi, values, cells, min_coverage, mean, coverage, count, native)
     return ordered, mean, coverage, count, native
 
 
+@MERGES
 @pytest.mark.parametrize("step", [0.07, 0.5, 1.6, 2.0, 13.0])
-def test_overlap_cells_equals_the_overlap_matrix(step):
+def test_overlap_cells_equals_the_overlap_matrix(step, merge):
     rng = np.random.default_rng(4)
     lo, hi, values = irregular_intervals(rng, 600)
     edges = 995.0 + step * np.arange(int((hi[-1] + 10 - 995.0) / step))
-    ordered, mean, coverage, count, native = run_overlap_cells(lo, hi, values, edges)
+    ordered, mean, coverage, count, native = run_overlap_cells(lo, hi, values, edges,
+                                                               merge=merge)
     assert ordered
     e_mean, e_coverage, e_count, e_native = overlap_matrix_means(lo, hi, values, edges)
     np.testing.assert_allclose(mean, e_mean, rtol=1e-10, equal_nan=True)
@@ -232,36 +239,71 @@ def test_overlap_cells_equals_the_overlap_matrix(step):
     np.testing.assert_allclose(native[~inside], e_native[~inside], rtol=1e-12, equal_nan=True)
 
 
+@MERGES
 @pytest.mark.parametrize("step", [0.05, 0.3, 1.0, 1.6, 7.3])
-def test_overlap_cells_is_identical_to_the_sample_merge_it_replaced(step):
+def test_overlap_cells_is_identical_to_the_sample_merge_it_replaced(step, merge):
     rng = np.random.default_rng(5)
     lo, hi, values = irregular_intervals(rng, 2000)
     # an edge on a sample bound, with a zero-width sample there
     hi[100] = lo[100]
     edges = lo[100] + step * np.arange(-int((lo[100] - 990.0) / step),
                                        int((hi[-1] - lo[100]) / step))
-    ordered, mean, coverage, count, native = run_overlap_cells(lo, hi, values, edges)
+    ordered, mean, coverage, count, native = run_overlap_cells(lo, hi, values, edges,
+                                                               merge=merge)
     assert ordered
     old = merge_by_samples(lo, hi, values, edges)
     for new, before in zip((mean, coverage, count, native), old):
         np.testing.assert_array_equal(new, before)
     # min_coverage is applied in the same pass
-    strict = run_overlap_cells(lo, hi, values, edges, 0.7)[1]
+    strict = run_overlap_cells(lo, hi, values, edges, 0.7, merge)[1]
     np.testing.assert_array_equal(strict, np.where(coverage >= 0.7, mean, np.nan))
 
 
-def test_overlap_cells_reports_disorder():
+@MERGES
+def test_overlap_cells_reports_disorder(merge):
+    def ordered(lo, hi):
+        return run_overlap_cells(lo, hi, np.ones(lo.size), np.arange(0.0, 5.0), merge=merge)[0]
+
     lo = np.array([0.0, 1.0, 1.5, 3.0])
     hi = np.array([1.0, 2.0, 2.5, 4.0])  # the third sample overlaps the second
-    assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
-    assert run_overlap_cells(lo[[0, 1, 3]], hi[[0, 1, 3]], np.ones(3), np.arange(0.0, 5.0))[0]
+    assert not ordered(lo, hi)
+    assert ordered(lo[[0, 1, 3]], hi[[0, 1, 3]])
     # an overlap within the record model's rounding tolerance (1e-9 relative) is no disorder
     lo, hi = np.array([0.0, 1.0 - 1e-10, 2.0, 3.0]), np.array([1.0, 2.0, 3.0, 4.0])
-    assert run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+    assert ordered(lo, hi)
     lo[1] = 1.0 - 1e-8
-    assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+    assert not ordered(lo, hi)
     lo[1], hi[2] = 1.0, 1.9  # a sample running backwards
-    assert not run_overlap_cells(lo, hi, np.ones(4), np.arange(0.0, 5.0))[0]
+    assert not ordered(lo, hi)
+
+
+def test_the_two_merges_give_the_same_numbers():
+    """On irregular records with gaps, zero-width samples, missing values, samples on cell
+    edges and grids that start or end inside the record, from 0.02 to 20 cells per sample:
+    the merge by samples equals the merge by cells bit for bit, and both find the same
+    disorder."""
+    rng = np.random.default_rng(12)
+    disordered = 0
+    for trial in range(120):
+        n = int(rng.integers(2, 800))
+        lo, hi, values = irregular_intervals(rng, n)
+        step = float(rng.choice([0.05, 0.3, 0.77, 1.0, 1.6, 7.3, 40.0]))
+        start = 990.0 + float(rng.uniform(-5, 30))
+        m = max(1, int((hi[-1] + float(rng.uniform(-20, 10)) - start) / step))
+        if trial % 4 == 0 and n > 12:  # a sample bound on a cell edge (may run backwards)
+            hi[10] = lo[11] = start + step * 7
+        edges, centre = regular_cells(start, step, m)
+        outs = []
+        for merge in (overlap_cells, overlap_samples):
+            out = [np.empty(m), np.empty(m), np.empty(m, dtype=np.int32), np.empty(m)]
+            outs.append((merge(lo, hi, values, edges, 0.3, *out), out))
+        (ordered, by_cells), (same_verdict, by_samples) = outs
+        assert ordered == same_verdict
+        disordered += not ordered
+        if ordered:
+            for a, b in zip(by_cells, by_samples):
+                np.testing.assert_array_equal(a, b)
+    assert 5 < disordered < 60  # both kinds of record were tried
 
 
 def regular_cells(start, step, m):
@@ -270,8 +312,9 @@ def regular_cells(start, step, m):
     return bounds, centre
 
 
+@MERGES
 @pytest.mark.parametrize("step", [0.05, 0.3, 1.0, 7.3])
-def test_overlap_cells_writes_the_regular_cells_it_merges(step):
+def test_overlap_cells_writes_the_regular_cells_it_merges(step, merge):
     """Given the grid, the merge writes the cells' bounds and centres as it goes (block by
     block, as the threads run it): the numbers of ``regular_cells``, and the same means as
     the merge that reads them."""
@@ -288,7 +331,7 @@ def test_overlap_cells_writes_the_regular_cells_it_merges(step):
     bounds = np.lib.stride_tricks.as_strided(edges, (m, 2), (edges.strides[0],) * 2)
     for a, b in ((0, m // 3), (m // 3, m)):
         s = max(np.searchsorted(hi, start + step * a) - 1, 0) if a else 0
-        assert overlap_cells(lo[s:], hi[s:], values[s:], bounds[a:b], 0.4,
+        assert merge(lo[s:], hi[s:], values[s:], bounds[a:b], 0.4,
                              *(out[a:b] for out in written), (start, step, a), middle[a:b])
     np.testing.assert_array_equal(bounds, cells)
     np.testing.assert_array_equal(middle, centre)
