@@ -25,6 +25,9 @@ from align.missing import find_sentinel, mask_codes, split_codes
 from align.record import add_history, build_record, record_reference
 
 _DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
+_DEPTH_UNIT = {scale: unit for unit, scale in _DEPTH_SCALE.items()}
+#: A depth unit closing a column name (``depth_cm``, ``Depth mm``).
+_DEPTH_NAME = re.compile(r"^depth[\W_]+(m|cm|mm)$", re.IGNORECASE)
 _HEADER = re.compile(r"^\s*(?P<name>[^(\[]*[^(\[\s])\s*(?:\[(?P<bracket>[^\]]*)\])?\s*"
                      r"(?:\((?P<paren>[^)]*)\))?\s*$")
 #: Column names found without being told (lower case).
@@ -36,6 +39,11 @@ OPTION_OF_ROLE = {role: {"age_sd": "age_sd_column", "age_mce": "mce_column"}.get
     role, f"{role}_column") for role in AUTO}
 #: The youngest plausible age, per record reference: AD 2100 (a stated choice).
 FAR_FUTURE = {"b2k": -100.0, "BP": -150.0}
+#: A sigma level stated in a header (``2σ``, ``1 sigma``, ``2 sd``).
+_SIGMA = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(?:σ|sigma|sd|s)\s*$", re.IGNORECASE)
+#: What each uncertainty column holds, for messages.
+_ROLE_HOLDS = {"age_sd": "an age sd column holds 1-sigma uncertainties",
+               "age_mce": "an MCE column holds maximum counting errors (2 sigma)"}
 #: Calendar-year lengths (days) whose whole multiples as a sample interval suggest days.
 _YEAR_DAYS = (365.0, 365.25, 365.2425, 360.0)
 
@@ -121,10 +129,17 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
             numeric[roles[role]] = ages.convert(numeric[roles[role]])
     for role in ("age_sd", "age_mce"):
         if role in roles:
-            numeric[roles[role]] = numeric[roles[role]] * ages.sd_scale
+            scale = ages.uncertainty_scale(columns[roles[role]], role, mapping)
+            numeric[roles[role]] = numeric[roles[role]] * scale
     for role in ("depth", "depth_top", "depth_bottom"):
         if role in roles:
             numeric[roles[role]] = numeric[roles[role]] * depth_scale
+    if depth_scale != 1.0:
+        notes.append(f"depths converted from {_DEPTH_UNIT[depth_scale]} to m")
+    if "depth" not in roles and "depth_top" in roles and "depth_bottom" in roles:
+        roles["depth"] = "depth"
+        numeric["depth"] = (numeric[roles["depth_top"]] + numeric[roles["depth_bottom"]]) / 2
+        notes.append("depth mid-points half-way between depth_top and depth_bottom")
     order, numeric, reversed_note = _top_down(numeric, roles, frame.shape[0])
     locate_sorted = (lambda i: locate(order[i])) if order is not None else locate
     if "age" in roles:
@@ -307,7 +322,10 @@ def _parse_cells(cells, texts, decimal):
     where a cell is neither a number nor blank."""
     text = cells.astype(str).str.strip()
     blank = (text == "") | text.isin(list(texts)) | text.str.lower().isin(["nan", "na"])
-    parsed = text.str.replace(",", ".", regex=False) if decimal == "," else text
+    parsed = text
+    if decimal == ",":  # a '.' there is a thousands separator (or a mixed-up file)
+        parsed = text.str.replace(",", ".", regex=False).where(~text.str.contains(".",
+                                                                                 regex=False))
     values = pd.to_numeric(parsed.where(~blank), errors="coerce").to_numpy(dtype=float)
     return values, np.isnan(values) & ~blank.to_numpy()
 
@@ -324,6 +342,8 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
             kind, row = locate(i)
             hint = (" (a decimal comma? say decimal=',')"
                     if re.fullmatch(r"-?\d+,\d+", text.iloc[i]) else "")
+            if decimal == "," and "." in text.iloc[i]:
+                hint = " (a thousands separator? with decimal=',' a '.' is no decimal mark)"
             raise InputError(f"not a number: {text.iloc[i]!r}{hint}", source=name, field=col,
                              row=row, row_kind=kind)
     inf = np.isinf(values)
@@ -359,17 +379,32 @@ def _refuse_missing_roles(numeric, roles, locate, name):
 
 
 def _depth_scale(roles, columns, mapping, name):
-    col = roles.get("depth")
-    stated = columns[col].unit if col is not None else None
-    given = mapping.get("depth_units")
-    for unit, option in ((given, "depth_units"), (stated, col)):
-        if unit is not None and str(unit).strip().lower() not in _DEPTH_SCALE:
+    """Metres per stored depth unit, from the option, the depth columns' header units and the
+    depth column's name (``depth_cm``); two statements that differ are refused."""
+    said = {}
+    for role in ("depth", "depth_top", "depth_bottom"):
+        col = roles.get(role)
+        if col is not None:
+            hint = _DEPTH_NAME.search(columns[col].name) if role == "depth" else None
+            for unit in (columns[col].unit, hint and hint[1]):
+                if unit is not None:
+                    said.setdefault(str(unit).strip().lower(), columns[col].header)
+    for unit, field in said.items():
+        if unit not in _DEPTH_SCALE:
             raise InputError(f"unknown depth unit {unit!r}; use one of "
-                             f"{', '.join(_DEPTH_SCALE)}", source=name, field=option)
-    if given is not None and stated is not None and given.lower() != stated.strip().lower():
-        raise InputError(f"the file says depths are in {stated}, depth_units= says {given}; "
+                             f"{', '.join(_DEPTH_SCALE)}", source=name, field=field)
+    given = mapping.get("depth_units")
+    if given is not None and str(given).strip().lower() not in _DEPTH_SCALE:
+        raise InputError(f"unknown depth unit {given!r}; use one of {', '.join(_DEPTH_SCALE)}",
+                         source=name, field="depth_units")
+    stated = list(said)
+    if len(stated) > 1:
+        raise InputError(f"the depth columns say {' and '.join(stated)}; give them in one unit",
+                         source=name, field=said[stated[1]])
+    if given is not None and stated and given.strip().lower() != stated[0]:
+        raise InputError(f"the file says depths are in {stated[0]}, depth_units= says {given}; "
                          "convert instead of relabelling", source=name, field="depth_units")
-    return _DEPTH_SCALE[str(given or stated or "m").strip().lower()]
+    return _DEPTH_SCALE[str(given or (stated or ["m"])[0]).strip().lower()]
 
 
 def _top_down(numeric, roles, n):
@@ -399,7 +434,8 @@ class AgeReading:
         The record's reference.
     kind : {"linear", "calendar", "cf", "relative"}
     scale : float
-        Years per stored unit (also applied to ``age_sd``/``age_mce``: ``sd_scale``).
+        Years per stored unit (also applied to ``age_sd``/``age_mce`` without a unit of their
+        own: :meth:`uncertainty_scale`).
     source_reference : str
         What the stored numbers count from (``CE``, ``BCE``, ``astronomical``, CF units, ...).
     """
@@ -417,9 +453,28 @@ class AgeReading:
     column: str | None = None
     notes: list = _field(default_factory=list)
 
-    @property
-    def sd_scale(self):
-        return self.scale
+    def uncertainty_scale(self, column, role, mapping):
+        """Years per stored unit of an age sd or MCE column: its own header unit when it
+        states one (``sd (yr)`` beside ``Age [ka BP]``), else the age's; a sigma level the
+        role does not hold (``sd (2σ)``) is refused."""
+        held = 1.0 if role == "age_sd" else 2.0
+        unit = None
+        for text in (column.unit, column.comment):
+            level = _SIGMA.match(text or "")
+            if level is not None and float(level[1]) != held:
+                raise InputError(f"the header states {float(level[1]):g}-sigma values; "
+                                 f"{_ROLE_HOLDS[role]}: convert them first", source=self.source,
+                                 field=column.header)
+            if level is None and text is column.unit:
+                unit = text
+        if unit is None:
+            return self.scale
+        try:
+            scale = parse_age_units(unit, field=column.header).scale
+        except InputError as exc:
+            raise exc.located(source=self.source) from None
+        said = {"option": _given_units(mapping), "header": AgeUnits(scale)}
+        return _agree(said, "scale", self.source, column.header) or self.scale
 
     @classmethod
     def resolve(cls, roles, columns, mapping, name):

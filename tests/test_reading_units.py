@@ -1,0 +1,177 @@
+"""Inputs that were read without a word and came out wrong: units stated beside the numbers
+(uncertainty headers, depth column names, NetCDF attributes), thousands separators, CF
+validity ranges, the netCDF library's fill value and depth given only as intervals.
+
+Each case is the smallest file that showed the problem; the expected values are worked by
+hand from what the file states.
+"""
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from align import InputError, open_record
+
+
+def table(tmp_path, text, name="t.csv"):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+# ------------------------------------------------------------------- uncertainty columns
+
+@pytest.mark.parametrize("header, sd_header, cell, expected", [
+    ("age (ka BP)", "sd (yr)", "50", 50.0),       # was 50,000 yr: the age's ka applied
+    ("age (yr BP)", "sd (ka)", "0.05", 50.0),     # was 0.05 yr: the header's ka ignored
+    ("age (ka BP)", "sd (ka)", "0.05", 50.0),
+    ("age (ka BP)", "sd", "0.05", 50.0),          # no unit of its own: the age's
+])
+def test_an_uncertainty_header_unit_is_its_own(tmp_path, header, sd_header, cell, expected):
+    path = table(tmp_path, f"depth,{header},{sd_header},Ca\n"
+                           f"1.0,11.0{'' if 'ka' in header else '00'},{cell},5\n"
+                           f"1.1,11.1{'' if 'ka' in header else '00'},{cell},6\n")
+    record = open_record(path)
+    np.testing.assert_allclose(record.age_sd.values, [expected, expected])
+
+
+def test_an_mce_header_unit_is_its_own(tmp_path):
+    path = table(tmp_path, "depth,age (ka b2k),mce (yr),Ca\n1.0,11.0,40,5\n1.1,11.1,42,6\n")
+    np.testing.assert_allclose(open_record(path).age_mce.values, [40.0, 42.0])
+
+
+def test_an_uncertainty_unit_that_contradicts_the_option_is_refused(tmp_path):
+    path = table(tmp_path, "depth,age,sd (yr),Ca\n1.0,11.0,50,5\n1.1,11.1,50,6\n")
+    with pytest.raises(InputError, match=r"'sd \(yr\)'.*stated twice"):
+        open_record(path, age_reference="BP", age_units="ka")
+
+
+@pytest.mark.parametrize("sd_header", ["sd (2σ)", "age_sd (2 sigma)", "sd [yr] (2 sigma)"])
+def test_a_two_sigma_uncertainty_is_not_read_as_one_sigma(tmp_path, sd_header):
+    # was read as a 1-sigma sd of 20 yr (twice the stated uncertainty)
+    path = table(tmp_path, f"age,{sd_header},Ca\n100,20,5\n110,20,6\n")
+    with pytest.raises(InputError, match=r"2-sigma") as caught:
+        open_record(path, age_reference="BP")
+    assert repr(sd_header) in str(caught.value) and str(path) in str(caught.value)
+
+
+# ------------------------------------------------------------------------------ depth units
+
+@pytest.mark.parametrize("column, expected", [("depth_cm", [1.0, 1.01]), ("depth_mm", [1.0, 1.01]),
+                                              ("Depth_m", [100.0, 101.0])])
+def test_a_depth_unit_in_the_column_name_is_applied(tmp_path, column, expected):
+    scale = {"depth_cm": 1, "depth_mm": 10, "Depth_m": 1}[column]
+    path = table(tmp_path, f"{column},age,Ca\n{100 * scale},100,5\n{101 * scale},110,6\n")
+    record = open_record(path, age_reference="BP")
+    np.testing.assert_allclose(record.depth.values, expected)
+    said = {"depth_cm": "from cm to m", "depth_mm": "from mm to m"}.get(column)
+    assert (said in record.attrs["history"]) if said else "converted" not in record.attrs[
+        "history"]
+
+
+def test_a_depth_name_unit_that_contradicts_the_option_is_refused(tmp_path):
+    path = table(tmp_path, "depth_m,age,Ca\n1.0,100,5\n1.1,110,6\n")
+    with pytest.raises(InputError, match=r"depth_units"):
+        open_record(path, age_reference="BP", depth_units="cm")
+
+
+def test_depth_intervals_without_mid_points_keep_the_depth(tmp_path):
+    # was: the depth dropped without a word (an age-only record)
+    path = table(tmp_path, "depth_top (cm),depth_bottom (cm),age,Ca\n"
+                           "100,101,100,5\n101,102,110,6\n102,104,120,7\n")
+    record = open_record(path, age_reference="BP")
+    np.testing.assert_allclose(record.depth.values, [1.005, 1.015, 1.03])
+    np.testing.assert_allclose(record.depth_bounds.values[:, 1], [1.01, 1.02, 1.04])
+    assert "half-way between depth_top and depth_bottom" in record.attrs["history"]
+
+
+# --------------------------------------------------------------------- numbers in the cells
+
+def test_a_thousands_dot_with_decimal_commas_is_refused(tmp_path):
+    # '11.500' in a decimal-comma table is eleven thousand five hundred; it was read as 11.5
+    path = table(tmp_path, "depth;age;Ca\n1,0;11.500;5\n1,1;11.600;6\n")
+    with pytest.raises(InputError, match=r"'age', line 2: not a number: '11.500'.*thousands"):
+        open_record(path, age_reference="BP", decimal=",")
+    ok = table(tmp_path, "depth;age;Ca\n1,0;11500;5,5\n1,1;11600;6,5\n", "ok.csv")
+    np.testing.assert_allclose(open_record(ok, age_reference="BP", decimal=",").Ca, [5.5, 6.5])
+
+
+# ---------------------------------------------------------------------------------- NetCDF
+
+def _schema_file(path, *, ca=(5.0, 6.0, 7.0, 6.5), ca_attrs=None, age_units="yr",
+                 depth_units="m", depth=(1.0, 1.01, 1.02, 1.03)):
+    """A record-schema NetCDF written with netCDF4 directly (no xarray encoding)."""
+    import netCDF4
+
+    n = len(ca)
+    age = 100.0 + 10.0 * np.arange(n)
+    with netCDF4.Dataset(path, "w") as ds:
+        ds.createDimension("sample", n)
+        ds.createDimension("nv", 2)
+        for name, values, units in (("age", age, age_units), ("depth", np.asarray(depth),
+                                                               depth_units)):
+            var = ds.createVariable(name, "f8", ("sample",))
+            var.setncatts({"units": units, "bounds": f"{name}_bounds",
+                           **({"age_reference": "BP"} if name == "age" else {})})
+            var[:] = values
+            half = np.diff(values).mean() / 2
+            ds.createVariable(f"{name}_bounds", "f8", ("sample", "nv"))[:] = np.column_stack(
+                [values - half, values + half])
+        var = ds.createVariable("Ca", "f8", ("sample",))
+        var.set_auto_maskandscale(False)
+        var.setncatts({"coordinates": "age depth", **(ca_attrs or {})})
+        var[:] = np.asarray(ca)
+    return path
+
+
+@pytest.mark.parametrize("units, expected", [("cm", [1.0, 1.01, 1.02, 1.03]),
+                                             ("mm", [0.1, 0.101, 0.102, 0.103])])
+def test_schema_netcdf_depth_in_cm_or_mm_is_converted(tmp_path, units, expected):
+    path = _schema_file(tmp_path / "d.nc", depth_units=units, depth=(100.0, 101, 102, 103))
+    record = open_record(path)
+    np.testing.assert_allclose(record.depth.values, expected)  # was 100 m and more
+    np.testing.assert_allclose(record.depth_bounds.values[0], [expected[0] - (expected[1] -
+                                                               expected[0]) / 2,
+                                                               (expected[0] + expected[1]) / 2])
+    assert record.depth.attrs["units"] == "m" and "depth" in record.attrs["history"]
+
+
+def test_schema_netcdf_age_in_ka_is_converted(tmp_path):
+    path = _schema_file(tmp_path / "a.nc", age_units="ka")
+    record = open_record(path)
+    np.testing.assert_allclose(record.age.values, [100e3, 110e3, 120e3, 130e3])  # was 100 yr
+    np.testing.assert_allclose(record.age_bounds.values[0], [95e3, 105e3])
+
+
+def test_schema_netcdf_unknown_depth_unit_is_refused(tmp_path):
+    path = _schema_file(tmp_path / "f.nc", depth_units="ft")
+    with pytest.raises(InputError, match=r"'depth'.*unknown depth unit 'ft'"):
+        open_record(path)
+
+
+@pytest.mark.parametrize("attrs, value", [({"valid_range": np.array([0.0, 100.0])}, 500.0),
+                                          ({"valid_min": 0.0}, -1.0),
+                                          ({"valid_max": 100.0}, 500.0)])
+def test_cf_values_outside_the_valid_range_are_missing(tmp_path, attrs, value):
+    path = _schema_file(tmp_path / "v.nc", ca=(5.0, 6.0, value, 6.5), ca_attrs=attrs)
+    record = open_record(path)
+    np.testing.assert_array_equal(np.isnan(record.Ca.values), [False, False, True, False])
+    assert "outside the valid range" in record.attrs["history"]
+
+
+def test_cf_valid_range_of_a_generic_netcdf_column(tmp_path):
+    xr.Dataset({"Age_BP": ("i", [100.0, 110.0, 120.0]),
+                "Ca": ("i", [1.0, 2.0, -5.0], {"valid_min": 0.0})}).to_netcdf(tmp_path / "g.nc")
+    record = open_record(tmp_path / "g.nc", age_column="Age_BP", age_reference="BP")
+    assert np.isnan(record.Ca.values[2]) and not np.isnan(record.Ca.values[:2]).any()
+
+
+def test_the_netcdf_default_fill_is_missing(tmp_path):
+    # cells never written hold the library's default fill (no _FillValue attribute)
+    import netCDF4
+
+    fill = netCDF4.default_fillvals["f8"]
+    path = _schema_file(tmp_path / "u.nc", ca=(5.0, 6.0, fill, 6.5))
+    record = open_record(path)
+    np.testing.assert_array_equal(np.isnan(record.Ca.values), [False, False, True, False])
+    assert "default fill" in record.attrs["history"]
