@@ -21,11 +21,12 @@ from align.ages import (FORWARD_REFERENCES, AgeUnits, age_units_from_name, canon
                         from_bp, parse_age_units, to_bp)
 from align.cfdecode import cf_time_to_bp, is_cf_time
 from align.errors import InputError
-from align.missing import find_sentinel, mask_codes, split_codes
+from align.missing import find_sentinel, mask_missing, split_codes
 from align.record import add_history, build_record, record_reference
 
-_DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
-_DEPTH_UNIT = {scale: unit for unit, scale in _DEPTH_SCALE.items()}
+#: Metres per depth unit.
+DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
+_DEPTH_UNIT = {scale: unit for unit, scale in DEPTH_SCALE.items()}
 #: A depth unit closing a column name (``depth_cm``, ``Depth mm``).
 _DEPTH_NAME = re.compile(r"^depth[\W_]+(m|cm|mm)$", re.IGNORECASE)
 _HEADER = re.compile(r"^\s*(?P<name>[^(\[]*[^(\[\s])\s*(?:\[(?P<bracket>[^\]]*)\])?\s*"
@@ -110,13 +111,12 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
     wanted = [*roles.values(), *proxies]
     parsed = numeric_columns(frame, wanted, name, locate, texts, mapping.get("decimal"))
     for col in wanted:
-        values, count = mask_codes(parsed[col], numbers)
-        if count:
-            notes.append(f"{count} missing-value code(s) in {columns[col].header!r} read as "
-                         "missing")
-            if np.isnan(values).all():
-                raise InputError("the missing-value code(s) leave this column without any "
-                                 "value", source=name, field=columns[col].header)
+        values, masked = mask_missing(parsed[col], numbers, columns[col].attrs)
+        notes.extend(f"{n} {what} in {columns[col].header!r} read as missing"
+                     for n, what in masked)
+        if masked and np.isnan(values).all():
+            raise InputError("the missing-value code(s) leave this column without any "
+                             "value", source=name, field=columns[col].header)
         _refuse_sentinel(values, columns[col].header, name, locate)
         numeric[col] = values
     _refuse_missing_roles(numeric, roles, locate, name)
@@ -390,12 +390,12 @@ def _depth_scale(roles, columns, mapping, name):
                 if unit is not None:
                     said.setdefault(str(unit).strip().lower(), columns[col].header)
     for unit, field in said.items():
-        if unit not in _DEPTH_SCALE:
+        if unit not in DEPTH_SCALE:
             raise InputError(f"unknown depth unit {unit!r}; use one of "
-                             f"{', '.join(_DEPTH_SCALE)}", source=name, field=field)
+                             f"{', '.join(DEPTH_SCALE)}", source=name, field=field)
     given = mapping.get("depth_units")
-    if given is not None and str(given).strip().lower() not in _DEPTH_SCALE:
-        raise InputError(f"unknown depth unit {given!r}; use one of {', '.join(_DEPTH_SCALE)}",
+    if given is not None and str(given).strip().lower() not in DEPTH_SCALE:
+        raise InputError(f"unknown depth unit {given!r}; use one of {', '.join(DEPTH_SCALE)}",
                          source=name, field="depth_units")
     stated = list(said)
     if len(stated) > 1:
@@ -404,7 +404,7 @@ def _depth_scale(roles, columns, mapping, name):
     if given is not None and stated and given.strip().lower() != stated[0]:
         raise InputError(f"the file says depths are in {stated[0]}, depth_units= says {given}; "
                          "convert instead of relabelling", source=name, field="depth_units")
-    return _DEPTH_SCALE[str(given or (stated or ["m"])[0]).strip().lower()]
+    return DEPTH_SCALE[str(given or (stated or ["m"])[0]).strip().lower()]
 
 
 def _top_down(numeric, roles, n):

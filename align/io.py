@@ -18,9 +18,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from align.columns import frame_to_record, safe_name
+from align.ages import parse_age_units
+from align.columns import DEPTH_SCALE, frame_to_record, safe_name
 from align.errors import InputError, NotATableError
-from align.missing import find_sentinel, mask_codes, split_codes
+from align.missing import find_sentinel, mask_missing, split_codes
 from align.provenance import sha256_bytes, sha256_file
 from align.record import SAMPLE, TIMESCALE_VARIABLES, add_history, proxy_variables, validate_record
 from align.tables import read_table
@@ -230,6 +231,7 @@ def _read_netcdf(path, mapping, meta):
     ds = _grid_as_samples(ds)
     if SAMPLE in ds.dims and _in_schema(ds):
         ds = _fill_netcdf_reference(ds, mapping, path)
+        _schema_units(ds, str(path))
         _clean_proxies(ds, mapping, str(path))
         ds.attrs.update(meta, source=str(path), source_checksum=checksum)
         return validate_record(ds, source=str(path))
@@ -293,15 +295,57 @@ def _in_schema(ds):
     return str(ds["age"].attrs.get("units", "yr")).strip().lower() in ("yr", "years", "a")
 
 
+#: Metres per depth unit, with the spellings of CF files.
+_DEPTH_UNITS = {**DEPTH_SCALE, "metre": 1.0, "metres": 1.0, "meter": 1.0, "meters": 1.0}
+_AGE_SCHEMA = ("age", "age_bounds", "age_sd", "age_mce", "age_ensemble")
+
+
+def _schema_units(ds, name):
+    """Depths in cm or mm and ages in ka, as a schema file's ``units`` say, converted to m and
+    yr in place (with a history line); an unknown unit is refused."""
+    if "depth" in ds.coords:
+        unit = str(ds["depth"].attrs.get("units", "m")).strip()
+        if unit.lower() not in _DEPTH_UNITS:
+            raise InputError(f"unknown depth unit {unit!r}; use one of "
+                             f"{', '.join(DEPTH_SCALE)}", source=name, field="depth")
+        _rescale(ds, ("depth", "depth_bounds"), _DEPTH_UNITS[unit.lower()], "m",
+                 f"depths converted from {unit} to m")
+    if "age" in ds.coords:
+        unit = str(ds["age"].attrs.get("units", "yr"))
+        stated = parse_age_units(unit, field="age")
+        reference = ds["age"].attrs.get("age_reference")
+        if stated.reference is not None and reference not in (None, stated.reference):
+            raise InputError(f"the age units say {stated.reference}, age_reference says "
+                             f"{reference}", source=name, field="age")
+        for var in _AGE_SCHEMA:
+            own = ds[var].attrs.get("units") if var in ds else None
+            scale = parse_age_units(own, field=var).scale if own else stated.scale
+            _rescale(ds, (var,), scale or 1.0, "yr", f"{var} converted from ka to yr")
+
+
+def _rescale(ds, names, scale, unit, note):
+    if scale == 1.0:
+        return
+    for var in names:
+        if var in ds.variables:
+            ds[var] = ds[var].copy(data=ds[var].values * scale)
+            if "units" in ds[var].attrs:
+                ds[var].attrs["units"] = unit
+    add_history(ds, note)
+
+
 def _clean_proxies(ds, mapping, name):
-    """Declared missing-value codes to NaN and undeclared sentinels refused, in place."""
+    """Declared missing-value codes, values outside a CF valid range and the netCDF default
+    fill to NaN, and undeclared sentinels refused, in place."""
     numbers, _ = split_codes(mapping.get("missing_values") or [])
     for var in proxy_variables(ds):
         variable = ds.variables[var]  # not ds[var], which scans every variable
-        values, count = mask_codes(variable.values.astype(float), numbers)
-        if count:
+        values, notes = mask_missing(variable.values.astype(float), numbers,
+                                     {**variable.attrs, **variable.encoding})
+        if notes:
             variable.data = values
-            add_history(ds, f"{count} missing-value code(s) in {var!r} read as missing")
+        for n, what in notes:
+            add_history(ds, f"{n} {what} in {var!r} read as missing")
         find = find_sentinel(values)
         if find is not None:
             raise InputError(f"{find[1]} value(s) hold {find[0]:g}, far outside the other "

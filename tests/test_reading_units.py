@@ -166,6 +166,22 @@ def test_cf_valid_range_of_a_generic_netcdf_column(tmp_path):
     assert np.isnan(record.Ca.values[2]) and not np.isnan(record.Ca.values[:2]).any()
 
 
+def test_cf_valid_range_of_packed_values_is_in_packed_units(tmp_path):
+    # stored int16 0..1000 times 0.01: valid 0 to 10 once unpacked; 1200 (12.0) is outside
+    import netCDF4
+
+    path = _schema_file(tmp_path / "p.nc", ca=(0.0, 0.0, 0.0, 0.0))
+    with netCDF4.Dataset(path, "a") as ds:
+        var = ds.createVariable("Mg", "i2", ("sample",))
+        var.set_auto_maskandscale(False)
+        var.setncatts({"coordinates": "age depth", "scale_factor": 0.01,
+                       "valid_range": np.array([0, 1000], dtype="i2")})
+        var[:] = np.array([500, 600, 1200, 700], dtype="i2")
+    mg = open_record(path).Mg.values
+    np.testing.assert_allclose(mg[[0, 1, 3]], [5.0, 6.0, 7.0])
+    assert np.isnan(mg[2])
+
+
 def test_the_netcdf_default_fill_is_missing(tmp_path):
     # cells never written hold the library's default fill (no _FillValue attribute)
     import netCDF4
