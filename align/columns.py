@@ -117,7 +117,7 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
         if masked and np.isnan(values).all():
             raise InputError("the missing-value code(s) leave this column without any "
                              "value", source=name, field=columns[col].header)
-        _refuse_sentinel(values, columns[col].header, name, locate)
+        refuse_sentinel(values, columns[col].header, name, locate)
         numeric[col] = values
     _refuse_missing_roles(numeric, roles, locate, name)
     depth_scale = _depth_scale(roles, columns, mapping, name)
@@ -353,7 +353,9 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
     return values
 
 
-def _refuse_sentinel(values, header, name, locate):
+def refuse_sentinel(values, header, name, locate):
+    """Refuse an undeclared missing-value code in a column (:func:`align.missing.find_sentinel`),
+    naming the column, the code, its count and its first row."""
     found = find_sentinel(values)
     if found is None:
         return

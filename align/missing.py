@@ -17,6 +17,9 @@ from align.errors import InputError
 
 #: Values commonly used as missing-value codes in paleoclimate tables (common practice).
 SENTINELS = (-999.0, -9999.0, -99999.0, 9999.0, 99999.0, -99.99, -999.9)
+#: Magnitudes no measured value reaches: those at or beyond it are fill values (1e20 of climate
+#: model output, 9.96921e36 of the netCDF library; common practice) and count as sentinels.
+FILL_MAGNITUDE = 1e20
 #: How many robust standard deviations (1.4826 MAD) away from the median makes "far outside".
 FAR = 10.0
 
@@ -64,10 +67,11 @@ def find_sentinel(values):
     A value ``s`` from :data:`SENTINELS` is a sentinel when ``|s - median| > 10 * 1.4826 * MAD``
     of the other finite values (the MAD scale; Rousseeuw & Croux 1993,
     doi:10.1080/01621459.1993.10476408) and ``s`` lies outside their range; a column holding
-    only the code is a sentinel too.
+    only the code is a sentinel too. Values of magnitude :data:`FILL_MAGNITUDE` or more are
+    candidates as well.
     """
     finite = values[np.isfinite(values)]
-    for code in SENTINELS:
+    for code in (*SENTINELS, *np.unique(finite[np.abs(finite) >= FILL_MAGNITUDE])):
         hit = finite == code
         if not hit.any():
             continue

@@ -96,6 +96,17 @@ def test_a_thousands_dot_with_decimal_commas_is_refused(tmp_path):
     np.testing.assert_allclose(open_record(ok, age_reference="BP", decimal=",").Ca, [5.5, 6.5])
 
 
+@pytest.mark.parametrize("cell", ["1e20", "1e30", "9.96921e36", "-1e+20"])
+def test_a_fill_value_magnitude_is_refused_as_a_missing_value_code(tmp_path, cell):
+    # was read as data: a spike of 1e20 in Ca
+    path = table(tmp_path, f"depth,age,Ca\n1.0,100,5\n1.1,110,{cell}\n1.2,120,6\n1.3,130,5.5\n")
+    with pytest.raises(InputError, match=r"'Ca', line 3: 1 cell\(s\) hold .*missing-value code"):
+        open_record(path, age_reference="BP")
+    code = float(cell)
+    declared = open_record(path, age_reference="BP", missing_values=[code])
+    assert np.isnan(declared.Ca.values[1])
+
+
 # ---------------------------------------------------------------------------------- NetCDF
 
 def _schema_file(path, *, ca=(5.0, 6.0, 7.0, 6.5), ca_attrs=None, age_units="yr",
@@ -191,3 +202,25 @@ def test_the_netcdf_default_fill_is_missing(tmp_path):
     record = open_record(path)
     np.testing.assert_array_equal(np.isnan(record.Ca.values), [False, False, True, False])
     assert "default fill" in record.attrs["history"]
+
+
+# ------------------------------------------------------------------- ties and site draws
+
+def test_a_missing_value_code_in_a_tie_table_is_refused(tmp_path):
+    # sd 9999 among 3-7 yr was a tie of no weight, read without a word
+    from align.ties import read_ties
+
+    path = table(tmp_path, "label,depth,ref_depth,sd\nA,1.0,10.0,3\nB,1.5,11.0,4\nC,2.0,12.0,9999\n"
+                           "D,2.5,13.0,5\nE,3.0,14.0,7\n", "ties.csv")
+    with pytest.raises(InputError, match=r"'sd', line 4: 1 cell\(s\) hold 9999"):
+        read_ties(path)
+
+
+def test_a_missing_value_code_among_site_draws_is_refused():
+    # -999 among draws near 12,260 yr pulled the site's age without a word
+    from align.sites import check_draws
+
+    draws = np.r_[np.random.default_rng(1).normal(12260.0, 30.0, 200), -999.0, -999.0]
+    with pytest.raises(InputError, match=r"row 201: site .X.: 2 draw\(s\) hold -999"):
+        check_draws(draws, "X", 0)
+    assert check_draws(draws[:200], "X", 0).size == 200
