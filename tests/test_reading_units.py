@@ -224,3 +224,29 @@ def test_a_missing_value_code_among_site_draws_is_refused():
     with pytest.raises(InputError, match=r"row 201: site .X.: 2 draw\(s\) hold -999"):
         check_draws(draws, "X", 0)
     assert check_draws(draws[:200], "X", 0).size == 200
+
+
+@pytest.mark.parametrize("header, expected", [("age [ka b2k]", 12150.0), ("age (yr)", 12.15),
+                                              ("age", 12.15)])
+def test_an_event_table_age_header_unit_is_applied(tmp_path, header, expected):
+    # 'age [ka b2k]' was read as years: windows around 12 yr b2k
+    from align.schema import SurveySpec
+    from align.survey import table_pairs
+
+    table(tmp_path, f"label,{header}\nX1,12.150\n", "events.csv")
+    spec = SurveySpec.model_validate({
+        "table": {"path": "events.csv", "label_column": "label", "age_column": header,
+                  "age_reference": "b2k", "window": [-250, 250]},
+        "a": {"kind": "event", "record": "a.nc", "variable": "x"},
+        "b": {"kind": "event", "record": "b.nc", "variable": "x"}, "age_reference": "b2k"})
+
+    class Sources:
+        def path(self, name):
+            return tmp_path / name
+
+    (pair,) = table_pairs(spec, Sources())
+    assert pair.a.window == [expected - 250, expected + 250]
+    spec.table.age_reference = "BP"
+    if "b2k" in header:
+        with pytest.raises(InputError, match=r"'age \[ka b2k\]'.*header says b2k"):
+            table_pairs(spec, Sources())
