@@ -22,7 +22,7 @@ from align.ages import (FORWARD_REFERENCES, AgeUnits, age_units_from_name, canon
 from align.cfdecode import cf_time_to_bp, is_cf_time
 from align.errors import InputError
 from align.missing import find_sentinel, mask_missing, split_codes
-from align.record import add_history, build_record, record_reference
+from align.record import TIMESCALE_VARIABLES, add_history, build_record, record_reference
 
 #: Metres per depth unit.
 DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
@@ -223,9 +223,8 @@ def available(columns):
 
 def assign_roles(columns, mapping, name):
     """Which column plays which role (depth, age, uncertainty, bounds)."""
-    lower = {key.lower(): key for key in columns}
     roles = {}
-    for role, candidates in AUTO.items():
+    for role in AUTO:
         option = OPTION_OF_ROLE[role]
         given = mapping.get(option)
         if given is not None:
@@ -235,7 +234,7 @@ def assign_roles(columns, mapping, name):
                                  f"{available(columns)})", source=name, field=option)
             roles[role] = found
         else:
-            found = next((lower[c] for c in candidates if c in lower), None)
+            found = _exact_match(columns, role, name)
             if found is None and role in _LOOSE:
                 found = _loose_match(columns, role)
             if found is not None:
@@ -249,6 +248,21 @@ def assign_roles(columns, mapping, name):
                 raise InputError("an age uncertainty or age bounds without an age column",
                                  source=name, field=columns[roles[role]].header)
     return roles
+
+
+def _exact_match(columns, role, name):
+    """The column named as ``role`` is found without being told (any case); two such columns
+    (``Depth`` and ``depth``) are refused."""
+    found = [key for key in columns if key.lower() in AUTO[role]]
+    for candidate in AUTO[role]:
+        same = [key for key in found if key.lower() == candidate]
+        if len(same) > 1:
+            raise InputError(f"columns {columns[same[0]].header!r} and {columns[same[1]].header!r}"
+                             f" both look like the {role.replace('_', ' ')}; name one with "
+                             f"{OPTION_OF_ROLE[role]}=", source=name, field=columns[same[1]].header)
+        if same:
+            return same[0]
+    return None
 
 
 #: Name patterns of depth and age columns found when exactly one column matches
@@ -272,6 +286,10 @@ def _is_time(column):
             or str(attrs.get("axis", "")).upper() == "T")
 
 
+#: Names a record keeps for its own variables (a proxy named so would be taken for them).
+_SCHEMA_NAMES = {"depth", "age", *TIMESCALE_VARIABLES}
+
+
 def _proxy_columns(columns, roles, mapping, name):
     taken = set(roles.values())
     wanted = mapping.get("variables")
@@ -283,8 +301,15 @@ def _proxy_columns(columns, roles, mapping, name):
                 raise InputError(f"no column {given!r} for variables= (available: "
                                  f"{available(columns)})", source=name, field="variables")
             keys.append(key)
-        return [k for k in keys if k not in taken]
-    return [c for c in columns if c not in taken]
+        proxies = [k for k in keys if k not in taken]
+    else:
+        proxies = [c for c in columns if c not in taken]
+    for key in proxies:
+        if key in _SCHEMA_NAMES:
+            raise InputError(f"a column named {key!r} that is not the record's own {key} cannot "
+                             "be kept as a variable; leave it out with variables=",
+                             source=name, field=columns[key].header)
+    return proxies
 
 
 def numeric_columns(frame, cols, name, locate, texts=(), decimal=None):

@@ -312,15 +312,22 @@ def _schema_units(ds, name):
                  f"depths converted from {unit} to m")
     if "age" in ds.coords:
         unit = str(ds["age"].attrs.get("units", "yr"))
-        stated = parse_age_units(unit, field="age")
+        stated = _age_units(unit, "age", name)
         reference = ds["age"].attrs.get("age_reference")
         if stated.reference is not None and reference not in (None, stated.reference):
             raise InputError(f"the age units say {stated.reference}, age_reference says "
                              f"{reference}", source=name, field="age")
         for var in _AGE_SCHEMA:
             own = ds[var].attrs.get("units") if var in ds else None
-            scale = parse_age_units(own, field=var).scale if own else stated.scale
+            scale = _age_units(own, var, name).scale if own else stated.scale
             _rescale(ds, (var,), scale or 1.0, "yr", f"{var} converted from ka to yr")
+
+
+def _age_units(text, var, name):
+    try:
+        return parse_age_units(text, field=var)
+    except InputError as exc:
+        raise exc.located(source=name) from None
 
 
 def _rescale(ds, names, scale, unit, note):

@@ -85,6 +85,19 @@ def test_depth_intervals_without_mid_points_keep_the_depth(tmp_path):
     assert "half-way between depth_top and depth_bottom" in record.attrs["history"]
 
 
+def test_two_columns_that_both_look_like_the_depth_are_refused(tmp_path):
+    # 'depth' was taken and 'Depth' kept as a proxy, without a word
+    path = table(tmp_path, "Depth,depth,age,Ca\n1.0,2.0,100,5\n1.1,2.1,110,6\n")
+    with pytest.raises(InputError, match=r"'depth'.*'Depth' and 'depth' both look like the "
+                                         r"depth; name one with depth_column="):
+        open_record(path, age_reference="BP")
+    with pytest.raises(InputError, match=r"'depth': a column named 'depth' that is not the "
+                                         r"record's own depth"):
+        open_record(path, age_reference="BP", depth_column="Depth")  # was an internal error
+    np.testing.assert_allclose(open_record(path, age_reference="BP", depth_column="Depth",
+                                           variables=["Ca"]).depth, [1.0, 1.1])
+
+
 # --------------------------------------------------------------------- numbers in the cells
 
 def test_a_thousands_dot_with_decimal_commas_is_refused(tmp_path):
@@ -157,6 +170,13 @@ def test_schema_netcdf_age_in_ka_is_converted(tmp_path):
 def test_schema_netcdf_unknown_depth_unit_is_refused(tmp_path):
     path = _schema_file(tmp_path / "f.nc", depth_units="ft")
     with pytest.raises(InputError, match=r"'depth'.*unknown depth unit 'ft'"):
+        open_record(path)
+
+
+def test_schema_netcdf_age_in_cf_time_units_is_refused_by_name(tmp_path):
+    # an age_reference beside 'years since 1950-01-01' (forward time) was read as ages BP
+    path = _schema_file(tmp_path / "t.nc", age_units="years since 1950-01-01")
+    with pytest.raises(InputError, match=r"t\.nc, 'age': unknown age unit 'years since"):
         open_record(path)
 
 
