@@ -270,3 +270,12 @@ def test_an_event_table_age_header_unit_is_applied(tmp_path, header, expected):
     if "b2k" in header:
         with pytest.raises(InputError, match=r"'age \[ka b2k\]'.*header says b2k"):
             table_pairs(spec, Sources())
+
+
+def test_a_proxy_named_age_sd_does_not_replace_the_named_uncertainty(tmp_path):
+    # with age_sd_column='err', the column 'age_sd' (1 yr) became the uncertainty, not 'err'
+    path = table(tmp_path, "age,age_sd,err,Ca\n100,1,20,5\n110,1,20,6\n")
+    with pytest.raises(InputError, match=r"'age_sd': a column named 'age_sd' that is not"):
+        open_record(path, age_reference="BP", age_sd_column="err")
+    record = open_record(path, age_reference="BP", age_sd_column="err", variables=["Ca"])
+    np.testing.assert_array_equal(record.age_sd.values, [20.0, 20.0])
