@@ -405,6 +405,13 @@ def _refuse_missing_roles(numeric, roles, locate, name):
                                  field=col, row=row, row_kind=kind)
 
 
+def check_depth_direction(attrs, field, name):
+    """Refuse a depth that CF attributes say counts upward (``positive = "up"``: heights)."""
+    if str(attrs.get("positive", "down")).strip().lower() == "up":
+        raise InputError("the depth counts upward (positive='up', a height); give depth below "
+                         "the top of the core", source=name, field=field)
+
+
 def _depth_scale(roles, columns, mapping, name):
     """Metres per stored depth unit, from the option, the depth columns' header units and the
     depth column's name (``depth_cm``); two statements that differ are refused."""
@@ -412,6 +419,7 @@ def _depth_scale(roles, columns, mapping, name):
     for role in ("depth", "depth_top", "depth_bottom"):
         col = roles.get(role)
         if col is not None:
+            check_depth_direction(columns[col].attrs, columns[col].header, name)
             hint = _DEPTH_NAME.search(columns[col].name) if role == "depth" else None
             for unit in (columns[col].unit, hint and hint[1]):
                 if unit is not None:

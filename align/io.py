@@ -19,7 +19,7 @@ import pandas as pd
 import xarray as xr
 
 from align.ages import parse_age_units
-from align.columns import DEPTH_SCALE, frame_to_record, safe_name
+from align.columns import DEPTH_SCALE, check_depth_direction, frame_to_record, safe_name
 from align.errors import InputError, NotATableError
 from align.missing import find_sentinel, mask_missing, split_codes
 from align.provenance import sha256_bytes, sha256_file
@@ -304,6 +304,7 @@ def _schema_units(ds, name):
     """Depths in cm or mm and ages in ka, as a schema file's ``units`` say, converted to m and
     yr in place (with a history line); an unknown unit is refused."""
     if "depth" in ds.coords:
+        check_depth_direction(ds["depth"].attrs, "depth", name)
         unit = str(ds["depth"].attrs.get("units", "m")).strip()
         if unit.lower() not in _DEPTH_UNITS:
             raise InputError(f"unknown depth unit {unit!r}; use one of "

@@ -16,7 +16,8 @@ import numpy as np
 from align.errors import InputError
 
 #: Values commonly used as missing-value codes in paleoclimate tables (common practice).
-SENTINELS = (-999.0, -9999.0, -99999.0, 9999.0, 99999.0, -99.99, -999.9)
+SENTINELS = (-999.0, -9999.0, -99999.0, 9999.0, 99999.0, -99.99, -999.9, -99.0, 999.0,
+             -9999.9)
 #: Magnitudes no measured value reaches: those at or beyond it are fill values (1e20 of climate
 #: model output, 9.96921e36 of the netCDF library; common practice) and count as sentinels.
 FILL_MAGNITUDE = 1e20

@@ -109,9 +109,10 @@ def test_a_thousands_dot_with_decimal_commas_is_refused(tmp_path):
     np.testing.assert_allclose(open_record(ok, age_reference="BP", decimal=",").Ca, [5.5, 6.5])
 
 
-@pytest.mark.parametrize("cell", ["1e20", "1e30", "9.96921e36", "-1e+20"])
-def test_a_fill_value_magnitude_is_refused_as_a_missing_value_code(tmp_path, cell):
-    # was read as data: a spike of 1e20 in Ca
+@pytest.mark.parametrize("cell", ["1e20", "1e30", "9.96921e36", "-1e+20", "-99", "999",
+                                  "-9999.9"])
+def test_fill_values_and_other_codes_are_refused_as_missing_value_codes(tmp_path, cell):
+    # each was read as data: a spike of 1e20 (or -99, ...) in Ca
     path = table(tmp_path, f"depth,age,Ca\n1.0,100,5\n1.1,110,{cell}\n1.2,120,6\n1.3,130,5.5\n")
     with pytest.raises(InputError, match=r"'Ca', line 3: 1 cell\(s\) hold .*missing-value code"):
         open_record(path, age_reference="BP")
@@ -279,3 +280,20 @@ def test_a_proxy_named_age_sd_does_not_replace_the_named_uncertainty(tmp_path):
         open_record(path, age_reference="BP", age_sd_column="err")
     record = open_record(path, age_reference="BP", age_sd_column="err", variables=["Ca"])
     np.testing.assert_array_equal(record.age_sd.values, [20.0, 20.0])
+
+
+def test_a_depth_counted_upward_is_refused(tmp_path):
+    # CF positive='up' depths are heights: read as depths, the core was upside down
+    path = _schema_file(tmp_path / "up.nc", depth=(-1.03, -1.02, -1.01, -1.0))
+    with xr.open_dataset(path) as ds:
+        ds = ds.load()
+    ds["depth"].attrs["positive"] = "up"
+    ds.to_netcdf(tmp_path / "up2.nc")
+    with pytest.raises(InputError, match=r"up2\.nc, 'depth': .*positive='up'"):
+        open_record(tmp_path / "up2.nc")
+    xr.Dataset({"Age_BP": ("i", [100.0, 110.0]),
+                "z": ("i", [-1.0, -1.1], {"positive": "up", "units": "m"})}
+               ).to_netcdf(tmp_path / "g.nc")
+    with pytest.raises(InputError, match=r"g\.nc, 'z': .*positive='up'"):
+        open_record(tmp_path / "g.nc", age_column="Age_BP", depth_column="z",
+                    age_reference="BP")
