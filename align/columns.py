@@ -367,6 +367,9 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
             kind, row = locate(i)
             hint = (" (a decimal comma? say decimal=',')"
                     if re.fullmatch(r"-?\d+,\d+", text.iloc[i]) else "")
+            if re.fullmatch(r"-?\d{1,3}(?:,\d{3})+", text.iloc[i]):
+                hint = (" (a decimal comma, or a thousands separator? say decimal=',' for the "
+                        "one, take the separators out for the other)")
             if decimal == "," and "." in text.iloc[i]:
                 hint = " (a thousands separator? with decimal=',' a '.' is no decimal mark)"
             raise InputError(f"not a number: {text.iloc[i]!r}{hint}", source=name, field=col,

@@ -105,6 +105,9 @@ def test_a_thousands_dot_with_decimal_commas_is_refused(tmp_path):
     path = table(tmp_path, "depth;age;Ca\n1,0;11.500;5\n1,1;11.600;6\n")
     with pytest.raises(InputError, match=r"'age', line 2: not a number: '11.500'.*thousands"):
         open_record(path, age_reference="BP", decimal=",")
+    comma = table(tmp_path, 'depth,age,Ca\n1.0,"11,500",5\n1.1,"11,600",6\n', "c.csv")
+    with pytest.raises(InputError, match=r"'11,500' \(a decimal comma, or a thousands "):
+        open_record(comma, age_reference="BP")
     ok = table(tmp_path, "depth;age;Ca\n1,0;11500;5,5\n1,1;11600;6,5\n", "ok.csv")
     np.testing.assert_allclose(open_record(ok, age_reference="BP", decimal=",").Ca, [5.5, 6.5])
 
@@ -119,6 +122,18 @@ def test_fill_values_and_other_codes_are_refused_as_missing_value_codes(tmp_path
     code = float(cell)
     declared = open_record(path, age_reference="BP", missing_values=[code])
     assert np.isnan(declared.Ca.values[1])
+
+
+@pytest.mark.parametrize("encoding", ["utf-16", "utf-16-be"])
+def test_a_utf16_table_with_its_byte_order_mark_is_read(tmp_path, encoding):
+    # was refused as binary (byte 3 is a control character)
+    text = "depth\tage\tδ18O (‰)\n1.0\t100\t-35.1\n1.1\t110\t-34.9\n"
+    raw = text.encode(encoding)
+    path = tmp_path / "u.txt"
+    path.write_bytes(raw if encoding == "utf-16" else b"\xfe\xff" + raw)
+    record = open_record(path, age_reference="BP")
+    np.testing.assert_array_equal(record["δ18O"].values, [-35.1, -34.9])
+    assert record["δ18O"].attrs["units"] == "‰"
 
 
 # ---------------------------------------------------------------------------------- NetCDF
