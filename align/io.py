@@ -72,17 +72,20 @@ def open_record(source, *, age_reference=None, age_column=None, depth_column=Non
         and the record says so.
     age_units : str, optional
         Units of the age and uncertainty columns (``yr``, ``ka``, or with a reference such as
-        ``ka BP``; default: from the header, else yr).
+        ``ka BP``; default: from the header, else yr); an uncertainty column whose header
+        states its own unit (``sd (yr)``) keeps it.
     depth_units : {"m", "cm", "mm"}, optional
-        Units of the depth columns (default: from the header, else m).
+        Units of the depth columns (default: from the header or the name, ``depth_cm``, else
+        m).
     variables : list of str, optional
         Proxy columns to keep (default: every other column).
     units : dict of str to str, optional
         CF units of proxy columns (a ``name [unit]`` or ``name (unit)`` header is read too).
     missing_values : list of float or str, optional
-        Missing-value codes (added to those the file declares: CF ``_FillValue`` and
-        ``missing_value``, a ``Missing_Values`` header line). Undeclared codes such as -999
-        far outside a column's values are refused (:mod:`align.missing`).
+        Missing-value codes (added to those the file declares: CF ``_FillValue``,
+        ``missing_value`` and ``valid_range``, a ``Missing_Values`` header line; the netCDF
+        default fill is missing too). Undeclared codes such as -999 far outside a column's
+        values are refused (:mod:`align.missing`).
     relative_to : float, optional
         The age (``age_reference``) of the event the time column counts from.
     relative_sign : {"after", "before"}, optional
