@@ -347,16 +347,20 @@ def _rescale(ds, names, scale, unit, note):
 
 def _clean_proxies(ds, mapping, name):
     """Declared missing-value codes, values outside a CF valid range and the netCDF default
-    fill to NaN, and undeclared sentinels refused, in place."""
+    fill to NaN, in place; undeclared sentinels refused there and in the depth, age and age
+    uncertainty (an sd of 9999 among tens of years is a code, not a date)."""
     numbers, _ = split_codes(mapping.get("missing_values") or [])
-    for var in proxy_variables(ds):
+    own = [v for v in ("depth", "age", "age_sd", "age_mce") if v in ds.variables]
+    for var in (*proxy_variables(ds), *own):
         variable = ds.variables[var]  # not ds[var], which scans every variable
-        values, notes = mask_missing(variable.values.astype(float), numbers,
-                                     {**variable.attrs, **variable.encoding})
-        if notes:
-            variable.data = values
-        for n, what in notes:
-            add_history(ds, f"{n} {what} in {var!r} read as missing")
+        values = variable.values.astype(float)
+        if var not in own:
+            values, notes = mask_missing(values, numbers,
+                                         {**variable.attrs, **variable.encoding})
+            if notes:
+                variable.data = values
+            for n, what in notes:
+                add_history(ds, f"{n} {what} in {var!r} read as missing")
         find = find_sentinel(values)
         if find is not None:
             raise InputError(f"{find[1]} value(s) hold {find[0]:g}, far outside the other "

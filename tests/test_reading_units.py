@@ -229,6 +229,18 @@ def test_cf_valid_range_of_packed_values_is_in_packed_units(tmp_path):
     assert np.isnan(mg[2])
 
 
+def test_an_undeclared_code_in_a_schema_netcdf_age_sd_is_refused(tmp_path):
+    # sd 9999 among 10 yr was read as an age uncertainty (the proxies alone were checked)
+    import netCDF4
+
+    path = _schema_file(tmp_path / "s.nc")
+    with netCDF4.Dataset(path, "a") as ds:
+        ds.createVariable("age_sd", "f8", ("sample",))[:] = [10.0, 10.0, 9999.0, 10.0]
+        ds["age_sd"].units = "yr"
+    with pytest.raises(InputError, match=r"'age_sd', sample 2: 1 value\(s\) hold 9999"):
+        open_record(path)
+
+
 def test_the_netcdf_default_fill_is_missing(tmp_path):
     # cells never written hold the library's default fill (no _FillValue attribute)
     import netCDF4
