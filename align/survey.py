@@ -68,6 +68,7 @@ def survey_spec(spec):
 def table_pairs(spec, sources):
     """One :class:`PairSpec` per row of the event table."""
     from align.columns import numeric_column
+    from align.missing import find_sentinel
     from align.tables import read_table
 
     table = spec.table
@@ -84,8 +85,14 @@ def table_pairs(spec, sources):
         if missing:
             raise InputError(f"no row labelled {missing[0]!r}", source=str(path),
                              field=table.label_column)
-    ages = numeric_column(frame[table.age_column], table.age_column, str(path),
-                          read.locate) * _header_age_scale(table, path)
+    ages = numeric_column(frame[table.age_column], table.age_column, str(path), read.locate)
+    found = find_sentinel(ages)
+    if found is not None:
+        kind, row = read.locate(found[2])
+        raise InputError(f"an event at {found[0]:g}, far outside the other events: a "
+                         "missing-value code? leave the row out", source=str(path),
+                         field=table.age_column, row=row, row_kind=kind)
+    ages = ages * _header_age_scale(table, path)
     keep = (frame[table.label_column].astype(str).isin(table.rows).to_numpy() if table.rows
             else np.ones(len(frame), dtype=bool))
     blank = keep & ~np.isfinite(ages)

@@ -298,6 +298,10 @@ def test_an_event_table_age_header_unit_is_applied(tmp_path, header, expected):
     if "b2k" in header:
         with pytest.raises(InputError, match=r"'age \[ka b2k\]'.*header says b2k"):
             table_pairs(spec, Sources())
+    spec.table.age_reference = "b2k"
+    table(tmp_path, f"label,{header}\nX1,12.150\nX2,-999\nX3,12.3\n", "events.csv")
+    with pytest.raises(InputError, match=r"events\.csv, .*line 3: an event at -999"):
+        table_pairs(spec, Sources())  # was an event at -999, its windows far off the records
 
 
 def test_a_proxy_named_age_sd_does_not_replace_the_named_uncertainty(tmp_path):
