@@ -45,6 +45,8 @@ _SIGMA = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(?:σ|sigma|sd|s)\s*$", re.IGNORECAS
 #: What each uncertainty column holds, for messages.
 _ROLE_HOLDS = {"age_sd": "an age sd column holds 1-sigma uncertainties",
                "age_mce": "an MCE column holds maximum counting errors (2 sigma)"}
+#: A number with '.' between groups of three digits: thousands, where ',' is the decimal mark.
+_THOUSANDS_DOT = r"[-+]?\d{1,3}(?:\.\d{3})+(?:,\d*)?"
 #: Calendar-year lengths (days) whose whole multiples as a sample interval suggest days.
 _YEAR_DAYS = (365.0, 365.25, 365.2425, 360.0)
 
@@ -348,9 +350,9 @@ def _parse_cells(cells, texts, decimal):
     text = cells.astype(str).str.strip()
     blank = (text == "") | text.isin(list(texts)) | text.str.lower().isin(["nan", "na"])
     parsed = text
-    if decimal == ",":  # a '.' there is a thousands separator (or a mixed-up file)
-        parsed = text.str.replace(",", ".", regex=False).where(~text.str.contains(".",
-                                                                                 regex=False))
+    if decimal == ",":  # '11.500' there holds a thousands separator: refused, not 11.5
+        parsed = text.str.replace(",", ".", regex=False).where(
+            ~text.str.fullmatch(_THOUSANDS_DOT))
     values = pd.to_numeric(parsed.where(~blank), errors="coerce").to_numpy(dtype=float)
     return values, np.isnan(values) & ~blank.to_numpy()
 
@@ -370,7 +372,7 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
             if re.fullmatch(r"-?\d{1,3}(?:,\d{3})+", text.iloc[i]):
                 hint = (" (a decimal comma, or a thousands separator? say decimal=',' for the "
                         "one, take the separators out for the other)")
-            if decimal == "," and "." in text.iloc[i]:
+            if decimal == "," and re.fullmatch(_THOUSANDS_DOT, text.iloc[i]):
                 hint = " (a thousands separator? with decimal=',' a '.' is no decimal mark)"
             raise InputError(f"not a number: {text.iloc[i]!r}{hint}", source=name, field=col,
                              row=row, row_kind=kind)

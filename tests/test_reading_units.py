@@ -108,8 +108,10 @@ def test_a_thousands_dot_with_decimal_commas_is_refused(tmp_path):
     comma = table(tmp_path, 'depth,age,Ca\n1.0,"11,500",5\n1.1,"11,600",6\n', "c.csv")
     with pytest.raises(InputError, match=r"'11,500' \(a decimal comma, or a thousands "):
         open_record(comma, age_reference="BP")
-    ok = table(tmp_path, "depth;age;Ca\n1,0;11500;5,5\n1,1;11600;6,5\n", "ok.csv")
-    np.testing.assert_allclose(open_record(ok, age_reference="BP", decimal=",").Ca, [5.5, 6.5])
+    ok = table(tmp_path, "depth;age;Ca\n1,0;11500;5,5\n1.1;11600;6,5\n", "ok.csv")
+    read = open_record(ok, age_reference="BP", decimal=",")  # '1.1' is no thousands: kept
+    np.testing.assert_allclose(read.Ca, [5.5, 6.5])
+    np.testing.assert_allclose(read.depth, [1.0, 1.1])
 
 
 @pytest.mark.parametrize("cell", ["1e20", "1e30", "9.96921e36", "-1e+20", "-99", "999",
