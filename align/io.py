@@ -308,21 +308,21 @@ def _schema_units(ds, name):
     yr in place (with a history line); an unknown unit is refused."""
     if "depth" in ds.coords:
         check_depth_direction(ds["depth"].attrs, "depth", name)
-        unit = str(ds["depth"].attrs.get("units", "m")).strip()
+        unit = str(ds["depth"].attrs.get("units") or "m").strip() or "m"
         if unit.lower() not in _DEPTH_UNITS:
             raise InputError(f"unknown depth unit {unit!r}; use one of "
                              f"{', '.join(DEPTH_SCALE)}", source=name, field="depth")
         _rescale(ds, ("depth", "depth_bounds"), _DEPTH_UNITS[unit.lower()], "m",
                  f"depths converted from {unit} to m")
     if "age" in ds.coords:
-        unit = str(ds["age"].attrs.get("units", "yr"))
+        unit = str(ds["age"].attrs.get("units") or "yr").strip() or "yr"
         stated = _age_units(unit, "age", name)
         reference = ds["age"].attrs.get("age_reference")
         if stated.reference is not None and reference not in (None, stated.reference):
             raise InputError(f"the age units say {stated.reference}, age_reference says "
                              f"{reference}", source=name, field="age")
         for var in _AGE_SCHEMA:
-            own = ds[var].attrs.get("units") if var in ds else None
+            own = str(ds[var].attrs.get("units") or "").strip() if var in ds else ""
             scale = _age_units(own, var, name).scale if own else stated.scale
             _rescale(ds, (var,), scale or 1.0, "yr", f"{var} converted from ka to yr")
 

@@ -185,6 +185,15 @@ def test_schema_netcdf_age_in_ka_is_converted(tmp_path):
     np.testing.assert_allclose(record.age_bounds.values[0], [95e3, 105e3])
 
 
+@pytest.mark.parametrize("units", ["", " ", "metres"])
+def test_schema_netcdf_blank_or_spelled_out_units_read_as_before(tmp_path, units):
+    path = _schema_file(tmp_path / "b.nc", depth_units=units, age_units=units.replace(
+        "metres", "years"))
+    record = open_record(path)
+    np.testing.assert_allclose(record.depth.values, [1.0, 1.01, 1.02, 1.03])
+    np.testing.assert_allclose(record.age.values, [100.0, 110.0, 120.0, 130.0])
+
+
 def test_schema_netcdf_unknown_depth_unit_is_refused(tmp_path):
     path = _schema_file(tmp_path / "f.nc", depth_units="ft")
     with pytest.raises(InputError, match=r"'depth'.*unknown depth unit 'ft'"):
