@@ -27,6 +27,11 @@ from align.record import TIMESCALE_VARIABLES, add_history, build_record, record_
 #: Metres per depth unit.
 DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
 _DEPTH_UNIT = {scale: unit for unit, scale in DEPTH_SCALE.items()}
+#: Depth units spelled out (CF files, headers).
+_DEPTH_SPELLED = {"metre": 1.0, "metres": 1.0, "meter": 1.0, "meters": 1.0,
+                  "centimetre": 0.01, "centimetres": 0.01, "centimeter": 0.01,
+                  "centimeters": 0.01, "millimetre": 0.001, "millimetres": 0.001,
+                  "millimeter": 0.001, "millimeters": 0.001}
 #: A depth unit closing a column name (``depth_cm``, ``Depth mm``).
 _DEPTH_NAME = re.compile(r"^depth[\W_]+(m|cm|mm)$", re.IGNORECASE)
 _HEADER = re.compile(r"^\s*(?P<name>[^(\[]*[^(\[\s])\s*(?:\[(?P<bracket>[^\]]*)\])?\s*"
@@ -417,6 +422,16 @@ def check_depth_direction(attrs, field, name):
                          "the top of the core", source=name, field=field)
 
 
+def depth_scale(unit, field, name):
+    """Metres per unit of a depth unit as written (``cm``, ``metres``); refuse an unknown one."""
+    scale = DEPTH_SCALE.get(str(unit).strip().lower(), _DEPTH_SPELLED.get(
+        str(unit).strip().lower()))
+    if scale is None:
+        raise InputError(f"unknown depth unit {unit!r}; use one of {', '.join(DEPTH_SCALE)}",
+                         source=name, field=field)
+    return scale
+
+
 def _depth_scale(roles, columns, mapping, name):
     """Metres per stored depth unit, from the option, the depth columns' header units and the
     depth column's name (``depth_cm``); two statements that differ are refused."""
@@ -428,23 +443,19 @@ def _depth_scale(roles, columns, mapping, name):
             hint = _DEPTH_NAME.search(columns[col].name) if role == "depth" else None
             for unit in (columns[col].unit, hint and hint[1]):
                 if unit is not None:
-                    said.setdefault(str(unit).strip().lower(), columns[col].header)
-    for unit, field in said.items():
-        if unit not in DEPTH_SCALE:
-            raise InputError(f"unknown depth unit {unit!r}; use one of "
-                             f"{', '.join(DEPTH_SCALE)}", source=name, field=field)
+                    said.setdefault(depth_scale(unit, columns[col].header, name),
+                                    (unit, columns[col].header))
     given = mapping.get("depth_units")
-    if given is not None and str(given).strip().lower() not in DEPTH_SCALE:
-        raise InputError(f"unknown depth unit {given!r}; use one of {', '.join(DEPTH_SCALE)}",
+    scale = None if given is None else depth_scale(given, "depth_units", name)
+    if len(said) > 1:
+        units, fields = zip(*said.values())
+        raise InputError(f"the depth columns say {' and '.join(units)}; give them in one unit",
+                         source=name, field=fields[1])
+    if scale is not None and said and scale not in said:
+        raise InputError(f"the file says depths are in {next(iter(said.values()))[0]}, "
+                         f"depth_units= says {given}; convert instead of relabelling",
                          source=name, field="depth_units")
-    stated = list(said)
-    if len(stated) > 1:
-        raise InputError(f"the depth columns say {' and '.join(stated)}; give them in one unit",
-                         source=name, field=said[stated[1]])
-    if given is not None and stated and given.strip().lower() != stated[0]:
-        raise InputError(f"the file says depths are in {stated[0]}, depth_units= says {given}; "
-                         "convert instead of relabelling", source=name, field="depth_units")
-    return DEPTH_SCALE[str(given or (stated or ["m"])[0]).strip().lower()]
+    return scale or next(iter(said), 1.0)
 
 
 def _top_down(numeric, roles, n):

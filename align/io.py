@@ -19,7 +19,7 @@ import pandas as pd
 import xarray as xr
 
 from align.ages import parse_age_units
-from align.columns import DEPTH_SCALE, check_depth_direction, frame_to_record, safe_name
+from align.columns import check_depth_direction, depth_scale, frame_to_record, safe_name
 from align.errors import InputError, NotATableError
 from align.missing import find_sentinel, mask_missing, split_codes
 from align.provenance import sha256_bytes, sha256_file
@@ -298,8 +298,6 @@ def _in_schema(ds):
     return str(ds["age"].attrs.get("units", "yr")).strip().lower() in ("yr", "years", "a")
 
 
-#: Metres per depth unit, with the spellings of CF files.
-_DEPTH_UNITS = {**DEPTH_SCALE, "metre": 1.0, "metres": 1.0, "meter": 1.0, "meters": 1.0}
 _AGE_SCHEMA = ("age", "age_bounds", "age_sd", "age_mce", "age_ensemble")
 
 
@@ -309,10 +307,7 @@ def _schema_units(ds, name):
     if "depth" in ds.coords:
         check_depth_direction(ds["depth"].attrs, "depth", name)
         unit = str(ds["depth"].attrs.get("units") or "m").strip() or "m"
-        if unit.lower() not in _DEPTH_UNITS:
-            raise InputError(f"unknown depth unit {unit!r}; use one of "
-                             f"{', '.join(DEPTH_SCALE)}", source=name, field="depth")
-        _rescale(ds, ("depth", "depth_bounds"), _DEPTH_UNITS[unit.lower()], "m",
+        _rescale(ds, ("depth", "depth_bounds"), depth_scale(unit, "depth", name), "m",
                  f"depths converted from {unit} to m")
     if "age" in ds.coords:
         unit = str(ds["age"].attrs.get("units") or "yr").strip() or "yr"

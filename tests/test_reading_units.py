@@ -69,6 +69,12 @@ def test_a_depth_unit_in_the_column_name_is_applied(tmp_path, column, expected):
         "history"]
 
 
+def test_a_depth_unit_spelled_out_agrees_with_its_symbol(tmp_path):
+    path = table(tmp_path, "depth (centimetres),age,Ca\n100,100,5\n101,110,6\n")
+    record = open_record(path, age_reference="BP", depth_units="cm")
+    np.testing.assert_allclose(record.depth.values, [1.0, 1.01])
+
+
 def test_a_depth_name_unit_that_contradicts_the_option_is_refused(tmp_path):
     path = table(tmp_path, "depth_m,age,Ca\n1.0,100,5\n1.1,110,6\n")
     with pytest.raises(InputError, match=r"depth_units"):
