@@ -143,7 +143,9 @@ def _unpacked(limit, attrs):
 
 def mask_default_fill(values, encoding):
     """``values`` equal to the netCDF library's default fill of the stored type (what cells
-    never written hold) set to NaN when the file declares no ``_FillValue``, and how many."""
+    never written hold) set to NaN when the file declares no ``_FillValue``, and how many.
+    Packed values are compared with the fill unpacked as they were (``scale_factor``,
+    ``add_offset``)."""
     dtype = encoding.get("dtype")
     if dtype is None or "_FillValue" in encoding or "missing_value" in encoding:
         return values, 0
@@ -152,7 +154,11 @@ def mask_default_fill(values, encoding):
     fill = netCDF4.default_fillvals.get(np.dtype(dtype).str[1:])
     if fill is None or isinstance(fill, str):
         return values, 0
-    return _set_missing(values, values == float(np.asarray(fill, dtype=dtype)))
+    stored = np.asarray(fill, dtype=dtype)
+    if "scale_factor" in encoding or "add_offset" in encoding:
+        stored = stored * np.asarray(encoding.get("scale_factor", 1)) + np.asarray(
+            encoding.get("add_offset", 0))
+    return _set_missing(values, values == float(stored))
 
 
 def _set_missing(values, where):

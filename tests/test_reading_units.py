@@ -345,3 +345,18 @@ def test_a_depth_counted_upward_is_refused(tmp_path):
     with pytest.raises(InputError, match=r"g\.nc, 'z': .*positive='up'"):
         open_record(tmp_path / "g.nc", age_column="Age_BP", depth_column="z",
                     age_reference="BP")
+
+
+def test_the_netcdf_default_fill_of_packed_values_is_missing(tmp_path):
+    # an int16 never written holds -32767; unpacked by 0.1 it read as -3276.7
+    import netCDF4
+
+    path = _schema_file(tmp_path / "pk.nc")
+    with netCDF4.Dataset(path, "a") as ds:
+        var = ds.createVariable("Mg", "i2", ("sample",), fill_value=False)
+        var.set_auto_maskandscale(False)
+        var.setncatts({"coordinates": "age depth", "scale_factor": 0.1})
+        var[:] = np.array([50, 60, netCDF4.default_fillvals["i2"], 70], dtype="i2")
+    mg = open_record(path).Mg.values
+    np.testing.assert_allclose(mg[[0, 1, 3]], [5.0, 6.0, 7.0])
+    assert np.isnan(mg[2])
