@@ -374,6 +374,10 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
             kind, row = locate(i)
             hint = (" (a decimal comma? say decimal=',')"
                     if re.fullmatch(r"-?\d+,\d+", text.iloc[i]) else "")
+            if not re.search(r"\d", text.iloc[i]):
+                hint = (" (a units row under the header? give units in the header, e.g. "
+                        "'depth (m)')" if i == 0 else " (a missing-value code? declare it "
+                        f"with missing_values=[{text.iloc[i]}])")
             if re.fullmatch(r"-?\d{1,3}(?:,\d{3})+", text.iloc[i]):
                 hint = (" (a decimal comma, or a thousands separator? say decimal=',' for the "
                         "one, take the separators out for the other)")

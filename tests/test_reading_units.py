@@ -144,6 +144,16 @@ def test_a_utf16_table_with_its_byte_order_mark_is_read(tmp_path, encoding):
     assert record["δ18O"].attrs["units"] == "‰"
 
 
+def test_text_cells_say_what_they_may_be(tmp_path):
+    units = table(tmp_path, "depth,age,Ca\nm,yr BP,ng/g\n1.0,100,5\n1.1,110,6\n", "u.csv")
+    with pytest.raises(InputError, match=r"'depth', line 2: not a number: 'm' \(a units row"):
+        open_record(units, age_reference="BP")
+    code = table(tmp_path, "depth,age,Ca\n1.0,100,5\n1.1,110,n/a\n1.2,120,6\n", "n.csv")
+    with pytest.raises(InputError, match=r"declare it with missing_values=\[n/a\]"):
+        open_record(code, age_reference="BP")
+    assert np.isnan(open_record(code, age_reference="BP", missing_values=["n/a"]).Ca[1])
+
+
 # ---------------------------------------------------------------------------------- NetCDF
 
 def _schema_file(path, *, ca=(5.0, 6.0, 7.0, 6.5), ca_attrs=None, age_units="yr",
