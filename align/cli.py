@@ -208,7 +208,8 @@ def _mapping_options(parser):
                        help="units of the age columns, e.g. yr, ka, 'cal ka BP' (default: "
                             "from the header, else yr)")
     group.add_argument("--depth-units", choices=C.options(C.DepthUnits),
-                       help="units of the depth columns (default: from the header, else m)")
+                       help="units of the depth columns (default: from the header or the "
+                            "column name, e.g. depth_cm, else m)")
     group.add_argument("--missing-value", "--missing-values", dest="missing_values",
                        metavar="CODE", action="append", help="a missing-value code (repeatable)")
     group.add_argument("--sheet", metavar="NAME", help="sheet of an .xlsx workbook")

@@ -21,10 +21,19 @@ from align.ages import (FORWARD_REFERENCES, AgeUnits, age_units_from_name, canon
                         from_bp, parse_age_units, to_bp)
 from align.cfdecode import cf_time_to_bp, is_cf_time
 from align.errors import InputError
-from align.missing import find_sentinel, mask_codes, split_codes
-from align.record import add_history, build_record, record_reference
+from align.missing import find_sentinel, mask_missing, split_codes
+from align.record import TIMESCALE_VARIABLES, add_history, build_record, record_reference
 
-_DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
+#: Metres per depth unit.
+DEPTH_SCALE = {"m": 1.0, "cm": 0.01, "mm": 0.001}
+_DEPTH_UNIT = {scale: unit for unit, scale in DEPTH_SCALE.items()}
+#: Depth units spelled out (CF files, headers).
+_DEPTH_SPELLED = {"metre": 1.0, "metres": 1.0, "meter": 1.0, "meters": 1.0,
+                  "centimetre": 0.01, "centimetres": 0.01, "centimeter": 0.01,
+                  "centimeters": 0.01, "millimetre": 0.001, "millimetres": 0.001,
+                  "millimeter": 0.001, "millimeters": 0.001}
+#: A depth unit closing a column name (``depth_cm``, ``Depth mm``).
+_DEPTH_NAME = re.compile(r"^depth[\W_]+(m|cm|mm)$", re.IGNORECASE)
 _HEADER = re.compile(r"^\s*(?P<name>[^(\[]*[^(\[\s])\s*(?:\[(?P<bracket>[^\]]*)\])?\s*"
                      r"(?:\((?P<paren>[^)]*)\))?\s*$")
 #: Column names found without being told (lower case).
@@ -36,6 +45,13 @@ OPTION_OF_ROLE = {role: {"age_sd": "age_sd_column", "age_mce": "mce_column"}.get
     role, f"{role}_column") for role in AUTO}
 #: The youngest plausible age, per record reference: AD 2100 (a stated choice).
 FAR_FUTURE = {"b2k": -100.0, "BP": -150.0}
+#: A sigma level stated in a header (``2σ``, ``1 sigma``, ``2 sd``).
+_SIGMA = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(?:σ|sigma|sd|s)\s*$", re.IGNORECASE)
+#: What each uncertainty column holds, for messages.
+_ROLE_HOLDS = {"age_sd": "an age sd column holds 1-sigma uncertainties",
+               "age_mce": "an MCE column holds maximum counting errors (2 sigma)"}
+#: A number with '.' between groups of three digits: thousands, where ',' is the decimal mark.
+_THOUSANDS_DOT = r"[-+]?\d{1,3}(?:\.\d{3})+(?:,\d*)?"
 #: Calendar-year lengths (days) whose whole multiples as a sample interval suggest days.
 _YEAR_DAYS = (365.0, 365.25, 365.2425, 360.0)
 
@@ -102,14 +118,13 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
     wanted = [*roles.values(), *proxies]
     parsed = numeric_columns(frame, wanted, name, locate, texts, mapping.get("decimal"))
     for col in wanted:
-        values, count = mask_codes(parsed[col], numbers)
-        if count:
-            notes.append(f"{count} missing-value code(s) in {columns[col].header!r} read as "
-                         "missing")
-            if np.isnan(values).all():
-                raise InputError("the missing-value code(s) leave this column without any "
-                                 "value", source=name, field=columns[col].header)
-        _refuse_sentinel(values, columns[col].header, name, locate)
+        values, masked = mask_missing(parsed[col], numbers, columns[col].attrs)
+        notes.extend(f"{n} {what} in {columns[col].header!r} read as missing"
+                     for n, what in masked)
+        if masked and np.isnan(values).all():
+            raise InputError("the missing-value code(s) leave this column without any "
+                             "value", source=name, field=columns[col].header)
+        refuse_sentinel(values, columns[col].header, name, locate)
         numeric[col] = values
     _refuse_missing_roles(numeric, roles, locate, name)
     depth_scale = _depth_scale(roles, columns, mapping, name)
@@ -121,10 +136,17 @@ def frame_to_record(frame, mapping, meta, *, name, checksum, locate, attrs_of=No
             numeric[roles[role]] = ages.convert(numeric[roles[role]])
     for role in ("age_sd", "age_mce"):
         if role in roles:
-            numeric[roles[role]] = numeric[roles[role]] * ages.sd_scale
+            scale = ages.uncertainty_scale(columns[roles[role]], role, mapping)
+            numeric[roles[role]] = numeric[roles[role]] * scale
     for role in ("depth", "depth_top", "depth_bottom"):
         if role in roles:
             numeric[roles[role]] = numeric[roles[role]] * depth_scale
+    if depth_scale != 1.0:
+        notes.append(f"depths converted from {_DEPTH_UNIT[depth_scale]} to m")
+    if "depth" not in roles and "depth_top" in roles and "depth_bottom" in roles:
+        roles["depth"] = "depth"
+        numeric["depth"] = (numeric[roles["depth_top"]] + numeric[roles["depth_bottom"]]) / 2
+        notes.append("depth mid-points half-way between depth_top and depth_bottom")
     order, numeric, reversed_note = _top_down(numeric, roles, frame.shape[0])
     locate_sorted = (lambda i: locate(order[i])) if order is not None else locate
     if "age" in roles:
@@ -208,9 +230,8 @@ def available(columns):
 
 def assign_roles(columns, mapping, name):
     """Which column plays which role (depth, age, uncertainty, bounds)."""
-    lower = {key.lower(): key for key in columns}
     roles = {}
-    for role, candidates in AUTO.items():
+    for role in AUTO:
         option = OPTION_OF_ROLE[role]
         given = mapping.get(option)
         if given is not None:
@@ -220,7 +241,7 @@ def assign_roles(columns, mapping, name):
                                  f"{available(columns)})", source=name, field=option)
             roles[role] = found
         else:
-            found = next((lower[c] for c in candidates if c in lower), None)
+            found = _exact_match(columns, role, name)
             if found is None and role in _LOOSE:
                 found = _loose_match(columns, role)
             if found is not None:
@@ -234,6 +255,21 @@ def assign_roles(columns, mapping, name):
                 raise InputError("an age uncertainty or age bounds without an age column",
                                  source=name, field=columns[roles[role]].header)
     return roles
+
+
+def _exact_match(columns, role, name):
+    """The column named as ``role`` is found without being told (any case); two such columns
+    (``Depth`` and ``depth``) are refused."""
+    found = [key for key in columns if key.lower() in AUTO[role]]
+    for candidate in AUTO[role]:
+        same = [key for key in found if key.lower() == candidate]
+        if len(same) > 1:
+            raise InputError(f"columns {columns[same[0]].header!r} and {columns[same[1]].header!r}"
+                             f" both look like the {role.replace('_', ' ')}; name one with "
+                             f"{OPTION_OF_ROLE[role]}=", source=name, field=columns[same[1]].header)
+        if same:
+            return same[0]
+    return None
 
 
 #: Name patterns of depth and age columns found when exactly one column matches
@@ -257,6 +293,10 @@ def _is_time(column):
             or str(attrs.get("axis", "")).upper() == "T")
 
 
+#: Names a record keeps for its own variables (a proxy named so would be taken for them).
+_SCHEMA_NAMES = {"depth", "age", *TIMESCALE_VARIABLES}
+
+
 def _proxy_columns(columns, roles, mapping, name):
     taken = set(roles.values())
     wanted = mapping.get("variables")
@@ -268,8 +308,15 @@ def _proxy_columns(columns, roles, mapping, name):
                 raise InputError(f"no column {given!r} for variables= (available: "
                                  f"{available(columns)})", source=name, field="variables")
             keys.append(key)
-        return [k for k in keys if k not in taken]
-    return [c for c in columns if c not in taken]
+        proxies = [k for k in keys if k not in taken]
+    else:
+        proxies = [c for c in columns if c not in taken]
+    for key in proxies:
+        if key in _SCHEMA_NAMES:
+            raise InputError(f"a column named {key!r} that is not the record's own {key} cannot "
+                             "be kept as a variable; leave it out with variables=",
+                             source=name, field=columns[key].header)
+    return proxies
 
 
 def numeric_columns(frame, cols, name, locate, texts=(), decimal=None):
@@ -307,7 +354,10 @@ def _parse_cells(cells, texts, decimal):
     where a cell is neither a number nor blank."""
     text = cells.astype(str).str.strip()
     blank = (text == "") | text.isin(list(texts)) | text.str.lower().isin(["nan", "na"])
-    parsed = text.str.replace(",", ".", regex=False) if decimal == "," else text
+    parsed = text
+    if decimal == ",":  # '11.500' there holds a thousands separator: refused, not 11.5
+        parsed = text.str.replace(",", ".", regex=False).where(
+            ~text.str.fullmatch(_THOUSANDS_DOT))
     values = pd.to_numeric(parsed.where(~blank), errors="coerce").to_numpy(dtype=float)
     return values, np.isnan(values) & ~blank.to_numpy()
 
@@ -324,6 +374,15 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
             kind, row = locate(i)
             hint = (" (a decimal comma? say decimal=',')"
                     if re.fullmatch(r"-?\d+,\d+", text.iloc[i]) else "")
+            if not re.search(r"\d", text.iloc[i]):
+                hint = (" (a units row under the header? give units in the header, e.g. "
+                        "'depth (m)')" if i == 0 else " (a missing-value code? declare it "
+                        f"with missing_values=[{text.iloc[i]}])")
+            if re.fullmatch(r"-?\d{1,3}(?:,\d{3})+", text.iloc[i]):
+                hint = (" (a decimal comma, or a thousands separator? say decimal=',' for the "
+                        "one, take the separators out for the other)")
+            if decimal == "," and re.fullmatch(_THOUSANDS_DOT, text.iloc[i]):
+                hint = " (a thousands separator? with decimal=',' a '.' is no decimal mark)"
             raise InputError(f"not a number: {text.iloc[i]!r}{hint}", source=name, field=col,
                              row=row, row_kind=kind)
     inf = np.isinf(values)
@@ -333,7 +392,9 @@ def numeric_column(series, col, name, locate, texts=(), decimal=None):
     return values
 
 
-def _refuse_sentinel(values, header, name, locate):
+def refuse_sentinel(values, header, name, locate):
+    """Refuse an undeclared missing-value code in a column (:func:`align.missing.find_sentinel`),
+    naming the column, the code, its count and its first row."""
     found = find_sentinel(values)
     if found is None:
         return
@@ -358,18 +419,47 @@ def _refuse_missing_roles(numeric, roles, locate, name):
                                  field=col, row=row, row_kind=kind)
 
 
+def check_depth_direction(attrs, field, name):
+    """Refuse a depth that CF attributes say counts upward (``positive = "up"``: heights)."""
+    if str(attrs.get("positive", "down")).strip().lower() == "up":
+        raise InputError("the depth counts upward (positive='up', a height); give depth below "
+                         "the top of the core", source=name, field=field)
+
+
+def depth_scale(unit, field, name):
+    """Metres per unit of a depth unit as written (``cm``, ``metres``); refuse an unknown one."""
+    scale = DEPTH_SCALE.get(str(unit).strip().lower(), _DEPTH_SPELLED.get(
+        str(unit).strip().lower()))
+    if scale is None:
+        raise InputError(f"unknown depth unit {unit!r}; use one of {', '.join(DEPTH_SCALE)}",
+                         source=name, field=field)
+    return scale
+
+
 def _depth_scale(roles, columns, mapping, name):
-    col = roles.get("depth")
-    stated = columns[col].unit if col is not None else None
+    """Metres per stored depth unit, from the option, the depth columns' header units and the
+    depth column's name (``depth_cm``); two statements that differ are refused."""
+    said = {}
+    for role in ("depth", "depth_top", "depth_bottom"):
+        col = roles.get(role)
+        if col is not None:
+            check_depth_direction(columns[col].attrs, columns[col].header, name)
+            hint = _DEPTH_NAME.search(columns[col].name) if role == "depth" else None
+            for unit in (columns[col].unit, hint and hint[1]):
+                if unit is not None:
+                    said.setdefault(depth_scale(unit, columns[col].header, name),
+                                    (unit, columns[col].header))
     given = mapping.get("depth_units")
-    for unit, option in ((given, "depth_units"), (stated, col)):
-        if unit is not None and str(unit).strip().lower() not in _DEPTH_SCALE:
-            raise InputError(f"unknown depth unit {unit!r}; use one of "
-                             f"{', '.join(_DEPTH_SCALE)}", source=name, field=option)
-    if given is not None and stated is not None and given.lower() != stated.strip().lower():
-        raise InputError(f"the file says depths are in {stated}, depth_units= says {given}; "
-                         "convert instead of relabelling", source=name, field="depth_units")
-    return _DEPTH_SCALE[str(given or stated or "m").strip().lower()]
+    scale = None if given is None else depth_scale(given, "depth_units", name)
+    if len(said) > 1:
+        units, fields = zip(*said.values())
+        raise InputError(f"the depth columns say {' and '.join(units)}; give them in one unit",
+                         source=name, field=fields[1])
+    if scale is not None and said and scale not in said:
+        raise InputError(f"the file says depths are in {next(iter(said.values()))[0]}, "
+                         f"depth_units= says {given}; convert instead of relabelling",
+                         source=name, field="depth_units")
+    return scale or next(iter(said), 1.0)
 
 
 def _top_down(numeric, roles, n):
@@ -399,7 +489,8 @@ class AgeReading:
         The record's reference.
     kind : {"linear", "calendar", "cf", "relative"}
     scale : float
-        Years per stored unit (also applied to ``age_sd``/``age_mce``: ``sd_scale``).
+        Years per stored unit (also applied to ``age_sd``/``age_mce`` without a unit of their
+        own: :meth:`uncertainty_scale`).
     source_reference : str
         What the stored numbers count from (``CE``, ``BCE``, ``astronomical``, CF units, ...).
     """
@@ -417,9 +508,28 @@ class AgeReading:
     column: str | None = None
     notes: list = _field(default_factory=list)
 
-    @property
-    def sd_scale(self):
-        return self.scale
+    def uncertainty_scale(self, column, role, mapping):
+        """Years per stored unit of an age sd or MCE column: its own header unit when it
+        states one (``sd (yr)`` beside ``Age [ka BP]``), else the age's; a sigma level the
+        role does not hold (``sd (2σ)``) is refused."""
+        held = 1.0 if role == "age_sd" else 2.0
+        unit = None
+        for text in (column.unit, column.comment):
+            level = _SIGMA.match(text or "")
+            if level is not None and float(level[1]) != held:
+                raise InputError(f"the header states {float(level[1]):g}-sigma values; "
+                                 f"{_ROLE_HOLDS[role]}: convert them first", source=self.source,
+                                 field=column.header)
+            if level is None and text is column.unit:
+                unit = text
+        if unit is None:
+            return self.scale
+        try:
+            scale = parse_age_units(unit, field=column.header).scale
+        except InputError as exc:
+            raise exc.located(source=self.source) from None
+        said = {"option": _given_units(mapping), "header": AgeUnits(scale)}
+        return _agree(said, "scale", self.source, column.header) or self.scale
 
     @classmethod
     def resolve(cls, roles, columns, mapping, name):

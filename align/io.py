@@ -18,9 +18,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from align.columns import frame_to_record, safe_name
+from align.ages import parse_age_units
+from align.columns import check_depth_direction, depth_scale, frame_to_record, safe_name
 from align.errors import InputError, NotATableError
-from align.missing import find_sentinel, mask_codes, split_codes
+from align.missing import find_sentinel, mask_missing, split_codes
 from align.provenance import sha256_bytes, sha256_file
 from align.record import SAMPLE, TIMESCALE_VARIABLES, add_history, proxy_variables, validate_record
 from align.tables import read_table
@@ -71,17 +72,20 @@ def open_record(source, *, age_reference=None, age_column=None, depth_column=Non
         and the record says so.
     age_units : str, optional
         Units of the age and uncertainty columns (``yr``, ``ka``, or with a reference such as
-        ``ka BP``; default: from the header, else yr).
+        ``ka BP``; default: from the header, else yr); an uncertainty column whose header
+        states its own unit (``sd (yr)``) keeps it.
     depth_units : {"m", "cm", "mm"}, optional
-        Units of the depth columns (default: from the header, else m).
+        Units of the depth columns (default: from the header or the name, ``depth_cm``, else
+        m).
     variables : list of str, optional
         Proxy columns to keep (default: every other column).
     units : dict of str to str, optional
         CF units of proxy columns (a ``name [unit]`` or ``name (unit)`` header is read too).
     missing_values : list of float or str, optional
-        Missing-value codes (added to those the file declares: CF ``_FillValue`` and
-        ``missing_value``, a ``Missing_Values`` header line). Undeclared codes such as -999
-        far outside a column's values are refused (:mod:`align.missing`).
+        Missing-value codes (added to those the file declares: CF ``_FillValue``,
+        ``missing_value`` and ``valid_range``, a ``Missing_Values`` header line; the netCDF
+        default fill is missing too). Undeclared codes such as -999 far outside a column's
+        values are refused (:mod:`align.missing`).
     relative_to : float, optional
         The age (``age_reference``) of the event the time column counts from.
     relative_sign : {"after", "before"}, optional
@@ -230,6 +234,7 @@ def _read_netcdf(path, mapping, meta):
     ds = _grid_as_samples(ds)
     if SAMPLE in ds.dims and _in_schema(ds):
         ds = _fill_netcdf_reference(ds, mapping, path)
+        _schema_units(ds, str(path))
         _clean_proxies(ds, mapping, str(path))
         ds.attrs.update(meta, source=str(path), source_checksum=checksum)
         return validate_record(ds, source=str(path))
@@ -293,15 +298,64 @@ def _in_schema(ds):
     return str(ds["age"].attrs.get("units", "yr")).strip().lower() in ("yr", "years", "a")
 
 
+_AGE_SCHEMA = ("age", "age_bounds", "age_sd", "age_mce", "age_ensemble")
+
+
+def _schema_units(ds, name):
+    """Depths in cm or mm and ages in ka, as a schema file's ``units`` say, converted to m and
+    yr in place (with a history line); an unknown unit is refused."""
+    if "depth" in ds.coords:
+        check_depth_direction(ds["depth"].attrs, "depth", name)
+        unit = str(ds["depth"].attrs.get("units") or "m").strip() or "m"
+        _rescale(ds, ("depth", "depth_bounds"), depth_scale(unit, "depth", name), "m",
+                 f"depths converted from {unit} to m")
+    if "age" in ds.coords:
+        unit = str(ds["age"].attrs.get("units") or "yr").strip() or "yr"
+        stated = _age_units(unit, "age", name)
+        reference = ds["age"].attrs.get("age_reference")
+        if stated.reference is not None and reference not in (None, stated.reference):
+            raise InputError(f"the age units say {stated.reference}, age_reference says "
+                             f"{reference}", source=name, field="age")
+        for var in _AGE_SCHEMA:
+            own = str(ds[var].attrs.get("units") or "").strip() if var in ds else ""
+            scale = _age_units(own, var, name).scale if own else stated.scale
+            _rescale(ds, (var,), scale or 1.0, "yr", f"{var} converted from ka to yr")
+
+
+def _age_units(text, var, name):
+    try:
+        return parse_age_units(text, field=var)
+    except InputError as exc:
+        raise exc.located(source=name) from None
+
+
+def _rescale(ds, names, scale, unit, note):
+    if scale == 1.0:
+        return
+    for var in names:
+        if var in ds.variables:
+            ds[var] = ds[var].copy(data=ds[var].values * scale)
+            if "units" in ds[var].attrs:
+                ds[var].attrs["units"] = unit
+    add_history(ds, note)
+
+
 def _clean_proxies(ds, mapping, name):
-    """Declared missing-value codes to NaN and undeclared sentinels refused, in place."""
+    """Declared missing-value codes, values outside a CF valid range and the netCDF default
+    fill to NaN, in place; undeclared sentinels refused there and in the depth, age and age
+    uncertainty (an sd of 9999 among tens of years is a code, not a date)."""
     numbers, _ = split_codes(mapping.get("missing_values") or [])
-    for var in proxy_variables(ds):
+    own = [v for v in ("depth", "age", "age_sd", "age_mce") if v in ds.variables]
+    for var in (*proxy_variables(ds), *own):
         variable = ds.variables[var]  # not ds[var], which scans every variable
-        values, count = mask_codes(variable.values.astype(float), numbers)
-        if count:
-            variable.data = values
-            add_history(ds, f"{count} missing-value code(s) in {var!r} read as missing")
+        values = variable.values.astype(float)
+        if var not in own:
+            values, notes = mask_missing(values, numbers,
+                                         {**variable.attrs, **variable.encoding})
+            if notes:
+                variable.data = values
+            for n, what in notes:
+                add_history(ds, f"{n} {what} in {var!r} read as missing")
         find = find_sentinel(values)
         if find is not None:
             raise InputError(f"{find[1]} value(s) hold {find[0]:g}, far outside the other "

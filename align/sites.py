@@ -16,6 +16,7 @@ import numpy as np
 
 from align.choices import RecordReference, options
 from align.errors import InputError
+from align.missing import find_sentinel
 from align.schema import SynchronyRequest
 
 #: Columns a CSV site table may have (``label`` and ``age`` are required).
@@ -147,6 +148,11 @@ def check_draws(values, label, k, *, source=None):
         raise InputError(f"site {label!r}: draw {bad[0] + 1} is not an age (not a number, or "
                          f"beyond {MAX_AGE:g} yr)", source=source, field=field,
                          row=int(bad[0]) + 1)
+    found = find_sentinel(values)
+    if found is not None:
+        raise InputError(f"site {label!r}: {found[1]} draw(s) hold {found[0]:g}, far outside "
+                         "the other draws: a missing-value code? remove them", source=source,
+                         field=field, row=found[2] + 1)
     if values.size < 2 or np.ptp(values) == 0:
         raise InputError(f"site {label!r}: the draws have no spread (need at least two "
                          "different values)", source=source, field=field)

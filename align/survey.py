@@ -68,6 +68,7 @@ def survey_spec(spec):
 def table_pairs(spec, sources):
     """One :class:`PairSpec` per row of the event table."""
     from align.columns import numeric_column
+    from align.missing import find_sentinel
     from align.tables import read_table
 
     table = spec.table
@@ -85,6 +86,13 @@ def table_pairs(spec, sources):
             raise InputError(f"no row labelled {missing[0]!r}", source=str(path),
                              field=table.label_column)
     ages = numeric_column(frame[table.age_column], table.age_column, str(path), read.locate)
+    found = find_sentinel(ages)
+    if found is not None:
+        kind, row = read.locate(found[2])
+        raise InputError(f"an event at {found[0]:g}, far outside the other events: a "
+                         "missing-value code? leave the row out", source=str(path),
+                         field=table.age_column, row=row, row_kind=kind)
+    ages = ages * _header_age_scale(table, path)
     keep = (frame[table.label_column].astype(str).isin(table.rows).to_numpy() if table.rows
             else np.ones(len(frame), dtype=bool))
     blank = keep & ~np.isfinite(ages)
@@ -101,6 +109,27 @@ def table_pairs(spec, sources):
                               a={**spec.a.model_dump(), "window": window},
                               b={**spec.b.model_dump(), "window": window}))
     return pairs
+
+
+def _header_age_scale(table, path):
+    """Years per stored unit of the event table's age column: its header unit (``age [ka
+    b2k]``) when it states one; a reference there that differs from ``age_reference`` is
+    refused."""
+    from align.ages import parse_age_units
+    from align.columns import split_header
+
+    unit = split_header(table.age_column).unit
+    if unit is None:
+        return 1.0
+    try:
+        stated = parse_age_units(unit, field=table.age_column)
+    except InputError as exc:
+        raise exc.located(source=str(path)) from None
+    if stated.reference not in (None, table.age_reference):
+        raise InputError(f"the header says {stated.reference}, age_reference says "
+                         f"{table.age_reference}; convert instead of relabelling",
+                         source=str(path), field=table.age_column)
+    return stated.scale or 1.0
 
 
 class SurveySources(Sources):

@@ -139,14 +139,21 @@ _CONTROL = re.compile(rb"[\x00-\x08\x0b\x0e-\x1f\x7f]")
 
 
 def decode_text(raw, name):
-    """A text file's bytes as text: UTF-8 (with or without a byte-order mark), else Latin-1
-    (ISO 8859-1) or Windows-1252 with a warning naming the first byte that is not UTF-8.
+    """A text file's bytes as text: UTF-8 (with or without a byte-order mark), UTF-16 with its
+    byte-order mark (spreadsheets' "Unicode text"), else Latin-1 (ISO 8859-1) or Windows-1252
+    with a warning naming the first byte that is not UTF-8.
 
     Raises
     ------
     NotATableError
         For binary content (control bytes), naming the byte offset of the first one.
     """
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            return raw.decode("utf-16")
+        except UnicodeDecodeError as exc:
+            raise NotATableError(f"not UTF-16 text after its byte-order mark (byte "
+                                 f"{exc.start + 2})", source=name) from None
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:

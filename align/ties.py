@@ -99,7 +99,7 @@ def read_ties(path):
         Fewer than two ties; ties not strictly increasing in both columns (crossing ties name
         the pair); duplicated labels; missing or non-numeric values; negative sd.
     """
-    from align.columns import numeric_column
+    from align.columns import numeric_column, refuse_sentinel
     from align.tables import read_table
 
     path = Path(path)
@@ -126,6 +126,7 @@ def read_ties(path):
             kind, row = table.locate(i)
             raise InputError(f"tie {labels[i]!r} has no {col}", source=str(path), field=col,
                              row=row, row_kind=kind)
+        refuse_sentinel(values, col, str(path), table.locate)
         columns[col] = values
     ties = TieTable(labels=tuple(labels), position=columns[at_col], ref=columns[ref_col],
                     ref_kind=ref_col.removeprefix("ref_"), sd=columns["sd"], source=str(path),

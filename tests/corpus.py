@@ -132,3 +132,13 @@ MAPPING_CASES = [
     ("relative-to-text", {"age_reference": "b2k", "relative_to": "soon"}, "relative_to",
      "a finite age"),
 ]
+
+#: Cases that were read without a word and came out wrong (tests/test_reading_units.py).
+CASES += [
+    ("two-sigma-sd", "age,sd (2σ),Ca\n100,20,5\n110,20,6\n", ".csv", {"age_reference": "BP"},
+     ["'sd (2σ)'", "2-sigma values", "1-sigma"]),
+    ("thousands-dot-with-decimal-comma", "depth;age;Ca\n1,0;11.500;5\n1,1;11.600;6\n", ".csv",
+     {"age_reference": "BP", "decimal": ","}, ["'age'", "line 2", "thousands separator"]),
+    ("fill-value-1e20", "age,Ca\n1,2\n2,1e20\n3,2.5\n4,3\n", ".csv", {"age_reference": "BP"},
+     ["'Ca'", "line 3", "1 cell(s) hold 1e+20"]),
+]
