@@ -181,18 +181,20 @@ def q_profile(x, cov, level=0.95):
     def q(t):
         return float(chi2_statistic(x, cov + t * eye))
 
-    scale = float(np.var(x)) + float(np.mean(np.diag(cov)))
+    # the bracket grows from the scale of the dates and the most precise site, so that a
+    # site of enormous variance neither sets the tolerance nor the first guess
+    start = float(np.var(x)) + float(np.min(np.diag(cov)))
     bounds = []
     for quantile in ((1 + level) / 2, (1 - level) / 2):
         target = chi2.ppf(quantile, k - 1)
         if q(0.0) <= target:
             bounds.append(0.0)
             continue
-        high = scale
+        high = start
         while q(high) > target:
             high *= 4.0
-        bounds.append(brentq(lambda t, target=target: q(t) - target, 0.0, high, xtol=1e-10 * scale,
-                             rtol=1e-12))
+        bounds.append(brentq(lambda t, target=target: q(t) - target, 0.0, high,
+                             xtol=1e-12 * high, rtol=1e-12))
     return bounds[0], bounds[1]
 
 

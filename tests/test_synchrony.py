@@ -105,6 +105,23 @@ def test_q_profile_matches_a_brute_force_scan():
         assert hi > 0
 
 
+def test_a_site_with_a_huge_sd_does_not_widen_the_spread_bound():
+    """A third site of sd 1e9 yr carries no information, so the spread's upper bound is that
+    of the two informative sites on 2 dof, worked by hand: with A, B = 1000, 1005 +- 10 yr,
+    Q(tau2) = 25 / (2 (100 + tau2)) (the third site adds ~1e-12); Q = chi2_{0.025, 2} gives
+    tau2 = 12.5 / chi2_{0.025, 2} - 100 = 147.0 yr^2. The bound was once found to a
+    tolerance scaled by the largest variance (1e18 yr^2): 2.3e7 yr^2, a spread of 13,318
+    years "could differ by" instead of 34."""
+    x = np.array([1000.0, 1005.0, 3000.0])
+    cov = np.diag([100.0, 100.0, 1e18])
+    expected = 12.5 / chi2.ppf(0.025, 2) - 100.0
+    assert q_profile(x, cov)[1] == pytest.approx(expected, rel=1e-6)
+    result = run([{"label": "A", "age": 1000, "sd": 10}, {"label": "B", "age": 1005, "sd": 10},
+                  {"label": "C", "age": 3000, "sd": 1e9}])
+    assert result.spread.could_differ_by == pytest.approx(1.959963984540054 * np.sqrt(
+        2 * expected), rel=1e-6)
+
+
 def test_hand_worked_three_dates():
     """Three dates 100 +- 10, 110 +- 10, 130 +- 20 (yr b2k), worked by hand:
 
