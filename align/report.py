@@ -372,6 +372,10 @@ def survey_headline(result):
     return f"{text} {result.assumptions[-1]}"
 
 
+def _differ(years):
+    return "no bound (closer than the errors predict)" if years is None else _fmt(years, 0)
+
+
 def synchrony_blocks(result):
     """The blocks of a synchrony report."""
     ref = result.age_reference
@@ -385,7 +389,7 @@ def synchrony_blocks(result):
             r.reason or "-"] for r in result.leave_one_out]
     what_if = [[w.change, ", ".join(w.sites)] + (
         [_fmt(w.p_value, 3), f"{_fmt(w.combined.median)} ({_interval(w.combined.ci95)})",
-         _fmt(w.could_differ_by, 0)] if w.applicable else [w.note or "", "-", "-"])
+         _differ(w.could_differ_by)] if w.applicable else [w.note or "", "-", "-"])
         for w in result.what_if]
     return [("h1", "Synchrony report"), ("p", result.verdict),
             ("list", result.cautions),
@@ -398,8 +402,9 @@ def synchrony_blocks(result):
                                              f"{_interval(comb.age.ci68)}; 95 %: "
                                              f"{_interval(comb.age.ci95)})"],
                 ["combined age is", comb.label],
-                ["between-site sd (yr)", f"{_fmt(spread.tau)} (95 %: "
-                                         f"{_interval(spread.ci95)})"],
+                ["between-site sd (yr)", f"{_fmt(spread.tau)} ("
+                                         + ("95 % interval empty" if spread.ci95 is None else
+                                            f"95 %: {_interval(spread.ci95)}") + ")"],
                 ["spread in words", spread.statement]]),
             ("figure", "synchrony"),
             ("h2", "Sites"),

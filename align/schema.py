@@ -552,8 +552,10 @@ class SiteSpread(Model):
 
     tau: float
     tau2: float
-    ci95: Pair
-    could_differ_by: float
+    ci95: Pair | None = Field(description="Q-profile 95 % interval of tau (yr); None when it "
+                                          "is empty (the dates agree more closely than their "
+                                          "errors predict)")
+    could_differ_by: float | None = Field(description="yr; None when the interval is empty")
     statement: str
 
 

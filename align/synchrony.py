@@ -518,7 +518,7 @@ class Analysis:
     calibration: str
     combined: np.ndarray
     tau2: float
-    tau2_ci: tuple
+    tau2_ci: tuple | None  # None: the Q-profile interval is empty
 
     @property
     def consistent(self):
@@ -527,8 +527,9 @@ class Analysis:
     @property
     def could_differ_by(self):
         """Two sites' true ages differ by less than this in 95 % of pairs when the spread is
-        at the upper end of its 95 % interval (yr)."""
-        return Z95 * np.sqrt(2.0 * self.tau2_ci[1])
+        at the upper end of its 95 % interval (yr); None when that interval is empty (the
+        dates agree more closely than their errors predict)."""
+        return None if self.tau2_ci is None else float(Z95 * np.sqrt(2.0 * self.tau2_ci[1]))
 
 
 def analyse(x, cov, joint, gaussian, labels):
@@ -543,9 +544,10 @@ def analyse(x, cov, joint, gaussian, labels):
         errors = -(joint - joint.mean(axis=0))  # reflected: observation minus truth
         p, calibration = mc_p_value(statistic, cov, errors), "Monte Carlo"
     _, _, weights = gls(x, cov)
+    tau2_ci = q_profile(x, cov)
     return Analysis(labels=list(labels), statistic=statistic, dof=dof, p_value=p,
                     calibration=calibration, combined=joint @ weights,
-                    tau2=float(dl_tau2(x, cov)), tau2_ci=q_profile(x, cov))
+                    tau2=float(dl_tau2(x, cov)), tau2_ci=tau2_ci if tau2_ci[1] > 0 else None)
 
 
 def _subset(sites, x, cov, joint, gaussian, keep):
@@ -743,12 +745,10 @@ def _result(request, sites, joint, rng, notes, prov):
     supported = main.consistent
     label = ("supported: the dates are consistent with one common age" if supported else
              "not supported: the dates are not consistent with one common age")
-    tau_lo, tau_hi = np.sqrt(main.tau2_ci[0]), np.sqrt(main.tau2_ci[1])
     spread = SiteSpread(
-        tau=float(np.sqrt(main.tau2)), tau2=main.tau2, ci95=[float(tau_lo), float(tau_hi)],
-        could_differ_by=float(main.could_differ_by),
-        statement=f"the true ages could differ by up to {main.could_differ_by:,.0f} years "
-                  "(95 %)")
+        tau=float(np.sqrt(main.tau2)), tau2=main.tau2,
+        ci95=None if main.tau2_ci is None else [float(np.sqrt(b)) for b in main.tau2_ci],
+        could_differ_by=main.could_differ_by, statement=differ_words(main.could_differ_by))
     loo = _leave_one_out(sites, x, cov, joint, gaussian, used, main, combined)
     what_if = _what_ifs(sites, x, cov, joint, gaussian, used, top)
     result = SynchronyResult(
@@ -819,8 +819,20 @@ def _what_ifs(sites, x, cov, joint, gaussian, used, top):
         rows.append(SynchronyWhatIf(key=key, change=change, applicable=True, sites=labels,
                                     p_value=other.p_value, consistent=other.consistent,
                                     combined=estimate(other.combined),
-                                    could_differ_by=float(other.could_differ_by)))
+                                    could_differ_by=other.could_differ_by))
     return rows
+
+
+def differ_words(could_differ_by):
+    """How far the sites' true ages could differ, in words (``None``: the spread's 95 %
+    interval is empty)."""
+    if could_differ_by is None:
+        return ("the dates agree more closely than their errors predict (the spread's 95 % "
+                "interval is empty), so the data give no bound on how far the true ages could "
+                "differ; the errors may be overstated, or the dates not independent")
+    years = ("less than 1 year" if could_differ_by < 1 else
+             f"{could_differ_by:,.0f} years")
+    return f"the true ages could differ by up to {years} (95 %)"
 
 
 def _age_text(estimate, reference):
@@ -834,8 +846,8 @@ def _verdict(request, sites, main, combined, probs, top, what_if):
     p = f"p = {main.p_value:.3g}"
     if main.consistent:
         text = (f"{n} independent sites; their dates are consistent with one common age "
-                f"({p}): {_age_text(combined, ref)}, and their true ages could differ by up "
-                f"to {main.could_differ_by:,.0f} years (95 %).")
+                f"({p}): {_age_text(combined, ref)}, and "
+                f"{differ_words(main.could_differ_by)}.")
         if probs[top] > 0.5:
             text += f" Site {top} is nevertheless a probable outlier ({probs[top]:.2f})."
     else:
@@ -846,8 +858,7 @@ def _verdict(request, sites, main, combined, probs, top, what_if):
             text += "too few sites would remain without it."
         elif row.consistent:
             text += (f"without it the other {len(row.sites)} agree (p = {row.p_value:.3g}) on "
-                     f"{_age_text(row.combined, ref)} and their true ages could differ by up "
-                     f"to {row.could_differ_by:,.0f} years.")
+                     f"{_age_text(row.combined, ref)}, and {differ_words(row.could_differ_by)}.")
         else:
             text += (f"without it the other {len(row.sites)} still disagree "
                      f"(p = {row.p_value:.3g}).")
@@ -886,7 +897,9 @@ def _assumptions(sites, main, notes, prior):
                    "the stated age, so that the interval is its 95 % highest-density region.")
     out.append("The spread is the between-site sd of the true ages (DerSimonian & Laird "
                "1986, generalised to the covariance) with a Q-profile 95 % interval "
-               "(Viechtbauer 2007); 'could differ by' is 1.96 sqrt(2) times its upper bound.")
+               "(Viechtbauer 2007); 'could differ by' is 1.96 sqrt(2) times its upper bound. "
+               "When the statistic lies below its 2.5 % point the interval is empty: the dates "
+               "agree more closely than their errors predict and no bound is given.")
     out.append(f"Outlier probabilities: each site is, with prior probability {prior:g}, "
                "shifted from the common age (Christen 1994); the shift's prior sd is "
                f"{SHIFT_SCALE:g} times the site's own sd (our choice); Gibbs sampling with "

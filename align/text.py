@@ -142,8 +142,9 @@ def synchrony(result):
                   + ("consistent with one common age" if test.consistent else
                      "NOT consistent with one common age"),
               f"combined    {estimate_line(comb.age, ref)}; {comb.label}",
-              f"spread      between-site sd {spread.tau:.1f} yr (95 %: {spread.ci95[0]:.1f} to "
-              f"{spread.ci95[1]:.1f}); {spread.statement}"]
+              f"spread      between-site sd {spread.tau:.1f} yr ("
+              + ("95 % interval empty" if spread.ci95 is None else
+                 f"95 %: {spread.ci95[0]:.1f} to {spread.ci95[1]:.1f}") + f"); {spread.statement}"]
     decisive = [r for r in result.leave_one_out if r.decisive]
     for row in decisive:
         lines.append(f"decisive    {row.label}: {row.reason} (without it p = "

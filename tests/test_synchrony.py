@@ -147,6 +147,31 @@ def test_hand_worked_three_dates():
     assert result.test.calibration == "chi-square"
 
 
+@pytest.mark.parametrize("sites", [
+    [{"label": "A", "age": 1000, "sd": 10}, {"label": "B", "age": 1000, "sd": 10},
+     {"label": "C", "age": 1000, "sd": 10}],
+    [{"label": "A", "age": 1000, "sd": 10, "age_reference": "BP"},
+     {"label": "B", "age": 1050, "sd": 20}]], ids=["identical", "same-age-BP-and-b2k"])
+def test_dates_closer_than_their_errors_get_no_spread_bound(sites, tmp_path):
+    """Identical ages: T = 0 lies below chi2_{0.025, K-1}, so the Q-profile interval for the
+    spread is empty (Viechtbauer 2007: no tau^2 >= 0 solves Q(tau^2) = the quantile). The
+    result once read 'their true ages could differ by up to 0 years', a claim the data do not
+    make; it must say that the dates agree more closely than their errors predict and give
+    no bound."""
+    from align.report import write_report
+    from align.text import synchrony as as_text
+
+    result = run(sites)
+    assert result.test.statistic < chi2.ppf(0.025, result.test.dof)
+    assert result.spread.could_differ_by is None and result.spread.ci95 is None
+    for words in (result.verdict, result.spread.statement):
+        assert "up to 0 years" not in words
+        assert "more closely than their errors predict" in words
+    write_report(result, tmp_path / "r")
+    for text in ((tmp_path / "r" / "report.md").read_text(), as_text(result)):
+        assert "more closely than their errors predict" in text and "up to 0 years" not in text
+
+
 def test_split_normal_keeps_its_interval_and_moments():
     """The split normal from a 95 % interval: numerical integration (scipy.integrate.quad)
     of its density gives 95 % inside [lower, upper], equal density at both ends (so it is the
