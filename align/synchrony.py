@@ -47,6 +47,10 @@ from align.sites import check_draws, read_draws, sites_request
 LEVEL = 0.05
 #: Outlier model: prior sd of a shifted site's shift, in units of that site's own sd.
 SHIFT_SCALE = 3.0
+#: Fewest independent sites among which one can be singled out as the outlier (of two
+#: disagreeing dates either could be the one that is off).
+MIN_OUTLIER_SITES = 3
+TWO_SITES = "two sites cannot tell which of them is off, so no outlier is singled out"
 #: A site is "near Gaussian" when |skewness| and |excess kurtosis| of its draws stay below.
 GAUSSIAN_SKEW, GAUSSIAN_KURTOSIS = 0.2, 0.5
 Z95 = 1.959963984540054
@@ -728,10 +732,11 @@ def _result(request, sites, joint, rng, notes, prov):
     used = [k for k, s in enumerate(sites) if s.independent]
     main = _subset(sites, x, cov, joint, gaussian, used)
     sub_cov = cov[np.ix_(used, used)]
-    probs = outlier_probabilities(x[used], sub_cov, request.outlier_prior, rng=rng,
-                                  sweeps=600)
-    prob_of = dict(zip([sites[k].label for k in used], probs.tolist()))
-    top = max(prob_of, key=prob_of.get)
+    probs = (outlier_probabilities(x[used], sub_cov, request.outlier_prior, rng=rng,
+                                   sweeps=600).tolist()
+             if len(used) >= MIN_OUTLIER_SITES else [])
+    prob_of = dict(zip([sites[k].label for k in used], probs))
+    top = max(prob_of, key=prob_of.get) if prob_of else None
     rows = [SiteResult(label=s.label, source=s.source, distribution=s.distribution,
                        age=estimate(joint[:, k]), mean=float(s.mean),
                        shared_sd=float(s.shared_sd), near_gaussian=bool(gaussian[k]),
@@ -802,8 +807,8 @@ def _what_ifs(sites, x, cov, joint, gaussian, used, top):
         members = [k for k in used if sites[k].key == key]
         once.append(min(members, key=lambda k: cov[k, k]))
     choices = [
-        ("without_top_outlier", f"without the most probable outlier ({top})",
-         [k for k in used if sites[k].label != top], None),
+        ("without_top_outlier", f"without the most probable outlier ({top or 'none'})",
+         [k for k in used if sites[k].label != top], None if top else TWO_SITES),
         ("independent_chronologies_only", "only sites whose chronology no other site shares",
          unshared, None if shared else "no two sites share a chronology"),
         ("each_chronology_once", "each chronology counted once (its most precise site)",
@@ -848,20 +853,20 @@ def _verdict(request, sites, main, combined, probs, top, what_if):
         text = (f"{n} independent sites; their dates are consistent with one common age "
                 f"({p}): {_age_text(combined, ref)}, and "
                 f"{differ_words(main.could_differ_by)}.")
-        if probs[top] > 0.5:
+        if top is not None and probs[top] > 0.5:
             text += f" Site {top} is nevertheless a probable outlier ({probs[top]:.2f})."
     else:
         text = (f"{n} independent sites; their dates are not consistent with one common age "
-                f"({p}). Site {top} is the most probable outlier ({probs[top]:.2f}); ")
+                f"({p}). ")
         row = next(w for w in what_if if w.key == "without_top_outlier")
-        if not row.applicable:
-            text += "too few sites would remain without it."
-        elif row.consistent:
-            text += (f"without it the other {len(row.sites)} agree (p = {row.p_value:.3g}) on "
-                     f"{_age_text(row.combined, ref)}, and {differ_words(row.could_differ_by)}.")
+        if top is None:
+            text += TWO_SITES[0].upper() + TWO_SITES[1:] + "."
         else:
-            text += (f"without it the other {len(row.sites)} still disagree "
-                     f"(p = {row.p_value:.3g}).")
+            text += (f"Site {top} is the most probable outlier ({probs[top]:.2f}); without it "
+                     f"the other {len(row.sites)} " + (
+                         f"agree (p = {row.p_value:.3g}) on {_age_text(row.combined, ref)}, "
+                         f"and {differ_words(row.could_differ_by)}." if row.consistent else
+                         f"still disagree (p = {row.p_value:.3g})."))
         text += (f" A combined age is not supported (computed anyway: "
                  f"{_age_text(combined, ref)}).")
     for site in sites:
@@ -900,10 +905,13 @@ def _assumptions(sites, main, notes, prior):
                "(Viechtbauer 2007); 'could differ by' is 1.96 sqrt(2) times its upper bound. "
                "When the statistic lies below its 2.5 % point the interval is empty: the dates "
                "agree more closely than their errors predict and no bound is given.")
-    out.append(f"Outlier probabilities: each site is, with prior probability {prior:g}, "
-               "shifted from the common age (Christen 1994); the shift's prior sd is "
-               f"{SHIFT_SCALE:g} times the site's own sd (our choice); Gibbs sampling with "
-               "the sites' Gaussian approximations.")
+    if len(main.labels) < MIN_OUTLIER_SITES:
+        out.append(f"Outlier probabilities are not computed: {TWO_SITES}.")
+    else:
+        out.append(f"Outlier probabilities: each site is, with prior probability {prior:g}, "
+                   "shifted from the common age (Christen 1994); the shift's prior sd is "
+                   f"{SHIFT_SCALE:g} times the site's own sd (our choice); Gibbs sampling "
+                   "with the sites' Gaussian approximations.")
     out.append("A leave-one-out site is decisive when removing it flips the verdict or moves "
                "the combined age by more than half its 95 % width.")
     return out

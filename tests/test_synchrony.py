@@ -274,6 +274,24 @@ def test_inconsistent_dates_are_labelled_and_the_outlier_named():
     assert draws.shape == (2000,) and not again.test.consistent
 
 
+@pytest.mark.parametrize("second_sd", [10, 30])
+def test_two_disagreeing_sites_name_no_outlier(second_sd):
+    """Two dates that disagree (1000 and 1100 yr, T = 50 or 10 on 1 dof): either could be
+    the wrong one, and nothing in two dates tells which. The result once named one 'the most
+    probable outlier' (0.57 against 0.56 with equal sds: Gibbs noise; 0.54 against 0.14 with
+    sds 10 and 30: the shift prior's scale, not the data). It must refuse to single one out
+    and say why."""
+    result = run([{"label": "A", "age": 1000, "sd": 10},
+                  {"label": "B", "age": 1100, "sd": second_sd}])
+    assert not result.test.consistent
+    assert result.top_outlier is None
+    assert [s.outlier_probability for s in result.sites] == [None, None]
+    assert "most probable outlier" not in result.verdict
+    assert "two sites cannot tell which" in result.verdict.lower()
+    row = next(w for w in result.what_if if w.key == "without_top_outlier")
+    assert not row.applicable and "two sites" in row.note
+
+
 def test_same_seed_same_result_and_json_round_trip(tmp_path):
     from align.schema import SynchronyResult
 
