@@ -384,11 +384,11 @@ def synchrony_blocks(result):
               "-" if s.outlier_probability is None else _fmt(s.outlier_probability, 2),
               "yes" if s.independent else "no: " + (s.note or ""), s.chronology or "-"]
              for s in result.sites]
-    loo = [[r.label, _fmt(r.p_value, 3), "yes" if r.consistent else "no",
+    loo = [[r.label, r.p_value_text, "yes" if r.consistent else "no",
             f"{_fmt(r.combined.median)} ({_interval(r.combined.ci95)})", _fmt(r.shift),
             r.reason or "-"] for r in result.leave_one_out]
     what_if = [[w.change, ", ".join(w.sites)] + (
-        [_fmt(w.p_value, 3), f"{_fmt(w.combined.median)} ({_interval(w.combined.ci95)})",
+        [w.p_value_text, f"{_fmt(w.combined.median)} ({_interval(w.combined.ci95)})",
          _differ(w.could_differ_by)] if w.applicable else [w.note or "", "-", "-"])
         for w in result.what_if]
     return [("h1", "Synchrony report"), ("p", result.verdict),
@@ -397,7 +397,7 @@ def synchrony_blocks(result):
             ("table", ["quantity", "value"], [
                 ["independent sites", str(result.n_independent)],
                 ["test of one common age", f"T = {_fmt(test.statistic, 2)} on {test.dof} dof, "
-                                           f"p = {test.p_value:.3g} ({test.calibration})"],
+                                           f"{test.p_value_text} ({test.calibration})"],
                 [f"combined age (yr {ref})", f"{_fmt(comb.age.median)} (68 %: "
                                              f"{_interval(comb.age.ci68)}; 95 %: "
                                              f"{_interval(comb.age.ci95)})"],

@@ -533,6 +533,8 @@ class ConsistencyTest(Model):
     statistic: float
     dof: int
     p_value: float
+    p_value_text: str = Field(description="the p-value in words; at the floor of a Monte "
+                                          "Carlo calibration 'p < 1/(draws + 1)'")
     level: float
     consistent: bool
     calibration: Literal["chi-square", "Monte Carlo"]
@@ -564,6 +566,8 @@ class LeaveOneOut(Model):
 
     label: str
     p_value: float
+    p_value_text: str = Field(description="the p-value in words; at the floor of a Monte "
+                                          "Carlo calibration 'p < 1/(draws + 1)'")
     consistent: bool
     combined: Estimate
     shift: float = Field(description="combined median without the site minus with it (yr)")
@@ -580,6 +584,7 @@ class SynchronyWhatIf(Model):
     applicable: bool
     sites: list[str]
     p_value: float | None = None
+    p_value_text: str | None = None
     consistent: bool | None = None
     combined: Estimate | None = None
     could_differ_by: float | None = None

@@ -57,6 +57,8 @@ Z95 = 1.959963984540054
 CAUTIONS = (
     "Consistency with one common age does not prove synchrony: it may only reflect wide "
     "errors.",
+    "Dates that agree within their uncertainty show no cause: they say neither why the event "
+    "happened nor that a change at one site drove one at another.",
     "A combined age from inconsistent dates is not meaningful.",
     "An outlier flag is a prompt to re-examine that site, not a licence to drop it.")
 
@@ -312,11 +314,24 @@ class Site:
     shared_sd: float
     gaussian: bool | None = None  # None: judged from the draws
     shared_given: bool = True
+    converted: str | None = None  # how its ages reached the common reference, in words
 
     @property
     def key(self):
         """Chronology key: sites with one key share one error draw."""
         return self.chronology if self.chronology else f"site:{self.label}"
+
+
+def _conversion(site_ref, reference):
+    """``"from BP (b2k = BP + 50)"``: how a site's ages reach the common reference (None when
+    they are on it already)."""
+    if site_ref == reference:
+        return None
+    a, b = _affine(site_ref, reference)
+    scaled = site_ref if abs(a) == 1 else f"{abs(a):g} x {site_ref}"
+    formula = (f"{scaled} {'+' if b >= 0 else '-'} {abs(b):g}" if a > 0 else
+               f"{b:g} - {scaled}")
+    return f"from {site_ref} ({reference} = {formula})"
 
 
 def _affine(reference, target):
@@ -337,7 +352,7 @@ def build_site(spec, k, reference, n, rng, sources):
         return _marker_site(spec, k, site_ref, reference, n, rng, sources)
     a, b = _affine(site_ref, reference)
     common = dict(label=spec.label, source="tabulated", independent=spec.independent,
-                  chronology=spec.chronology)
+                  chronology=spec.chronology, converted=_conversion(site_ref, reference))
     try:
         convert_age(spec.age if spec.age is not None else 2000.0, site_ref, reference)
     except InputError as exc:
@@ -346,8 +361,10 @@ def build_site(spec, k, reference, n, rng, sources):
         sd = abs(a) * spec.sd
         shared = abs(a) * (spec.shared_sd or 0.0)
         own_sd = np.sqrt(sd ** 2 - shared ** 2)
-        return Site(**common, distribution=f"Gaussian (age {spec.age:g}, sd {spec.sd:g} "
-                    f"{site_ref})", mean=a * spec.age + b, own=own_sd * rng.standard_normal(n),
+        unit = "ka" if site_ref.startswith("ka ") else "yr"
+        return Site(**common, distribution=f"Gaussian (age {spec.age:g} {site_ref}, sd "
+                    f"{spec.sd:g} {unit})", mean=a * spec.age + b,
+                    own=own_sd * rng.standard_normal(n),
                     own_var=own_sd ** 2, shared_sd=shared, gaussian=True,
                     shared_given=spec.shared_sd is not None)
     if spec.draws is not None:
@@ -436,6 +453,7 @@ def _marker_site(spec, k, site_ref, reference, n, rng, sources):
     return Site(label=spec.label, source="record", distribution=how,
                 independent=spec.independent, chronology=spec.chronology
                 or record.attrs.get("timescale") or None, mean=a * centre + b,
+                converted=_conversion(site_ref, reference),
                 own=a * own, own_var=float(np.var(own)), shared_sd=shared)
 
 
@@ -523,10 +541,20 @@ class Analysis:
     combined: np.ndarray
     tau2: float
     tau2_ci: tuple | None  # None: the Q-profile interval is empty
+    null_draws: int | None  # draws of the Monte Carlo calibration (None: chi-square)
 
     @property
     def consistent(self):
         return self.p_value >= LEVEL
+
+    def p_text(self):
+        """The p-value in words: ``p < 1/(n+1)`` at the floor of a Monte Carlo calibration
+        with ``n`` draws (the assumptions say why), never ``1/(n+1)`` as if exact."""
+        from align.xcorr import p_value_words
+
+        if self.null_draws is None:
+            return f"p = {self.p_value:.3g}"
+        return p_value_words(self.p_value, self.null_draws, why=False)
 
     @property
     def could_differ_by(self):
@@ -551,7 +579,8 @@ def analyse(x, cov, joint, gaussian, labels):
     tau2_ci = q_profile(x, cov)
     return Analysis(labels=list(labels), statistic=statistic, dof=dof, p_value=p,
                     calibration=calibration, combined=joint @ weights,
-                    tau2=float(dl_tau2(x, cov)), tau2_ci=tau2_ci if tau2_ci[1] > 0 else None)
+                    tau2=float(dl_tau2(x, cov)), tau2_ci=tau2_ci if tau2_ci[1] > 0 else None,
+                    null_draws=None if calibration == "chi-square" else joint.shape[0])
 
 
 def _subset(sites, x, cov, joint, gaussian, keep):
@@ -759,13 +788,14 @@ def _result(request, sites, joint, rng, notes, prov):
     result = SynchronyResult(
         request=request, sites=rows, n_independent=len(used),
         test=ConsistencyTest(statistic=main.statistic, dof=main.dof, p_value=main.p_value,
-                             level=LEVEL, consistent=main.consistent,
+                             p_value_text=main.p_text(), level=LEVEL,
+                             consistent=main.consistent,
                              calibration=main.calibration),
         combined=CombinedAge(age=combined, supported=supported, label=label), spread=spread,
         top_outlier=top, leave_one_out=loo, what_if=what_if,
         verdict=_verdict(request, sites, main, combined, prob_of, top, what_if),
         cautions=list(CAUTIONS),
-        assumptions=_assumptions(sites, main, notes, request.outlier_prior),
+        assumptions=_assumptions(sites, main, notes, request),
         references=["ward1978", "dersimonian1986", "viechtbauer2007", "christen1994"],
         age_reference=request.age_reference, provenance=prov)
     result._combined_draws = main.combined
@@ -790,6 +820,7 @@ def _leave_one_out(sites, x, cov, joint, gaussian, used, main, combined):
                   "removing it moves the combined age by more than half its 95 % width"
                   if moves else None)
         rows.append(LeaveOneOut(label=sites[k].label, p_value=other.p_value,
+                                p_value_text=other.p_text(),
                                 consistent=other.consistent, combined=without,
                                 shift=float(shift), decisive=flips or moves, reason=reason))
     return rows
@@ -822,7 +853,8 @@ def _what_ifs(sites, x, cov, joint, gaussian, used, top):
             continue
         other = _subset(sites, x, cov, joint, gaussian, keep)
         rows.append(SynchronyWhatIf(key=key, change=change, applicable=True, sites=labels,
-                                    p_value=other.p_value, consistent=other.consistent,
+                                    p_value=other.p_value, p_value_text=other.p_text(),
+                                    consistent=other.consistent,
                                     combined=estimate(other.combined),
                                     could_differ_by=other.could_differ_by))
     return rows
@@ -848,13 +880,14 @@ def _age_text(estimate, reference):
 def _verdict(request, sites, main, combined, probs, top, what_if):
     ref = request.age_reference
     n = len(main.labels)
-    p = f"p = {main.p_value:.3g}"
+    p = main.p_text()
     if main.consistent:
         text = (f"{n} independent sites; their dates are consistent with one common age "
                 f"({p}): {_age_text(combined, ref)}, and "
                 f"{differ_words(main.could_differ_by)}.")
         if top is not None and probs[top] > 0.5:
-            text += f" Site {top} is nevertheless a probable outlier ({probs[top]:.2f})."
+            text += (f" Site {top} is nevertheless a probable outlier (outlier probability "
+                     f"{probs[top]:.2f}).")
     else:
         text = (f"{n} independent sites; their dates are not consistent with one common age "
                 f"({p}). ")
@@ -862,11 +895,11 @@ def _verdict(request, sites, main, combined, probs, top, what_if):
         if top is None:
             text += TWO_SITES[0].upper() + TWO_SITES[1:] + "."
         else:
-            text += (f"Site {top} is the most probable outlier ({probs[top]:.2f}); without it "
-                     f"the other {len(row.sites)} " + (
-                         f"agree (p = {row.p_value:.3g}) on {_age_text(row.combined, ref)}, "
+            text += (f"Site {top} is the most probable outlier (outlier probability "
+                     f"{probs[top]:.2f}); without it the other {len(row.sites)} " + (
+                         f"agree ({row.p_value_text}) on {_age_text(row.combined, ref)}, "
                          f"and {differ_words(row.could_differ_by)}." if row.consistent else
-                         f"still disagree (p = {row.p_value:.3g})."))
+                         f"still disagree ({row.p_value_text})."))
         text += (f" A combined age is not supported (computed anyway: "
                  f"{_age_text(combined, ref)}).")
     for site in sites:
@@ -876,8 +909,17 @@ def _verdict(request, sites, main, combined, probs, top, what_if):
     return text
 
 
-def _assumptions(sites, main, notes, prior):
-    out = [f"The test asks whether the {len(main.labels)} independent sites share one common "
+def _assumptions(sites, main, notes, request):
+    from align.ages import reference_label
+
+    ref = request.age_reference
+    out = [f"Ages are {reference_label(ref)}, growing into the past; sds and intervals are in "
+           "years."]
+    converted = [f"{s.label} {s.converted}" for s in sites if s.converted]
+    if converted:
+        out.append(f"Converted to {ref} exactly before any comparison: "
+                   f"{'; '.join(converted)}.")
+    out += [f"The test asks whether the {len(main.labels)} independent sites share one common "
            "age (generalised chi-square of Ward & Wilson 1978 with the full covariance, "
            f"{main.dof} degrees of freedom, at the 5 % level)."]
     if main.calibration == "Monte Carlo":
@@ -885,7 +927,10 @@ def _assumptions(sites, main, notes, prior):
                and s.gaussian is not True]
         out.append("Some sites are far from Gaussian, so the statistic's null distribution "
                    "is calibrated by Monte Carlo from the sites' own draws "
-                   f"(considered: {', '.join(odd)}).")
+                   f"(considered: {', '.join(odd)}); when none of its {main.null_draws} draws "
+                   "reaches the observed statistic the p-value is only known to lie below "
+                   f"1/{main.null_draws + 1} and reads 'p < 1/{main.null_draws + 1}'. The "
+                   "spread's interval still uses chi-square quantiles.")
     out.append("The combined age is the generalised least-squares mean, its distribution "
                "the same weights applied to the sites' joint draws.")
     shared = sorted({s.chronology for s in sites if s.chronology
@@ -908,10 +953,10 @@ def _assumptions(sites, main, notes, prior):
     if len(main.labels) < MIN_OUTLIER_SITES:
         out.append(f"Outlier probabilities are not computed: {TWO_SITES}.")
     else:
-        out.append(f"Outlier probabilities: each site is, with prior probability {prior:g}, "
-                   "shifted from the common age (Christen 1994); the shift's prior sd is "
-                   f"{SHIFT_SCALE:g} times the site's own sd (our choice); Gibbs sampling "
-                   "with the sites' Gaussian approximations.")
+        out.append("Outlier probabilities: each site is, with prior probability "
+                   f"{request.outlier_prior:g}, shifted from the common age (Christen 1994); "
+                   f"the shift's prior sd is {SHIFT_SCALE:g} times the site's own sd (our "
+                   "choice); Gibbs sampling with the sites' Gaussian approximations.")
     out.append("A leave-one-out site is decisive when removing it flips the verdict or moves "
                "the combined age by more than half its 95 % width.")
     return out

@@ -292,6 +292,36 @@ def test_two_disagreeing_sites_name_no_outlier(second_sd):
     assert not row.applicable and "two sites" in row.note
 
 
+def test_report_words_name_cause_conventions_units_and_every_number(tmp_path):
+    """What a reader needs beside the numbers (the brief of every report): that agreement
+    within uncertainty shows no cause; what b2k means and which sites were converted from
+    another convention, by which formula; a Gaussian's sd in years (it read 'sd 10 BP'); the
+    outlier probability named as such (it read 'outlier (1.00)'); and a Monte Carlo p-value
+    at its floor given as a bound (it read 'p = 0.00025' in the verdict and 0.000 in the
+    tables, as if exact)."""
+    from align.report import write_report
+
+    sites = [{"label": "A", "age": 1000, "sd": 10},
+             {"label": "B", "age": 950, "sd": 10, "age_reference": "BP"},
+             {"label": "C", "age": 1000, "lower": 985, "upper": 1040},
+             {"label": "D", "age": 1400, "sd": 10}]
+    result = run(sites)
+    assert result.test.calibration == "Monte Carlo"
+    assert result.test.p_value == pytest.approx(1 / 4001)
+    assert any("cause" in c for c in result.cautions)
+    words = " ".join(result.assumptions)
+    assert "years before AD 2000 (b2k)" in words
+    assert "B from BP (b2k = BP + 50)" in words
+    assert result.sites[1].distribution == "Gaussian (age 950 BP, sd 10 yr)"
+    assert "(outlier probability 1.00)" in result.verdict
+    assert "(p < 1/4001)" in result.verdict and "below 1/4001" in words
+    assert result.test.p_value_text == "p < 1/4001"
+    assert "p = 0.00025" not in result.verdict
+    write_report(result, tmp_path / "r")
+    report = (tmp_path / "r" / "report.md").read_text()
+    assert "| 0.000 |" not in report and "p < 1/4001" in report
+
+
 def test_same_seed_same_result_and_json_round_trip(tmp_path):
     from align.schema import SynchronyResult
 
