@@ -91,8 +91,12 @@ def gls(x, cov):
     With a diagonal covariance these are the inverse-variance weights of Ward & Wilson (1978),
     doi:10.1111/j.1475-4754.1978.tb00208.x.
     """
-    x = np.asarray(x, dtype=float)
-    prec = np.linalg.inv(np.asarray(cov, dtype=float))
+    return _gls_of_precision(np.asarray(x, dtype=float),
+                             np.linalg.inv(np.asarray(cov, dtype=float)))
+
+
+def _gls_of_precision(x, prec):
+    """:func:`gls` from the precision ``C^-1`` (inverted once by the caller)."""
     row = prec.sum(axis=-1)
     total = row.sum(axis=-1)
     weights = row / total[..., None]
@@ -119,9 +123,10 @@ def chi2_statistic(x, cov):
     full covariance; with a diagonal one it is Cochran's Q.
     """
     x = np.asarray(x, dtype=float)
-    mean, _, _ = gls(x, cov)
+    prec = np.linalg.inv(np.asarray(cov, dtype=float))
+    mean, _, _ = _gls_of_precision(x, prec)
     r = x - mean[..., None]
-    return np.einsum("...i,...ij,...j->...", r, np.linalg.inv(cov), r)
+    return np.einsum("...i,...ij,...j->...", r, prec, r)
 
 
 def _projector(cov):
