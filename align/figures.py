@@ -399,7 +399,7 @@ def synchrony_figure(result):
                          fontsize=8)
         right.set_ylabel("P(outlier)")
         ax.legend(loc="upper left", frameon=False, fontsize=8)
-        ax.set_title(f"Sites of one horizon: p = {result.test.p_value:.3g} for one common age",
+        ax.set_title(f"Sites of one horizon: {result.test.p_value_text} for one common age",
                      loc="left")
         _age_axis(ax, result.age_reference)
     return fig

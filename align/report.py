@@ -372,6 +372,10 @@ def survey_headline(result):
     return f"{text} {result.assumptions[-1]}"
 
 
+def _differ(years):
+    return "no bound (closer than the errors predict)" if years is None else _fmt(years, 0)
+
+
 def synchrony_blocks(result):
     """The blocks of a synchrony report."""
     ref = result.age_reference
@@ -380,12 +384,12 @@ def synchrony_blocks(result):
               "-" if s.outlier_probability is None else _fmt(s.outlier_probability, 2),
               "yes" if s.independent else "no: " + (s.note or ""), s.chronology or "-"]
              for s in result.sites]
-    loo = [[r.label, _fmt(r.p_value, 3), "yes" if r.consistent else "no",
+    loo = [[r.label, r.p_value_text, "yes" if r.consistent else "no",
             f"{_fmt(r.combined.median)} ({_interval(r.combined.ci95)})", _fmt(r.shift),
             r.reason or "-"] for r in result.leave_one_out]
     what_if = [[w.change, ", ".join(w.sites)] + (
-        [_fmt(w.p_value, 3), f"{_fmt(w.combined.median)} ({_interval(w.combined.ci95)})",
-         _fmt(w.could_differ_by, 0)] if w.applicable else [w.note or "", "-", "-"])
+        [w.p_value_text, f"{_fmt(w.combined.median)} ({_interval(w.combined.ci95)})",
+         _differ(w.could_differ_by)] if w.applicable else [w.note or "", "-", "-"])
         for w in result.what_if]
     return [("h1", "Synchrony report"), ("p", result.verdict),
             ("list", result.cautions),
@@ -393,13 +397,14 @@ def synchrony_blocks(result):
             ("table", ["quantity", "value"], [
                 ["independent sites", str(result.n_independent)],
                 ["test of one common age", f"T = {_fmt(test.statistic, 2)} on {test.dof} dof, "
-                                           f"p = {test.p_value:.3g} ({test.calibration})"],
+                                           f"{test.p_value_text} ({test.calibration})"],
                 [f"combined age (yr {ref})", f"{_fmt(comb.age.median)} (68 %: "
                                              f"{_interval(comb.age.ci68)}; 95 %: "
                                              f"{_interval(comb.age.ci95)})"],
                 ["combined age is", comb.label],
-                ["between-site sd (yr)", f"{_fmt(spread.tau)} (95 %: "
-                                         f"{_interval(spread.ci95)})"],
+                ["between-site sd (yr)", f"{_fmt(spread.tau)} ("
+                                         + ("95 % interval empty" if spread.ci95 is None else
+                                            f"95 %: {_interval(spread.ci95)}") + ")"],
                 ["spread in words", spread.statement]]),
             ("figure", "synchrony"),
             ("h2", "Sites"),

@@ -533,6 +533,8 @@ class ConsistencyTest(Model):
     statistic: float
     dof: int
     p_value: float
+    p_value_text: str = Field(description="the p-value in words; at the floor of a Monte "
+                                          "Carlo calibration 'p < 1/(draws + 1)'")
     level: float
     consistent: bool
     calibration: Literal["chi-square", "Monte Carlo"]
@@ -552,8 +554,10 @@ class SiteSpread(Model):
 
     tau: float
     tau2: float
-    ci95: Pair
-    could_differ_by: float
+    ci95: Pair | None = Field(description="Q-profile 95 % interval of tau (yr); None when it "
+                                          "is empty (the dates agree more closely than their "
+                                          "errors predict)")
+    could_differ_by: float | None = Field(description="yr; None when the interval is empty")
     statement: str
 
 
@@ -562,6 +566,8 @@ class LeaveOneOut(Model):
 
     label: str
     p_value: float
+    p_value_text: str = Field(description="the p-value in words; at the floor of a Monte "
+                                          "Carlo calibration 'p < 1/(draws + 1)'")
     consistent: bool
     combined: Estimate
     shift: float = Field(description="combined median without the site minus with it (yr)")
@@ -578,6 +584,7 @@ class SynchronyWhatIf(Model):
     applicable: bool
     sites: list[str]
     p_value: float | None = None
+    p_value_text: str | None = None
     consistent: bool | None = None
     combined: Estimate | None = None
     could_differ_by: float | None = None

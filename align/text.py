@@ -137,21 +137,22 @@ def synchrony(result):
                      f"{site.age.ci95[1]:7.1f}  {prob:>10}  "
                      f"{'yes' if site.independent else 'NO ':<7}  {site.chronology or '-'}")
     test, comb, spread = result.test, result.combined, result.spread
-    lines += ["", f"test        T = {test.statistic:.2f} on {test.dof} dof, p = "
-                  f"{test.p_value:.3g} ({test.calibration}); "
+    lines += ["", f"test        T = {test.statistic:.2f} on {test.dof} dof, "
+                  f"{test.p_value_text} ({test.calibration}); "
                   + ("consistent with one common age" if test.consistent else
                      "NOT consistent with one common age"),
               f"combined    {estimate_line(comb.age, ref)}; {comb.label}",
-              f"spread      between-site sd {spread.tau:.1f} yr (95 %: {spread.ci95[0]:.1f} to "
-              f"{spread.ci95[1]:.1f}); {spread.statement}"]
+              f"spread      between-site sd {spread.tau:.1f} yr ("
+              + ("95 % interval empty" if spread.ci95 is None else
+                 f"95 %: {spread.ci95[0]:.1f} to {spread.ci95[1]:.1f}") + f"); {spread.statement}"]
     decisive = [r for r in result.leave_one_out if r.decisive]
     for row in decisive:
-        lines.append(f"decisive    {row.label}: {row.reason} (without it p = "
-                     f"{row.p_value:.3g}, combined {row.combined.median:.1f})")
+        lines.append(f"decisive    {row.label}: {row.reason} (without it "
+                     f"{row.p_value_text}, combined {row.combined.median:.1f})")
     lines.append("what if:")
     for row in result.what_if:
         if row.applicable:
-            lines.append(f"  {row.change}: p = {row.p_value:.3g}, combined "
+            lines.append(f"  {row.change}: {row.p_value_text}, combined "
                          f"{estimate_line(row.combined, ref)}")
         else:
             lines.append(f"  {row.change}: {row.note}")

@@ -567,14 +567,15 @@ def surrogate_test(r, r_s):
     return p_value, np.nanpercentile(r_s, [2.5, 97.5], axis=0)
 
 
-def p_value_words(p_value, surrogates):
-    """A surrogate p-value in words: ``"p < 1/(n+1)"`` at the floor of ``n`` surrogates
-    (none reached the observed peak), never a bare 0 or ``1/(n+1)`` as if exact."""
+def p_value_words(p_value, surrogates, *, why=True):
+    """A Monte Carlo p-value in words: ``"p < 1/(n+1)"`` at the floor of ``n`` surrogates or
+    null draws (with ``why``: none of the surrogates reached the observed peak), never a bare
+    0 or ``1/(n+1)`` as if exact."""
     if p_value is None:
         return "not tested"
     if p_value <= 1.0 / (surrogates + 1) * (1 + 1e-9):
-        return (f"p < 1/{surrogates + 1} (none of {surrogates} surrogates reached the "
-                "observed peak)")
+        return f"p < 1/{surrogates + 1}" + (f" (none of {surrogates} surrogates reached the "
+                                             "observed peak)" if why else "")
     return f"p = {p_value:.3g}"
 
 

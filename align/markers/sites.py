@@ -50,6 +50,7 @@ class SitesResult(MarkerBase):
     combined: Estimate
     consistent: bool
     p_value: float
+    p_value_text: str = Field(description="the p-value in words (see ConsistencyTest)")
     n_sites: int = Field(description="independent sites combined")
     allow_inconsistent: bool
     synchrony_verdict: str
@@ -89,10 +90,11 @@ class Sites(MarkerKind):
             age_reference=found.age_reference,
             method=("combined age of independent sites by generalised least squares with the "
                     "full covariance (shared chronologies), from joint Monte Carlo draws; "
-                    f"consistency test p = {found.test.p_value:.3g}"),
+                    f"consistency test {found.test.p_value_text}"),
             references=found.references, trace=Trace(age_top=[], age_bottom=[], value=[]),
             provenance=found.provenance, combined=combined, consistent=found.test.consistent,
-            p_value=found.test.p_value, n_sites=len(used),
+            p_value=found.test.p_value, p_value_text=found.test.p_value_text,
+            n_sites=len(used),
             allow_inconsistent=bool(options.get("allow_inconsistent", False)),
             synchrony_verdict=found.verdict,
             sites=[SiteAge(label=s.label, age=s.age, independent=s.independent)
@@ -112,7 +114,7 @@ class Sites(MarkerKind):
         out = [f"Marker {label}: the combined age of {marker.record}; {marker.synchrony_verdict}"]
         if not marker.consistent:
             out.append(f"Caution, marker {label}: the sites' dates are not consistent with one "
-                       f"common age (p = {marker.p_value:.3g}); the combined age was used "
+                       f"common age ({marker.p_value_text}); the combined age was used "
                        "because allow_inconsistent was set, and is not supported by the data.")
         return out
 
