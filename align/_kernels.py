@@ -138,25 +138,6 @@ def _cell(j, cells, grid, centre, right):
     return left, right
 
 
-#: A cell's sums before any sample: integral, covered length, summed sample widths, valid
-#: samples, overlapping samples.
-NO_SUMS = (0.0, 0.0, 0.0, 0, 0)
-
-
-@njit(cache=True, nogil=True, inline="always")
-def _add(sums, a, b, v, overlap):
-    """``sums`` with the sample ``[a, b]`` of value ``v`` overlapping the cell by
-    ``overlap``."""
-    integral, covered, width_sum, valid, overlapping = sums
-    width_sum += b - a
-    overlapping += 1
-    if v == v:
-        integral += v * overlap
-        covered += overlap
-        valid += 1
-    return integral, covered, width_sum, valid, overlapping
-
-
 @njit(cache=True, nogil=True, inline="always")
 def _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native):
     """Cell ``j``'s outputs from its sums (see :func:`overlap_cells`)."""
@@ -250,7 +231,8 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
             if _disordered(lo, hi, i):
                 ordered = False
             i += 1
-        sums = NO_SUMS
+        integral = covered = width_sum = 0.0
+        valid = overlapping = 0
         previous = hi[_u(i - 1)] if i > 0 else -np.inf
         k = i
         while k < n and lo[_u(k)] < right:
@@ -260,10 +242,17 @@ def overlap_cells(lo, hi, values, cells, min_coverage, mean, coverage, count, na
             previous = b
             overlap = min(b, right) - max(a, left)
             if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
-                sums = _add(sums, a, b, values[_u(k)], overlap)
+                width_sum += b - a
+                overlapping += 1
+                v = values[_u(k)]
+                if v == v:
+                    integral += v * overlap
+                    covered += overlap
+                    valid += 1
             k += 1
         i = k - 1 if k > i and hi[_u(k - 1)] > right else k  # only the last can reach beyond
-        _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native)
+        _write_cell(j, left, right, (integral, covered, width_sum, valid, overlapping),
+                    min_coverage, mean, coverage, count, native)
     return _rest_ordered(lo, hi, i, cells[m - 1, 1]) and ordered if m else ordered
 
 
@@ -281,11 +270,13 @@ def overlap_samples(lo, hi, values, cells, min_coverage, mean, coverage, count, 
     cell it reaches beyond and closes that cell, then adds its last piece to the cell it ends
     in, whose sums carry on to the next sample. On a grid as fine as the samples the one
     data-dependent branch (how many cell edges a sample holds) is taken once per sample, not
-    once per cell as in :func:`overlap_cells`, which is 15 % faster at 1x and 2x samples
-    per cell and 20 % at 4x (12-13 against 10.5-11.5 ns per cell on the 2-core development
-    machine; 20 % slower on grids of 100 samples per cell). Branch-free merges (each step
-    advancing the sample or the cell by a comparison) were measured 1.6-2x slower: each step
-    waits on the comparison that picks it.
+    once per cell as in :func:`overlap_cells`: on the 2-core development machine 11.3
+    against 13.5 ns per cell at one cell per sample, 10.1 against 12.5 at two, 7.5 against
+    8.3 at one cell per two samples, but 16 % slower at one per ten and 45 % at one per
+    hundred. Branch-free merges (each step advancing the sample or the cell by a comparison)
+    were measured 1.6-2x slower: each step waits on the comparison that picks it. The sums
+    are written out here and in :func:`overlap_cells` rather than in a shared helper: one
+    returning them as a tuple cost 8-12 % of either loop.
     """
     n, m = lo.size, cells.shape[0]
     if m == 0:
@@ -297,33 +288,40 @@ def overlap_samples(lo, hi, values, cells, min_coverage, mean, coverage, count, 
         right = start + step * first
     j = 0
     left, right = _cell(0, cells, grid, centre, right)
-    sums = NO_SUMS
+    integral = covered = width_sum = 0.0
+    valid = overlapping = 0
     previous = -np.inf
-    i = 0
-    while i < n:
+    for i in range(n):
         a, b = lo[_u(i)], hi[_u(i)]
         if ((b < a) | (a < previous)) and _disordered(lo, hi, i):  # (rarely checked)
             ordered = False
         previous = b
         v = values[_u(i)]
-        while right <= a or b > right:  # cells the sample starts after, or reaches beyond
-            if b > right:
+        while True:
+            if a < right:  # the sample reaches into this cell
                 overlap = min(b, right) - max(a, left)
-                if overlap > 0.0:
-                    sums = _add(sums, a, b, v, overlap)
-            _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native)
-            sums = NO_SUMS
+                if overlap > 0.0 or left <= a:  # (the second: a zero-width sample)
+                    width_sum += b - a
+                    overlapping += 1
+                    if v == v:
+                        integral += v * overlap
+                        covered += overlap
+                        valid += 1
+                if b <= right:  # and ends in it: the next sample
+                    break
+            _write_cell(j, left, right, (integral, covered, width_sum, valid, overlapping),
+                        min_coverage, mean, coverage, count, native)
+            integral = covered = width_sum = 0.0
+            valid = overlapping = 0
             j += 1
             if j == m:
                 return _rest_ordered(lo, hi, i, right) and ordered
             left, right = _cell(j, cells, grid, centre, right)
-        overlap = min(b, right) - max(a, left)  # the cell the sample ends in
-        if overlap > 0.0 or left <= a < right:  # (the second: a zero-width sample)
-            sums = _add(sums, a, b, v, overlap)
-        i += 1
     while True:  # the cell the samples ended in, and those after them
-        _write_cell(j, left, right, sums, min_coverage, mean, coverage, count, native)
-        sums = NO_SUMS
+        _write_cell(j, left, right, (integral, covered, width_sum, valid, overlapping),
+                    min_coverage, mean, coverage, count, native)
+        integral = covered = width_sum = 0.0
+        valid = overlapping = 0
         j += 1
         if j == m:
             return ordered

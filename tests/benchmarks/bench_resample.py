@@ -7,7 +7,10 @@ threads for large grids, so wall time would flatter it on an idle machine and pu
 busy one; see ``_timing.py``):
 
 - one ``numpy.cumsum`` pass over ``max(samples, cells)`` values (the memory-bound floor):
-  at most 4x;
+  at most 4x, for the merge on one thread (cumsum runs on one core: this is the cost per
+  core; two threads on the 2-core development machine cost 17-30 % more CPU in all while
+  cutting the wall time 1.35-1.75x, printed as a line of its own for grids large enough to
+  be split);
 - ``pandas.cut(labels=False)`` + ``groupby().mean()`` of the mid-points on the same grid (a
   mid-point binning that does not weight by overlap, keeps no coverage): never slower
   (ratio <= 1);
@@ -21,8 +24,10 @@ Run: ``python tests/benchmarks/bench_resample.py [--quick]`` (``--quick``: 10^6 
 
 from __future__ import annotations
 
+import importlib
 import sys
 import time
+from contextlib import contextmanager
 
 import numpy as np
 import pandas as pd
@@ -35,6 +40,18 @@ from align.resample import resample
 START = 1000.0
 CPU = time.process_time
 FACTORS = (0.01, 0.1, 0.5, 1.0, 2.0)
+
+
+@contextmanager
+def threads(count):
+    """The compiled merges run on ``count`` threads inside the block."""
+    kernel_threads = importlib.import_module("align._threads")
+    before = kernel_threads.THREADS
+    kernel_threads.THREADS = count
+    try:
+        yield
+    finally:
+        kernel_threads.THREADS = before
 
 
 def make_record(n):
@@ -61,8 +78,19 @@ def case(record, cells, rounds):
         return pd.Series(values).groupby(pd.cut(mid, edges, labels=False)).mean()
 
     label = f"{n:.0e} samples onto {cells:.0e} cells"
-    report_paired(f"resample {label} vs one numpy.cumsum pass over {max(n, cells):.0e} (CPU)",
-                  ours, lambda: np.cumsum(scratch), limit=4.0, rounds=rounds, clock=CPU)
+    with threads(1):
+        report_paired(f"resample {label} (one thread) vs one numpy.cumsum pass over "
+                      f"{max(n, cells):.0e} (CPU)", ours, lambda: np.cumsum(scratch),
+                      limit=4.0, rounds=rounds, clock=CPU)
+    if cells >= 2 * importlib.import_module("align.resample").CELLS_PER_THREAD:
+        def on_one_thread():
+            with threads(1):
+                return ours()
+
+        count = importlib.import_module("align._threads").THREADS
+        report_paired(f"resample {label} on {count} threads vs one (wall, speed-up)", ours,
+                      on_one_thread, limit=1.0, better="higher", rounds=rounds,
+                      clock=time.perf_counter)
     report_paired(f"resample {label} vs pandas cut + groupby mean (CPU)", ours, by_pandas,
                   limit=1.0, rounds=rounds, clock=CPU)
     if cells == 100_000 and n == 10_000_000:
