@@ -42,3 +42,17 @@ def prediction_interval(mean, se, tau2, k, level=0.95):
         return None
     half = t.ppf(0.5 + level / 2, k - 2) * np.sqrt(tau2 + se**2)
     return [float(mean - half), float(mean + half)]
+
+
+#: Why a between-pair sd has no interval (its Q-profile interval is empty).
+NO_SPREAD_INTERVAL = ("no 95 % interval: the pairs agree more closely than their uncertainties "
+                      "predict")
+
+
+def spread_interval(heterogeneity, number):
+    """The between-pair sd's 95 % Q-profile interval in words, ``number`` formatting each
+    bound: ``"95 %: lo to hi"``, or why there is none."""
+    bounds = heterogeneity.tau_ci95
+    if bounds is None:
+        return NO_SPREAD_INTERVAL
+    return f"95 %: {number(bounds[0])} to {number(bounds[1])}"

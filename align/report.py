@@ -24,6 +24,7 @@ from align.figures import (AGE_NOTE, STYLE, fit_pages, lag_figures, marker_figur
                            xcorr_figure)
 from align.folders import new_folder
 from align.io import read_json
+from align.heterogeneity import spread_interval
 from align.lag import what_if_for
 from align.references import cite
 from align.text import pair_sides, survey_subject
@@ -343,11 +344,9 @@ def survey_blocks(result):
                 ["heterogeneity Q (dof, p)",
                  f"{_fmt(result.heterogeneity.q, 2)} ({result.heterogeneity.dof}, "
                  f"{_fmt(result.heterogeneity.p_value, 3)})"],
-                ["between-pair sd (95 %, Q-profile)",
-                 f"{_fmt(result.heterogeneity.tau)} yr"
-                 + (f" ({_fmt(result.heterogeneity.tau_ci95[0])} to "
-                    f"{_fmt(result.heterogeneity.tau_ci95[1])})"
-                    if result.heterogeneity.tau_ci95 else "")]]) + (
+                ["between-pair sd (Q-profile interval)",
+                 f"{_fmt(result.heterogeneity.tau)} yr "
+                 f"({spread_interval(result.heterogeneity, _fmt)})"]]) + (
                 [] if result.prediction95 is None else [
                     ["new pair, 95 % prediction interval",
                      f"{_fmt(result.prediction95[0])} to {_fmt(result.prediction95[1])} yr"]]))]

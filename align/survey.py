@@ -417,9 +417,15 @@ def combine(draws, rng, samples=20_000):
     heterogeneity = Heterogeneity(
         q=q, dof=k - 1, p_value=p_value, tau2=tau2, significant=p_value < HETEROGENEITY_LEVEL,
         tau=float(np.sqrt(tau2)),
-        tau_ci95=[float(np.sqrt(b)) for b in q_profile(medians, cov)],
+        tau_ci95=_spread_ci95(q_profile(medians, cov)),
         largest=[QShare(label=rows[i].label, share=float(shares[i])) for i in order])
     return summary, prediction, heterogeneity, _headline(summary, prediction, heterogeneity)
+
+
+def _spread_ci95(tau2_bounds):
+    """The between-pair sd's 95 % interval (yr) from the Q-profile bounds of its variance;
+    None when the interval is empty (Q below its 2.5 % point: both bounds 0)."""
+    return [float(np.sqrt(b)) for b in tau2_bounds] if tau2_bounds[1] > 0 else None
 
 
 def _joint_members(draws, rng, samples):

@@ -100,6 +100,8 @@ def xcorr(result):
 def survey(result):
     """A survey: what it compares, one line per pair (with its markers when they differ
     between pairs), then the combination."""
+    from align.heterogeneity import spread_interval
+
     sides = pair_sides(result)
     differ = len(set(sides)) > 1
     lines = [survey_subject(result)]
@@ -116,9 +118,7 @@ def survey(result):
     if result.heterogeneity:
         h = result.heterogeneity
         lines.append(f"heterogeneity: Q = {h.q:.1f} on {h.dof} dof (p = {h.p_value:.3g}), "
-                     f"between-pair sd {h.tau:.1f} yr"
-                     + (f" (95 %: {h.tau_ci95[0]:.1f} to {h.tau_ci95[1]:.1f})"
-                        if h.tau_ci95 else ""))
+                     f"between-pair sd {h.tau:.1f} yr ({spread_interval(h, '{:.1f}'.format)})")
     if result.prediction95:
         lines.append(f"new pair (95 % prediction): {result.prediction95[0]:.1f} to "
                      f"{result.prediction95[1]:.1f} yr")

@@ -155,3 +155,19 @@ def test_headline_of_agreeing_pairs_leads_with_the_verdict():
     _, _, h, headline = combine(synthetic_rows([0, 3, -4, 2, 1, -1], 10.0, rng), rng)
     assert not h.significant
     assert headline.startswith("no systematic lead")
+
+
+def test_pairs_closer_than_their_errors_get_no_spread_interval():
+    """Lags that agree more closely than their uncertainties predict (Q below its 2.5 %
+    point): the Q-profile interval of the between-pair sd is empty. It was reported as
+    "0.0 to 0.0"; now there is none, and the words the text and the report print say why."""
+    rng = np.random.default_rng(7)
+    close = combine(synthetic_rows([0.0, 0.2, -0.1, 0.1, -0.2, 0.05], 10.0, rng), rng)[2]
+    assert close.q < chi2.ppf(0.025, close.dof)
+    assert close.tau_ci95 is None and close.tau == 0.0
+    assert het.spread_interval(close, "{:.1f}".format) == (
+        "no 95 % interval: the pairs agree more closely than their uncertainties predict")
+    apart = combine(synthetic_rows([0, 5, -5, 3, 80, -2, 1, -60, 4, 2], 10.0, rng), rng)[2]
+    lo, hi = apart.tau_ci95
+    assert 0 < lo < apart.tau < hi
+    assert het.spread_interval(apart, "{:.1f}".format) == f"95 %: {lo:.1f} to {hi:.1f}"
