@@ -32,8 +32,8 @@ _DEPTH_SPELLED = {"metre": 1.0, "metres": 1.0, "meter": 1.0, "meters": 1.0,
                   "centimetre": 0.01, "centimetres": 0.01, "centimeter": 0.01,
                   "centimeters": 0.01, "millimetre": 0.001, "millimetres": 0.001,
                   "millimeter": 0.001, "millimeters": 0.001}
-#: A depth unit closing a column name (``depth_cm``, ``Depth mm``).
-_DEPTH_NAME = re.compile(r"^depth[\W_]+(m|cm|mm)$", re.IGNORECASE)
+#: Words of a depth column's name that make it a sample's top or bottom, not its mid-depth.
+_BOUND_WORDS = {"top", "bottom", "bot", "base", "upper", "lower"}
 _HEADER = re.compile(r"^\s*(?P<name>[^(\[]*[^(\[\s])\s*(?:\[(?P<bracket>[^\]]*)\])?\s*"
                      r"(?:\((?P<paren>[^)]*)\))?\s*$")
 #: Column names found without being told (lower case).
@@ -244,6 +244,8 @@ def assign_roles(columns, mapping, name):
             found = _exact_match(columns, role, name)
             if found is None and role in _LOOSE:
                 found = _loose_match(columns, role)
+                if found is not None and role == "depth":
+                    _refuse_bound_as_depth(columns[found], name)
             if found is not None:
                 roles[role] = found
     if "depth" not in roles and "age" not in roles:
@@ -277,6 +279,27 @@ def _exact_match(columns, role, name):
 _LOOSE = {"depth": re.compile(r"^depth(?:[\W_].*)?$", re.IGNORECASE),
           "age": re.compile(r"^(?:age|years?)(?:[\W_].*)?$", re.IGNORECASE)}
 _OTHER_ROLES = {c for role, names in AUTO.items() if role not in _LOOSE for c in names}
+
+
+def _name_words(name):
+    return re.split(r"[\W_]+", name.lower())
+
+
+def _name_unit(name):
+    """A depth unit among the words of a depth column's name after the first (``depth_cm``,
+    ``Depth_cm_mid``, ``depth-mbsf-cm``), or None."""
+    units = {word for word in _name_words(name)[1:] if word in DEPTH_SCALE}
+    return units.pop() if len(units) == 1 else None
+
+
+def _refuse_bound_as_depth(column, name):
+    """A lone depth column named as a sample's top or bottom (``depth_top_cm``) is not its
+    mid-depth."""
+    if _BOUND_WORDS & set(_name_words(column.name)):
+        raise InputError(f"the column {column.header!r} looks like the top or bottom of the "
+                         "samples, not their mid-depth; name the columns with depth_column=, "
+                         "or depth_top_column= and depth_bottom_column=", source=name,
+                         field=column.header)
 
 
 def _loose_match(columns, role):
@@ -444,8 +467,8 @@ def _depth_scale(roles, columns, mapping, name):
         col = roles.get(role)
         if col is not None:
             check_depth_direction(columns[col].attrs, columns[col].header, name)
-            hint = _DEPTH_NAME.search(columns[col].name) if role == "depth" else None
-            for unit in (columns[col].unit, hint and hint[1]):
+            hint = _name_unit(columns[col].name) if role == "depth" else None
+            for unit in (columns[col].unit, hint):
                 if unit is not None:
                     said.setdefault(depth_scale(unit, columns[col].header, name),
                                     (unit, columns[col].header))

@@ -69,6 +69,23 @@ def test_a_depth_unit_in_the_column_name_is_applied(tmp_path, column, expected):
         "history"]
 
 
+@pytest.mark.parametrize("column", ["depth_mid_cm", "Depth_cm_mid", "depth-mbsf-cm"])
+def test_a_depth_unit_anywhere_in_the_column_name_is_applied(tmp_path, column):
+    # was read as metres (100 m)
+    path = table(tmp_path, f"{column},age,Ca\n100,100,5\n101,110,6\n")
+    record = open_record(path, age_reference="BP")
+    np.testing.assert_allclose(record.depth.values, [1.0, 1.01])
+
+
+@pytest.mark.parametrize("column", ["depth_top_cm", "Depth_cm_top", "depth_lower_cm", "depth_base"])
+def test_a_lone_top_or_bottom_depth_is_not_taken_for_the_mid_depth(tmp_path, column):
+    # was taken for the sample's mid-depth (and the first two read as metres)
+    path = table(tmp_path, f"{column},age,Ca\n100,100,5\n101,110,6\n")
+    with pytest.raises(InputError, match=r"depth_top_column=") as caught:
+        open_record(path, age_reference="BP")
+    assert repr(column) in str(caught.value)
+
+
 def test_a_depth_unit_spelled_out_agrees_with_its_symbol(tmp_path):
     path = table(tmp_path, "depth (centimetres),age,Ca\n100,100,5\n101,110,6\n")
     record = open_record(path, age_reference="BP", depth_units="cm")
