@@ -317,7 +317,9 @@ def overlap_samples(lo, hi, values, cells, min_coverage, mean, coverage, count, 
             if j == m:
                 return _rest_ordered(lo, hi, i, right) and ordered
             left, right = _cell(j, cells, grid, centre, right)
-    while True:  # the cell the samples ended in, and those after them
+    # the cell the samples ended in, and those after them (closed as in the loop above; a
+    # sentinel sample past the grid that let the loop close them cost 6-9 % of the loop)
+    while True:
         _write_cell(j, left, right, (integral, covered, width_sum, valid, overlapping),
                     min_coverage, mean, coverage, count, native)
         integral = covered = width_sum = 0.0
